@@ -1,0 +1,66 @@
+"""confpop: conformer ensembles, their populations, interconversion rates and NMR observables.
+
+The public names are imported lazily (the command line and the plain-number functions do
+not pay for RDKit or the engines until they are used).
+
+Examples
+--------
+>>> import confpop as cp
+>>> w = cp.boltzmann_weights([0.0, 1.0], 298.15)
+>>> [round(x, 4) for x in w]
+[0.8439, 0.1561]
+"""
+
+from __future__ import annotations
+
+import importlib
+from importlib.metadata import PackageNotFoundError, version
+
+try:
+    __version__ = version("confpop")
+except PackageNotFoundError:  # running from a source tree that was never installed
+    __version__ = "0.0.0+unknown"
+
+# public name -> module that defines it (one line each; keep sorted by module)
+_PUBLIC: dict[str, str] = {
+    "ConfpopError": "errors",
+    "InputError": "errors",
+    "BackendUnavailable": "errors",
+    "CalculationFailed": "errors",
+    "StoreError": "errors",
+    "convert": "units",
+    "boltzmann_weights": "thermo",
+    "ensemble_free_energy": "thermo",
+    "conformational_entropy": "thermo",
+    "effective_conformer_count": "thermo",
+    "free_energy_gap": "thermo",
+    "population_ratio": "thermo",
+    "ideal_gas_thermo": "thermo",
+    "standard_state_correction": "thermo",
+    "eyring_rate": "kinetics",
+    "half_life": "kinetics",
+    "mean_residence_time": "kinetics",
+    "barrier_for_half_life": "kinetics",
+    "atropisomer_class": "kinetics",
+    "coalescence_rate": "kinetics",
+    "coalescence_barrier": "kinetics",
+    "exchange_regime": "kinetics",
+    "get_backend": "backends",
+    "register_backend": "backends",
+    "available_backends": "backends",
+}
+
+__all__ = sorted(_PUBLIC) + ["__version__"]
+
+
+def __getattr__(name: str):
+    module = _PUBLIC.get(name)
+    if module is None:
+        raise AttributeError(f"module 'confpop' has no attribute {name!r}")
+    value = getattr(importlib.import_module(f".{module}", __name__), name)
+    globals()[name] = value
+    return value
+
+
+def __dir__():
+    return sorted(set(globals()) | set(_PUBLIC))
