@@ -1,0 +1,262 @@
+"""Duplicate removal, mirror images, energy windows and integrity checks.
+
+Two conformers are duplicates when their symmetry-aware RMSD over the heavy atoms and the
+polar hydrogens is below a threshold *and* their energies agree within a tolerance. The
+symmetry is the molecule's graph automorphisms (RDKit substructure self-matches), so
+permuted equivalent atoms (the two oxygens of a carboxylate, the rings of a biphenyl) and
+methyl rotamers (methyl hydrogens are left out of the RMSD) collapse. Superposition is the
+Kabsch fit restricted to proper rotations; the same fit allowing a reflection finds mirror
+images.
+
+For an achiral molecule the mirror image of a chiral conformer (gauche+ / gauche-) is a
+distinct conformer of exactly the same energy. Either both are kept as rows, or one row
+stands for both with degeneracy 2; populations are the same either way.
+"""
+
+from __future__ import annotations
+
+import logging
+from dataclasses import dataclass, field
+
+import numpy as np
+from rdkit import Chem
+
+from .errors import InputError
+from .units import convert
+
+__all__ = ["PruneSettings", "rmsd_atoms", "automorphisms", "best_rmsd", "is_achiral",
+           "conformer_is_chiral", "find_duplicates", "integrity_problems"]
+
+log = logging.getLogger(__name__)
+
+
+@dataclass(frozen=True)
+class PruneSettings:
+    """Thresholds for duplicate removal.
+
+    Attributes
+    ----------
+    rmsd : float, angstrom
+        Symmetry-aware RMSD (heavy atoms + polar H) below which two conformers may be one.
+        0.125 Å is common practice for optimized structures.
+    energy_tolerance : float, kcal/mol
+        Largest energy difference between duplicates: optimized copies of one minimum agree
+        to a few hundredths of a kcal/mol; 0.1 keeps OH/NH rotamers apart whose heavy atoms
+        coincide.
+    merge_mirror_images : bool
+        Merge a conformer's mirror image into its row with degeneracy 2 (True) or keep both
+        as rows (False). Only for achiral molecules.
+    max_automorphisms : int
+        Cap on the symmetry permutations tried (very symmetric molecules).
+    """
+
+    rmsd: float = 0.125
+    energy_tolerance: float = 0.1
+    merge_mirror_images: bool = True
+    max_automorphisms: int = 5000
+
+
+def rmsd_atoms(mol: Chem.Mol) -> np.ndarray:
+    """Indices of the atoms compared: heavy atoms and hydrogens on N, O, S, P."""
+    keep = []
+    for atom in mol.GetAtoms():
+        if atom.GetAtomicNum() != 1:
+            keep.append(atom.GetIdx())
+        elif any(n.GetAtomicNum() in (7, 8, 15, 16) for n in atom.GetNeighbors()):
+            keep.append(atom.GetIdx())
+    return np.array(keep, dtype=int)
+
+
+def automorphisms(mol: Chem.Mol, atoms: np.ndarray, max_count: int = 5000) -> np.ndarray:
+    """Graph automorphisms of ``mol`` restricted to ``atoms``: (n_perm, n_atoms) index arrays.
+
+    Row p maps compared-atom position a to the atom whose coordinates stand in for it.
+    Stereo is ignored (a permutation that would invert a centre cannot be realised by a
+    proper rotation of a real conformer, so it never gives a small RMSD).
+    """
+    sub = Chem.RWMol(mol)
+    matches = mol.GetSubstructMatches(Chem.Mol(sub), uniquify=False, useChirality=False,
+                                      maxMatches=max_count)
+    if len(matches) >= max_count:
+        log.warning("symmetry permutations capped at %d; duplicates may survive", max_count)
+    if not matches:
+        matches = (tuple(range(mol.GetNumAtoms())),)
+    perms = np.array(matches, dtype=int)[:, atoms]
+    return np.unique(perms, axis=0)
+
+
+def _kabsch_rmsd(ref: np.ndarray, probes: np.ndarray, allow_reflection: bool) -> np.ndarray:
+    """RMSD after optimal superposition of each probe (P, n, 3) onto ref (n, 3), centred."""
+    h = np.einsum("pni,nj->pij", probes, ref)
+    u, s, vt = np.linalg.svd(h)
+    if allow_reflection:
+        trace = s.sum(axis=1)
+    else:
+        d = np.sign(np.linalg.det(np.matmul(u, vt)))
+        trace = s[:, 0] + s[:, 1] + d * s[:, 2]
+    n = ref.shape[0]
+    msd = (np.sum(ref * ref) + np.einsum("pni,pni->p", probes, probes) - 2.0 * trace) / n
+    return np.sqrt(np.clip(msd, 0.0, None))
+
+
+def best_rmsd(ref: np.ndarray, probe: np.ndarray, perms: np.ndarray,
+              allow_reflection: bool = False) -> float:
+    """Symmetry-aware RMSD of two conformers over the compared atoms.
+
+    Parameters
+    ----------
+    ref, probe : (n_atoms, 3) arrays, angstrom
+        Full coordinate sets of two conformers.
+    perms : (n_perm, n_compared) int array
+        From :func:`automorphisms`; ``perms[0]`` for identity ordering is included.
+    allow_reflection : bool
+        Also allow improper superposition (the mirror image of ``probe``).
+    """
+    atoms = perms[0] if len(perms) == 1 else np.sort(perms[0])
+    r = ref[atoms] - ref[atoms].mean(axis=0)
+    p = probe[perms]
+    p = p - p.mean(axis=1, keepdims=True)
+    return float(_kabsch_rmsd(r, p, allow_reflection).min())
+
+
+def is_achiral(mol: Chem.Mol) -> bool:
+    """True when the molecule equals its own mirror image (no stereo, or meso)."""
+    base = Chem.RemoveHs(mol)
+    smiles = Chem.MolToSmiles(base)
+    mirrored = Chem.Mol(base)
+    for atom in mirrored.GetAtoms():
+        tag = atom.GetChiralTag()
+        if tag == Chem.ChiralType.CHI_TETRAHEDRAL_CW:
+            atom.SetChiralTag(Chem.ChiralType.CHI_TETRAHEDRAL_CCW)
+        elif tag == Chem.ChiralType.CHI_TETRAHEDRAL_CCW:
+            atom.SetChiralTag(Chem.ChiralType.CHI_TETRAHEDRAL_CW)
+    return Chem.MolToSmiles(mirrored) == smiles
+
+
+def conformer_is_chiral(positions: np.ndarray, perms: np.ndarray, rmsd: float) -> bool:
+    """True when a conformer cannot be superposed on its own mirror image."""
+    mirror = positions.copy()
+    mirror[:, 0] *= -1.0
+    return best_rmsd(positions, mirror, perms) > rmsd
+
+
+@dataclass
+class DuplicateReport:
+    """Outcome of :func:`find_duplicates`.
+
+    Attributes
+    ----------
+    unique : list of int
+        Positions (into the input order) of the kept conformers, lowest energy first.
+    duplicate_of : dict
+        Position of each removed conformer -> the kept position it repeats.
+    times_found : dict
+        Kept position -> how many input conformers (itself included) it stands for.
+    mirror_of : dict
+        Removed position -> kept position whose mirror image it is (merged mirror images).
+    chiral_conformer : dict
+        Kept position -> whether it differs from its own mirror image.
+    comparisons : int
+        RMSD evaluations made.
+    """
+
+    unique: list[int] = field(default_factory=list)
+    duplicate_of: dict[int, int] = field(default_factory=dict)
+    times_found: dict[int, int] = field(default_factory=dict)
+    mirror_of: dict[int, int] = field(default_factory=dict)
+    chiral_conformer: dict[int, bool] = field(default_factory=dict)
+    comparisons: int = 0
+
+
+def find_duplicates(mol: Chem.Mol, positions, energies_hartree, settings: PruneSettings,
+                    *, achiral: bool | None = None) -> DuplicateReport:
+    """Greedy duplicate search in energy order.
+
+    Each conformer, from the lowest energy up, is compared with the kept conformers whose
+    energy lies within ``settings.energy_tolerance``; only those pairs are superposed, so the
+    cost grows with the number of near-degenerate pairs, not with n².
+
+    Parameters
+    ----------
+    mol : Chem.Mol
+        The molecule (topology; explicit H).
+    positions : sequence of (n_atoms, 3) arrays, angstrom
+    energies_hartree : (n,) array
+    settings : PruneSettings
+    achiral : bool, optional
+        Whether the molecule is achiral (mirror images then count as equal-energy partners);
+        computed when not given.
+    """
+    pos = [np.asarray(p, dtype=float) for p in positions]
+    e = convert(np.asarray(energies_hartree, dtype=float), "hartree", "kcal/mol")
+    if len(pos) != len(e):
+        raise InputError(f"need one energy per conformer: {len(pos)} conformers, {len(e)} energies")
+    if achiral is None:
+        achiral = is_achiral(mol)
+    atoms = rmsd_atoms(mol)
+    perms = automorphisms(mol, atoms, settings.max_automorphisms)
+    order = np.argsort(e, kind="stable")
+    report = DuplicateReport()
+    kept_e: list[float] = []
+    for idx in order:
+        idx = int(idx)
+        match = None
+        # kept conformers are in ascending energy, so scan back from the newest
+        for k in range(len(report.unique) - 1, -1, -1):
+            if e[idx] - kept_e[k] > settings.energy_tolerance:
+                break
+            ref = report.unique[k]
+            report.comparisons += 1
+            if best_rmsd(pos[ref], pos[idx], perms) < settings.rmsd:
+                match = ("dup", ref)
+                break
+            if achiral and settings.merge_mirror_images and report.chiral_conformer[ref]:
+                report.comparisons += 1
+                if best_rmsd(pos[ref], pos[idx], perms, allow_reflection=True) < settings.rmsd:
+                    match = ("mirror", ref)
+                    break
+        if match is None:
+            report.unique.append(idx)
+            kept_e.append(e[idx])
+            report.times_found[idx] = 1
+            report.chiral_conformer[idx] = bool(achiral) and conformer_is_chiral(
+                pos[idx], perms, settings.rmsd)
+        else:
+            kind, ref = match
+            report.duplicate_of[idx] = ref
+            report.times_found[ref] += 1
+            if kind == "mirror":
+                report.mirror_of[idx] = ref
+    return report
+
+
+def integrity_problems(mol: Chem.Mol, conf_id: int, reference_stereo=None) -> list[str]:
+    """Reasons why conformer ``conf_id`` no longer is the input molecule (empty when fine).
+
+    Checks that the bonds perceived from interatomic distances are exactly the molecule's
+    bonds, and that every stereocentre and stereo double bond keeps its configuration
+    (compared with ``reference_stereo`` from :func:`confpop.molecule.stereo_signature`).
+    """
+    from .molecule import bond_graph_from_coordinates, stereo_signature
+
+    problems = []
+    expected = {tuple(sorted((b.GetBeginAtomIdx(), b.GetEndAtomIdx()))) for b in mol.GetBonds()}
+    found = {tuple(sorted(b)) for b in bond_graph_from_coordinates(mol, conf_id)}
+
+    def label(pair):
+        i, j = pair
+        return f"{mol.GetAtomWithIdx(i).GetSymbol()}{i}-{mol.GetAtomWithIdx(j).GetSymbol()}{j}"
+
+    broken = sorted(expected - found)
+    formed = sorted(found - expected)
+    if broken:
+        problems.append("bond broken: " + ", ".join(label(p) for p in broken))
+    if formed:
+        problems.append("bond formed: " + ", ".join(label(p) for p in formed))
+    if reference_stereo is not None and not broken and not formed:
+        now = stereo_signature(mol, conf_id)
+        changed = [f"{a}: {b} -> {now_map}" for a, b in dict(reference_stereo).items()
+                   if (now_map := dict(now).get(a)) is not None and now_map != b]
+        if changed:
+            problems.append("stereo changed: " + "; ".join(str(c) for c in changed))
+    return problems

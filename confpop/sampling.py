@@ -1,0 +1,263 @@
+"""Conformer generation with ETKDG, in rounds until sampling saturates.
+
+Each round embeds a batch of trial structures (ETKDGv3, seeded), relaxes them with a force
+field and matches them against the conformers already found. Sampling stops when a round
+adds no new conformer inside the energy window. How often each unique conformer was found
+again gives a Good–Turing estimate of the share of the (energy-window) population that
+sampling has not seen yet: n₁/N, with n₁ the number of conformers found exactly once and N
+the number of trial structures that ended inside the window.
+
+References
+----------
+Riniker & Landrum, J. Chem. Inf. Model. 2015, 55, 2562 (ETKDG), doi:10.1021/acs.jcim.5b00654
+Wang, Witek, Landrum, Riniker, J. Chem. Inf. Model. 2020, 60, 2044 (ETKDGv3, macrocycles),
+doi:10.1021/acs.jcim.0c00025
+Good, Biometrika 1953, 40, 237 (unseen species), doi:10.1093/biomet/40.3-4.237
+Ebejer, Morris, Deane, J. Chem. Inf. Model. 2012, 52, 1146 (trial counts by rotatable
+bonds), doi:10.1021/ci2004658
+"""
+
+from __future__ import annotations
+
+import logging
+import time
+from dataclasses import dataclass, field
+
+import numpy as np
+from rdkit import Chem
+from rdkit.Chem import rdDistGeom
+from rdkit.Chem import rdMolDescriptors
+
+from .backends.forcefield import minimize_conformers
+from .errors import InputError
+from .prune import PruneSettings, find_duplicates
+from .units import convert
+
+__all__ = ["SamplingReport", "default_trials", "embed", "sample_conformers", "flexibility"]
+
+log = logging.getLogger(__name__)
+
+
+def flexibility(mol: Chem.Mol) -> dict:
+    """Rotatable bonds (strict definition) and ring sizes of ``mol``."""
+    ring_sizes = sorted(len(r) for r in mol.GetRingInfo().AtomRings())
+    return {"rotatable_bonds": int(rdMolDescriptors.CalcNumRotatableBonds(
+                mol, rdMolDescriptors.NumRotatableBondsOptions.Strict)),
+            "ring_sizes": ring_sizes,
+            "macrocycle": any(s >= 8 for s in ring_sizes)}
+
+
+def default_trials(mol: Chem.Mol) -> int:
+    """Trial structures per sampling round, from the molecule's flexibility.
+
+    50 for up to 7 rotatable bonds, 200 for 8-12, 300 above (Ebejer et al. 2012), doubled
+    for macrocycles and raised for flexible (non-aromatic) rings of 6-7 atoms, never below 20.
+    """
+    flex = flexibility(mol)
+    n_rot = flex["rotatable_bonds"]
+    n = 50 if n_rot <= 7 else (200 if n_rot <= 12 else 300)
+    n = max(20, min(n, 20 + 15 * n_rot + 10 * len(flex["ring_sizes"])))
+    if flex["macrocycle"]:
+        n *= 2
+    return int(n)
+
+
+def _params(mol: Chem.Mol, seed: int, threads: int, force_trans_amides: bool):
+    params = rdDistGeom.ETKDGv3()
+    params.randomSeed = int(seed)
+    params.numThreads = int(threads)
+    params.pruneRmsThresh = -1.0
+    params.enforceChirality = True
+    params.forceTransAmides = bool(force_trans_amides)
+    params.trackFailures = True
+    if flexibility(mol)["macrocycle"]:
+        params.useMacrocycleTorsions = True
+        params.useMacrocycle14config = True
+    return params
+
+
+def embed(mol: Chem.Mol, n: int, seed: int = 0, threads: int = 0,
+          force_trans_amides: bool = True) -> tuple[Chem.Mol, int]:
+    """Embed ``n`` trial structures with ETKDGv3.
+
+    Returns
+    -------
+    mol : Chem.Mol
+        A copy with the embedded conformers (ids 0..m-1).
+    failures : int
+        Trials that did not give a structure (n - m).
+    """
+    if n < 1:
+        raise InputError(f"n_trials must be >= 1, got {n}")
+    work = Chem.Mol(mol)
+    work.RemoveAllConformers()
+    params = _params(work, seed, threads, force_trans_amides)
+    ids = rdDistGeom.EmbedMultipleConfs(work, numConfs=int(n), params=params)
+    if len(ids) == 0:
+        params.useRandomCoords = True
+        ids = rdDistGeom.EmbedMultipleConfs(work, numConfs=int(n), params=params)
+    return work, int(n) - len(ids)
+
+
+@dataclass
+class SamplingReport:
+    """What the sampling rounds did.
+
+    Attributes
+    ----------
+    rounds : int
+    trials : int
+        Trial structures asked for in all rounds.
+    embedding_failures : int
+        Trials for which ETKDG gave no structure.
+    minimization_unconverged : int
+        Relaxations that hit the iteration limit (kept, flagged).
+    in_window : int
+        Relaxed structures inside the energy window (N of the Good–Turing estimate).
+    unique : int
+        Distinct conformers inside the window.
+    found_once : int
+        Distinct conformers seen exactly once (n₁).
+    unseen_share : float
+        Good–Turing estimate n₁/N of the probability that the next trial finds a new
+        conformer; 1 - unseen_share is the completeness estimate.
+    new_per_round : list of int
+    saturated : bool
+        A round found nothing new (rather than stopping at max_rounds).
+    """
+
+    rounds: int = 0
+    trials: int = 0
+    embedding_failures: int = 0
+    minimization_unconverged: int = 0
+    in_window: int = 0
+    unique: int = 0
+    found_once: int = 0
+    unseen_share: float = 1.0
+    new_per_round: list = field(default_factory=list)
+    saturated: bool = False
+
+    @property
+    def completeness(self) -> float:
+        return 1.0 - self.unseen_share
+
+    def as_dict(self) -> dict:
+        d = {k: getattr(self, k) for k in self.__dataclass_fields__}
+        d["completeness"] = self.completeness
+        return d
+
+
+def sample_conformers(mol: Chem.Mol, *, n_trials: int | None = None, seed: int = 0,
+                      method: str = "mmff94s", energy_window: float = 15.0,
+                      prune: PruneSettings | None = None, max_rounds: int = 5,
+                      threads: int = 0, force_trans_amides: bool = True,
+                      max_iterations: int = 2000):
+    """Sample and force-field relax conformers until a round adds nothing new.
+
+    Parameters
+    ----------
+    mol : Chem.Mol
+        Checked molecule with explicit hydrogens (see :func:`confpop.load_molecule`).
+    n_trials : int, optional
+        Trial structures per round (default :func:`default_trials`).
+    seed : int
+        Round r uses ETKDG seed ``seed + 7919 r``; the same seed gives the same ensemble.
+    method : {"mmff94s", "mmff94", "uff"}
+        Force field for the relaxation.
+    energy_window : float, kcal/mol
+        Conformers more than this above the lowest are not kept.
+    prune : PruneSettings
+        Duplicate criteria (defaults: :class:`confpop.prune.PruneSettings`).
+    max_rounds : int
+        Upper bound on rounds when sampling does not saturate.
+
+    Returns
+    -------
+    mol : Chem.Mol
+        The distinct conformers (ids 0..k-1, lowest energy first).
+    energies : (k,) array, hartree
+        Force-field energies.
+    times_found : (k,) int array
+    chiral_conformer : (k,) bool array
+        Whether each conformer differs from its mirror image (achiral molecules only).
+    report : SamplingReport
+    """
+    prune = prune or PruneSettings()
+    n_trials = default_trials(mol) if n_trials is None else int(n_trials)
+    if n_trials < 1:
+        raise InputError(f"n_trials must be >= 1, got {n_trials}")
+    if energy_window <= 0:
+        raise InputError(f"energy_window must be > 0 kcal/mol, got {energy_window}")
+    report = SamplingReport()
+    pool_pos: list[np.ndarray] = []
+    pool_e: list[float] = []
+    kept_idx: list[int] = []
+    counts: dict[int, int] = {}
+    chiral: dict[int, bool] = {}
+    window_h = convert(energy_window, "kcal/mol", "hartree")
+    from .prune import is_achiral
+    achiral = is_achiral(mol)
+    for rnd in range(max_rounds):
+        t0 = time.perf_counter()
+        trial, failed = embed(mol, n_trials, seed=seed + 7919 * rnd, threads=threads,
+                              force_trans_amides=force_trans_amides)
+        report.rounds += 1
+        report.trials += n_trials
+        report.embedding_failures += failed
+        if trial.GetNumConformers() == 0:
+            continue
+        relaxed, results = minimize_conformers(trial, method=method, threads=threads,
+                                               max_iterations=max_iterations)
+        report.minimization_unconverged += sum(1 for ok, _ in results if not ok)
+        start = len(pool_pos)
+        for conf, (_, energy) in zip(relaxed.GetConformers(), results):
+            pool_pos.append(np.array(conf.GetPositions()))
+            pool_e.append(energy)
+        local = kept_idx + list(range(start, len(pool_pos)))
+        rep = find_duplicates(mol, [pool_pos[i] for i in local], [pool_e[i] for i in local],
+                              prune, achiral=achiral)
+        # carry the counts of earlier rounds over to whichever copy is kept now
+        absorbed: dict[int, int] = {}
+        for dup, ref in rep.duplicate_of.items():
+            absorbed.setdefault(ref, []).append(local[dup])
+        e_min = min(pool_e[local[u]] for u in rep.unique)
+        new_counts: dict[int, int] = {}
+        new_chiral: dict[int, bool] = {}
+        n_new = 0
+        for u in rep.unique:
+            pool_i = local[u]
+            if pool_e[pool_i] - e_min > window_h:
+                continue
+            members = [pool_i] + absorbed.get(u, [])
+            new_counts[pool_i] = sum(counts.get(m, 1) for m in members)
+            new_chiral[pool_i] = rep.chiral_conformer[u]
+            if not any(m in counts for m in members):
+                n_new += 1
+        kept_idx = sorted(new_counts, key=lambda i: pool_e[i])
+        counts, chiral = new_counts, new_chiral
+        report.new_per_round.append(n_new)
+        log.info("sampling round %d: %d trials, %d new conformers (%.1f s)", rnd + 1,
+                 n_trials, n_new, time.perf_counter() - t0)
+        if rnd > 0 and n_new == 0:
+            report.saturated = True
+            break
+    if not kept_idx:
+        raise InputError("no conformer could be embedded for this molecule "
+                         f"({report.embedding_failures} of {report.trials} trials failed); "
+                         "check the structure (strained or impossible stereo?)")
+    out = Chem.Mol(mol)
+    out.RemoveAllConformers()
+    for new_id, i in enumerate(kept_idx):
+        conf = Chem.Conformer(mol.GetNumAtoms())
+        for a, (x, y, z) in enumerate(pool_pos[i]):
+            conf.SetAtomPosition(a, (float(x), float(y), float(z)))
+        conf.SetId(new_id)
+        conf.Set3D(True)
+        out.AddConformer(conf, assignId=False)
+    times = np.array([counts[i] for i in kept_idx], dtype=int)
+    report.unique = len(kept_idx)
+    report.in_window = int(times.sum())
+    report.found_once = int(np.sum(times == 1))
+    report.unseen_share = report.found_once / report.in_window if report.in_window else 1.0
+    return (out, np.array([pool_e[i] for i in kept_idx]), times,
+            np.array([chiral[i] for i in kept_idx], dtype=bool), report)
