@@ -48,6 +48,10 @@ _PUBLIC: dict[str, str] = {
     "get_backend": "backends",
     "register_backend": "backends",
     "available_backends": "backends",
+    "harmonic_analysis": "vibrations",
+    "frequencies": "vibrations",
+    "rotational_constants": "vibrations",
+    "symmetry_number": "vibrations",
 }
 
 __all__ = sorted(_PUBLIC) + ["__version__"]
