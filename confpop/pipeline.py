@@ -1,0 +1,383 @@
+"""The multi-level conformer search.
+
+Stages (each records its counts in and out and its wall time in the provenance):
+
+1. **sample**: ETKDGv3 trial structures, relaxed with a force field (MMFF94s), in rounds
+   until a round adds no new conformer (:mod:`confpop.sampling`); duplicates removed and a
+   wide force-field window applied (``ff_window``, default 10 kcal/mol: force fields misrank
+   conformers by several kcal/mol, so a narrow window here would lose the true minimum).
+2. **screen** (tight-binding methods only): single points at the final method on the
+   force-field geometries; conformers more than ``screen_window`` above the lowest dropped
+   (default 6 kcal/mol: optimization lowers single-point gaps by 1-3 kcal/mol, rarely more).
+3. **optimize**: the survivors optimized at the final method (geomeTRIC, "tight"
+   convergence, final energies within 0.05 kcal/mol of a very tight optimization).
+4. **check**: bond graph and stereo of every optimized conformer compared with the input;
+   a conformer that changed is kept in the table with status "failed" and the reason.
+5. **prune**: duplicates removed again (optimization makes distinct force-field minima
+   fall into one), mirror images merged or kept, and the final ``energy_window`` applied
+   (default 5 kcal/mol: a conformer 5 kcal/mol up holds < 0.05 % at 298 K and < 0.1 % at
+   323 K).
+
+With a force field as ``method`` the search stops after stage 1 and applies the final
+window to the force-field energies.
+"""
+
+from __future__ import annotations
+
+import logging
+import os
+import time
+from dataclasses import asdict
+
+import numpy as np
+import pandas as pd
+from rdkit import Chem
+
+from .backends import backend_class, get_backend
+from .ensemble import Ensemble, step_record
+from .errors import CalculationFailed, InputError
+from .prune import PruneSettings, find_duplicates, integrity_problems, is_achiral
+from .sampling import sample_conformers
+from .units import EBOHR_DEBYE, convert
+
+__all__ = ["search", "FORCE_FIELDS"]
+
+log = logging.getLogger(__name__)
+
+FORCE_FIELDS = ("mmff94", "mmff94s", "uff")
+
+
+# ---------------------------------------------------------------- units of work (picklable)
+def _backend_for(item: dict):
+    mol = Chem.Mol(item["mol"])
+    return get_backend(item["method"], mol, charge=item["charge"],
+                       multiplicity=item["multiplicity"], solvent=item["solvent"],
+                       **item.get("options", {}))
+
+
+def single_point_unit(item: dict) -> dict:
+    """Energy (hartree) and dipole (debye) of one geometry: a picklable unit of work."""
+    backend = _backend_for(item)
+    res = backend.compute(np.asarray(item["positions"]), gradient=False)
+    dip = None if res.dipole is None else float(np.linalg.norm(res.dipole) * EBOHR_DEBYE)
+    return {"energy": res.energy, "dipole_debye": dip}
+
+
+def optimize_unit(item: dict) -> dict:
+    """Optimize one geometry at ``item["method"]``: a picklable unit of work."""
+    from .optimize import optimize_positions
+
+    backend = _backend_for(item)
+    res = optimize_positions(backend, np.asarray(item["positions"]),
+                             convergence=item.get("convergence", "tight"),
+                             max_steps=item.get("max_steps"))
+    final = backend.compute(res.positions, gradient=False)
+    dip = None if final.dipole is None else float(np.linalg.norm(final.dipole) * EBOHR_DEBYE)
+    return {"positions": np.array(res.positions), "energy": res.energy, "converged": res.converged,
+            "steps": res.steps, "gradient_calls": res.gradient_calls,
+            "gradient_norm": res.gradient_norm, "message": res.message, "dipole_debye": dip}
+
+
+def _run(function, items, *, executor, workers, progress, store, kind, description):
+    """Run units through the execution layer, with the store when one is given."""
+    from .execution import run_units
+
+    keys = None
+    if store is not None:
+        from .store import content_key
+        keys = []
+        for it in items:
+            mol = Chem.Mol(it["mol"])
+            numbers = [a.GetAtomicNum() for a in mol.GetAtoms()]
+            settings = {k: it[k] for k in sorted(it) if k not in ("mol", "positions", "method",
+                                                                  "solvent", "charge", "multiplicity")}
+            keys.append(content_key(numbers, it["positions"], charge=it["charge"],
+                                    multiplicity=it["multiplicity"], method=it["method"],
+                                    solvent=it["solvent"], settings=settings, kind=kind))
+    if executor is None and workers is None:
+        workers = 1 if len(items) < 8 else (os.cpu_count() or 1)
+    return run_units(function, items, executor=executor, workers=workers, progress=progress,
+                     description=description, store=store, keys=keys)
+
+
+def _open_store(store):
+    if store is None or hasattr(store, "get"):
+        return store
+    from .store import ResultStore
+    return ResultStore(store)
+
+
+# ---------------------------------------------------------------- the search
+def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int = 0, *,
+           n_trials: int | None = None, energy_window: float = 5.0, ff_window: float = 10.0,
+           screen_window: float = 6.0, rmsd: float = 0.125, energy_tolerance: float = 0.1,
+           merge_mirror_images: bool = True, max_rounds: int = 5, sampling_method: str = "mmff94s",
+           convergence: str = "tight", charge: int | None = None, multiplicity: int | None = None,
+           stereo: str = "refuse", keep_largest_fragment: bool = False,
+           force_trans_amides: bool = True, method_options: dict | None = None,
+           executor=None, workers: int | None = None, store=None,
+           progress: bool = False) -> Ensemble:
+    """Find the conformers of a molecule that matter and rank them.
+
+    Parameters
+    ----------
+    molecule : str, pathlib.Path or rdkit.Chem.Mol
+        SMILES, a MOL/SDF/XYZ file, or a molecule (see :func:`confpop.load_molecule`).
+    method : str
+        Final level: "gfn2" (default), "gfn1", "gfnff", "tblite-gfn2", or a force field
+        ("mmff94s", "mmff94", "uff") for a force-field-only search.
+    solvent : str, optional
+        Implicit solvent (ALPB) for tight-binding methods, e.g. "water", "chloroform".
+    seed : int
+        Sampling seed; the same seed gives the same ensemble.
+    n_trials : int, optional
+        Trial structures per sampling round (default from the flexibility).
+    energy_window, ff_window, screen_window : float, kcal/mol
+        Final window, force-field window and single-point screening window (see the module
+        notes for the defaults).
+    rmsd, energy_tolerance : float
+        Duplicate criteria (Å, kcal/mol); see :class:`confpop.prune.PruneSettings`.
+    merge_mirror_images : bool
+        One row with degeneracy 2 per mirror-image pair (True) or two rows (False).
+    convergence : str
+        Optimizer preset ("loose", "normal", "tight", "verytight").
+    executor : concurrent.futures.Executor, optional
+        Where the units of work run (e.g. ``dask.distributed.Client.get_executor()``);
+        default a local process pool (serial for a handful of units).
+    workers : int, optional
+        Local worker processes (1 = serial in this process).
+    store : str, pathlib.Path or ResultStore, optional
+        SQLite result store: finished calculations are reused, an interrupted run resumes.
+    progress : bool
+        Show progress bars on stderr.
+
+    Returns
+    -------
+    Ensemble
+        Ranked by the final method; failed conformers stay in the table with their reason.
+
+    Notes
+    -----
+    GFN2-xTB relative conformer energies typically err by 0.5-1.5 kcal/mol against
+    high-level references, so populations below ~10 % are uncertain by a factor of several.
+    """
+    from .molecule import load_molecule, stereo_signature
+
+    method = method.lower() if isinstance(method, str) else method
+    backend_class(method)  # unknown method or missing engine: fail before any work
+    if energy_window <= 0 or ff_window <= 0 or screen_window <= 0:
+        raise InputError(f"energy windows must be > 0 kcal/mol, got energy_window={energy_window}, "
+                         f"ff_window={ff_window}, screen_window={screen_window}")
+    t_start = time.perf_counter()
+    mol = load_molecule(molecule, charge=charge, multiplicity=multiplicity, stereo=stereo,
+                        keep_largest_fragment=keep_largest_fragment, method=method)
+    charge = mol.GetIntProp("charge") if mol.HasProp("charge") else Chem.GetFormalCharge(mol)
+    multiplicity = mol.GetIntProp("multiplicity") if mol.HasProp("multiplicity") else 1
+    if solvent is not None and "solvent" not in backend_class(method).capabilities:
+        raise InputError(f"method {method!r} has no implicit solvent model; got solvent={solvent!r}")
+    # check the method accepts this molecule (elements, charge, solvent name) before sampling
+    get_backend(method, mol, charge=charge, multiplicity=multiplicity, solvent=solvent,
+                **(method_options or {}))
+    prune_settings = PruneSettings(rmsd=rmsd, energy_tolerance=energy_tolerance,
+                                   merge_mirror_images=merge_mirror_images)
+    reference_stereo = stereo_signature(mol, -1) if mol.GetNumConformers() else None
+    achiral = is_achiral(mol)
+    store = _open_store(store)
+    provenance = [{"step": "input", "smiles": Chem.MolToSmiles(Chem.RemoveHs(mol)),
+                   "charge": charge, "multiplicity": multiplicity, "method": method,
+                   "solvent": solvent, "seed": seed}]
+
+    # 1. sample + force-field relax + prune
+    t0 = time.perf_counter()
+    ff = sampling_method if method not in FORCE_FIELDS else method
+    sampled, ff_e, times_found, chiral, srep = sample_conformers(
+        mol, n_trials=n_trials, seed=seed, method=ff, energy_window=ff_window,
+        prune=prune_settings, max_rounds=max_rounds, force_trans_amides=force_trans_amides)
+    provenance.append(step_record("sample", started=t0, n_in=srep.trials, n_out=srep.unique,
+                                  method=f"ETKDGv3 + {ff}", window_kcal=ff_window,
+                                  rmsd=rmsd, **srep.as_dict()))
+    table = pd.DataFrame({"status": "ok", "reason": "", "degeneracy": 1,
+                          f"energy_{ff}": ff_e, "times_found": times_found,
+                          "chiral_conformer": chiral},
+                         index=pd.Index(range(sampled.GetNumConformers()), name="conformer"))
+    ens = Ensemble(sampled, table, level=ff, charge=charge, multiplicity=multiplicity,
+                   solvent=None, provenance=provenance, name=provenance[0]["smiles"])
+    positions = {cid: ens.positions(cid) for cid in ens.ids()}
+
+    if method in FORCE_FIELDS:
+        return _finish(ens, positions, method, energy_window, prune_settings, achiral,
+                       sampling=srep, t_start=t_start)
+
+    base_item = {"mol": Chem.Mol(mol).ToBinary(), "method": method, "charge": charge,
+                 "multiplicity": multiplicity, "solvent": solvent,
+                 "options": dict(method_options or {})}
+
+    # 2. screen with single points
+    t0 = time.perf_counter()
+    ids = ens.ids()
+    outcomes = _run(single_point_unit, [{**base_item, "positions": positions[c]} for c in ids],
+                    executor=executor, workers=workers, progress=progress, store=store,
+                    kind="singlepoint", description="single points")
+    table = ens.raw_table
+    sp_col = f"energy_{method}_sp"
+    table[sp_col] = np.nan
+    for cid, out in zip(ids, outcomes):
+        if out.ok:
+            table.loc[cid, sp_col] = out.value["energy"]
+        else:
+            table.loc[cid, ["status", "reason"]] = ["failed", f"single point: {out.error_type}: {out.error_message}"]
+    ok = table["status"] == "ok"
+    if not ok.any():
+        raise CalculationFailed("every single point failed; first reason: " + table["reason"].iloc[0])
+    e_min = table.loc[ok, sp_col].min()
+    drop = ok & (table[sp_col] - e_min > convert(screen_window, "kcal/mol", "hartree"))
+    keep_ids = [int(c) for c in table.index[~drop]]
+    ens = Ensemble(sampled, table, level=ff, charge=charge, multiplicity=multiplicity,
+                   solvent=solvent, provenance=ens.provenance, name=ens.name)
+    ens = ens.select(keep_ids, step=step_record(
+        "screen", started=t0, n_in=len(ids), n_out=int(ok.sum() - drop.sum()), method=method,
+        solvent=solvent, window_kcal=screen_window, failed=int((~ok).sum())))
+
+    # 3. optimize the survivors
+    t0 = time.perf_counter()
+    ids = ens.ids()
+    outcomes = _run(optimize_unit, [{**base_item, "positions": positions[c],
+                                     "convergence": convergence} for c in ids],
+                    executor=executor, workers=workers, progress=progress, store=store,
+                    kind="optimize", description="optimizations")
+    table = ens.raw_table
+    opt_mol = ens.mol
+    for col, default in ((f"energy_{method}", np.nan), ("converged", False), ("opt_steps", 0),
+                         ("gradient_calls", 0), ("dipole_debye", np.nan)):
+        table[col] = default
+    for cid, out in zip(ids, outcomes):
+        if not out.ok:
+            table.loc[cid, ["status", "reason"]] = ["failed", f"optimization: {out.error_type}: {out.error_message}"]
+            continue
+        v = out.value
+        conf = opt_mol.GetConformer(cid)
+        for a, (x, y, z) in enumerate(v["positions"]):
+            conf.SetAtomPosition(a, (float(x), float(y), float(z)))
+        positions[cid] = np.array(v["positions"])
+        table.loc[cid, [f"energy_{method}", "converged", "opt_steps", "gradient_calls"]] = [
+            v["energy"], bool(v["converged"]), int(v["steps"]), int(v["gradient_calls"])]
+        if v["dipole_debye"] is not None:
+            table.loc[cid, "dipole_debye"] = v["dipole_debye"]
+        if not v["converged"]:
+            table.loc[cid, "reason"] = f"not converged: {v['message']}"
+    n_opt_ok = int((table["status"] == "ok").sum())
+    step = step_record("optimize", started=t0, n_in=len(ids), n_out=n_opt_ok, method=method,
+                       solvent=solvent, convergence=convergence,
+                       gradient_calls_median=float(np.median(table["gradient_calls"])) if len(table) else 0.0,
+                       not_converged=int((~table["converged"].astype(bool) & (table["status"] == "ok")).sum()))
+    ens = Ensemble(opt_mol, table, level=method, charge=charge, multiplicity=multiplicity,
+                   solvent=solvent, provenance=ens.provenance + [step], name=ens.name)
+
+    # 4. integrity checks
+    t0 = time.perf_counter()
+    table = ens.raw_table
+    n_bad = 0
+    for cid in ens.ids():
+        problems = integrity_problems(opt_mol, cid, reference_stereo or stereo_signature(sampled, cid))
+        if problems:
+            n_bad += 1
+            table.loc[cid, ["status", "reason"]] = ["failed", "integrity: " + "; ".join(problems)]
+    ens = ens._replace(table=table, step=step_record("check", started=t0, n_in=len(ens),
+                                                      n_out=len(ens) - n_bad, changed=n_bad))
+    return _finish(ens, positions, method, energy_window, prune_settings, achiral,
+                   sampling=srep, t_start=t_start)
+
+
+def _finish(ens: Ensemble, positions: dict, method: str, window: float,
+            settings: PruneSettings, achiral: bool, *, sampling, t_start: float) -> Ensemble:
+    """Final duplicate removal, mirror images, energy window; failures kept as rows."""
+    t0 = time.perf_counter()
+    ids = ens.ids()
+    if not ids:
+        raise CalculationFailed("no conformer survived; reasons: " +
+                                "; ".join(sorted(set(ens.raw_table["reason"]))))
+    table = ens.raw_table
+    energies = table.loc[ids, f"energy_{method}"].to_numpy(dtype=float)
+    rep = find_duplicates(ens.mol, [positions[c] for c in ids], energies, settings, achiral=achiral)
+    e_min = energies.min()
+    keep, n_window = [], 0
+    for u in rep.unique:
+        if energies[u] - e_min > convert(window, "kcal/mol", "hartree"):
+            n_window += 1
+            continue
+        keep.append(ids[u])
+    table["times_found"] = table.get("times_found", pd.Series(1, index=table.index))
+    for dup, ref in rep.duplicate_of.items():
+        table.loc[ids[ref], "times_found"] += table.loc[ids[dup], "times_found"]
+    chiral = {ids[u]: rep.chiral_conformer[u] for u in rep.unique}
+    table["chiral_conformer"] = pd.Series(chiral).reindex(table.index).fillna(False).astype(bool)
+    failed = [int(c) for c in table.index if table.loc[c, "status"] != "ok"]
+    mol = ens.mol
+    mirror_rows = []
+    if achiral:
+        for cid in keep:
+            if chiral.get(cid):
+                if settings.merge_mirror_images:
+                    table.loc[cid, "degeneracy"] = 2
+                else:
+                    mirror_rows.append(cid)
+    ens = Ensemble(mol, table, level=method, charge=ens.charge, multiplicity=ens.multiplicity,
+                   solvent=ens.solvent, provenance=ens.provenance, name=ens.name)
+    ens = ens.select(sorted(keep, key=lambda c: table.loc[c, f"energy_{method}"]) + failed)
+    if mirror_rows:
+        ens = _add_mirror_rows(ens, mirror_rows)
+    ens = _renumber(ens)
+    ens.provenance.append(step_record(
+        "prune", started=t0, n_in=len(ids), n_out=len(keep), method=method, window_kcal=window,
+        rmsd=settings.rmsd, energy_tolerance_kcal=settings.energy_tolerance,
+        duplicates=len(rep.duplicate_of), mirror_pairs_merged=len(rep.mirror_of),
+        outside_window=n_window, merge_mirror_images=settings.merge_mirror_images,
+        failed_kept_as_rows=len(failed)))
+    ens.provenance.append({"step": "summary", "seconds": round(time.perf_counter() - t_start, 3),
+                           "conformers": len(ens), "completeness": round(sampling.completeness, 4),
+                           "unseen_share": round(sampling.unseen_share, 4)})
+    return ens
+
+
+def _add_mirror_rows(ens: Ensemble, conf_ids: list[int]) -> Ensemble:
+    """Add the mirror image of each listed conformer as a separate row (achiral molecules)."""
+    mol = ens.mol
+    table = ens.raw_table
+    table["mirror_of"] = -1
+    next_id = max(ens.ids(active=False)) + 1
+    for cid in conf_ids:
+        conf = Chem.Conformer(mol.GetConformer(cid))
+        for a in range(mol.GetNumAtoms()):
+            p = conf.GetAtomPosition(a)
+            conf.SetAtomPosition(a, (-p.x, p.y, p.z))
+        conf.SetId(next_id)
+        mol.AddConformer(conf, assignId=False)
+        row = table.loc[cid].copy()
+        row["mirror_of"] = cid
+        table.loc[next_id] = row
+        next_id += 1
+    return Ensemble(mol, table, level=ens.level, charge=ens.charge, multiplicity=ens.multiplicity,
+                    solvent=ens.solvent, provenance=ens.provenance, name=ens.name)
+
+
+def _renumber(ens: Ensemble) -> Ensemble:
+    """Conformer ids 0..n-1: active ones by energy, failed ones after."""
+    table = ens.raw_table
+    active = [c for c in ens.ids()]
+    active.sort(key=lambda c: (table.loc[c, f"energy_{ens.level}"], c))
+    order = active + [c for c in ens.ids(active=False) if c not in active]
+    mol = ens.mol
+    new = Chem.Mol(mol)
+    new.RemoveAllConformers()
+    mapping = {}
+    for new_id, old in enumerate(order):
+        conf = Chem.Conformer(mol.GetConformer(old))
+        conf.SetId(new_id)
+        new.AddConformer(conf, assignId=False)
+        mapping[old] = new_id
+    table = table.loc[order]
+    if "mirror_of" in table.columns:
+        table["mirror_of"] = [mapping.get(int(m), -1) if m >= 0 else -1 for m in table["mirror_of"]]
+    table.index = pd.Index(range(len(order)), name="conformer")
+    return Ensemble(new, table, level=ens.level, charge=ens.charge, multiplicity=ens.multiplicity,
+                    solvent=ens.solvent, provenance=ens.provenance, name=ens.name)
