@@ -1,0 +1,78 @@
+"""Sampling and force-field ranking against experiment and handbook values."""
+
+import numpy as np
+import pytest
+from rdkit import Chem
+from rdkit.Chem import rdMolTransforms as T
+
+from confpop.errors import InputError
+from confpop.sampling import default_trials, flexibility, sample_conformers
+from confpop.units import convert
+
+
+def _mol(smiles):
+    return Chem.AddHs(Chem.MolFromSmiles(smiles))
+
+
+@pytest.fixture(scope="module")
+def butane():
+    return sample_conformers(_mol("CCCC"), seed=1)
+
+
+def test_butane_anti_and_gauche_mmff94s(butane):
+    mol, e, times, chiral, rep = butane
+    assert mol.GetNumConformers() == 2
+    dihedrals = [abs(T.GetDihedralDeg(c, 0, 1, 2, 3)) for c in mol.GetConformers()]
+    assert dihedrals[0] == pytest.approx(180.0, abs=5.0)   # anti lowest
+    assert dihedrals[1] == pytest.approx(65.0, abs=10.0)   # gauche
+    assert list(chiral) == [False, True]                   # gauche has a mirror image
+    gap = convert(e[1] - e[0], "hartree", "kcal/mol")
+    # experiment: gauche - anti 0.67 +- 0.10 kcal/mol (Herrebout et al., J. Phys. Chem. 1995,
+    # 99, 578); MMFF94s errs by a few tenths here, tolerance = the force field's error
+    assert gap == pytest.approx(0.67, abs=0.5)
+    assert rep.saturated and rep.completeness == pytest.approx(1.0)
+
+
+def test_methylcyclohexane_equatorial_chair_and_twist_boat():
+    mol, e, times, chiral, rep = sample_conformers(_mol("CC1CCCCC1"), seed=2)
+    rel = convert(e - e[0], "hartree", "kcal/mol")
+    # ring C-C-C-C dihedrals ~ +-55 in chairs; twist-boats have one near 30 or smaller
+    def is_chair(conf):
+        ring = [1, 2, 3, 4, 5, 6]
+        d = [abs(T.GetDihedralDeg(conf, ring[i], ring[(i + 1) % 6], ring[(i + 2) % 6],
+                                  ring[(i + 3) % 6])) for i in range(6)]
+        return min(d) > 45
+    def methyl_axial(conf):
+        # axial methyl: dihedral CH3-C1-C2-C3 near 75, equatorial near 180
+        return abs(T.GetDihedralDeg(conf, 0, 1, 2, 3)) < 120
+    confs = list(mol.GetConformers())
+    assert is_chair(confs[0]) and not methyl_axial(confs[0])   # global minimum: eq chair
+    axial = [k for k, c in enumerate(confs) if is_chair(c) and methyl_axial(c)]
+    assert len(axial) == 1
+    # A-value of CH3 1.74 kcal/mol (Eliel, Wilen & Mander 1994, Table 11.7) [from memory];
+    # a force field within 0.8
+    assert rel[axial[0]] == pytest.approx(1.74, abs=0.8)
+    boats = [rel[k] for k, c in enumerate(confs) if not is_chair(c)]
+    # twist-boat ~5.5 kcal/mol above the chair (Anet & Bourn, JACS 1967, 89, 760) [from memory]
+    assert min(boats) == pytest.approx(5.5, abs=1.5)
+
+
+def test_same_seed_same_ensemble(butane):
+    again = sample_conformers(_mol("CCCC"), seed=1)
+    np.testing.assert_allclose(again[1], butane[1], rtol=0, atol=1e-12)
+    np.testing.assert_allclose(again[0].GetConformer(1).GetPositions(),
+                               butane[0].GetConformer(1).GetPositions(), atol=1e-10)
+
+
+def test_trial_counts_scale_with_flexibility():
+    assert default_trials(_mol("CCCC")) < default_trials(_mol("CCCCCCCCCCCC"))
+    macro = _mol("C1CCCCCCCCCCC1")
+    assert flexibility(macro)["macrocycle"]
+    assert default_trials(macro) >= 2 * 20
+
+
+def test_bad_settings_are_named():
+    with pytest.raises(InputError, match="n_trials must be >= 1, got 0"):
+        sample_conformers(_mol("CCCC"), n_trials=0)
+    with pytest.raises(InputError, match="energy_window must be > 0"):
+        sample_conformers(_mol("CCCC"), energy_window=-1)
