@@ -1,0 +1,205 @@
+"""The ``confpop`` command.
+
+Each subcommand is one entry of ``_COMMANDS``: ``(name, add_arguments_fn, run_fn, help)``,
+with its two functions ``_add_<name>(parser)`` and ``_run_<name>(args) -> int`` kept together
+below. ``main`` turns every expected error (ConfpopError, ValueError, OSError) into one line
+``confpop: error: <message>`` on stderr and exit status 2, without a traceback.
+
+Examples
+--------
+>>> main(["rates", "20", "--temperature", "298.15", "--json"])  # doctest: +ELLIPSIS
+{...}
+0
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import sys
+
+from . import __version__
+from .errors import ConfpopError, InputError
+
+__all__ = ["main"]
+
+_PROG = "confpop"
+
+
+class _Parser(argparse.ArgumentParser):
+    """An argument parser whose usage errors become one-line InputErrors (handled in main)."""
+
+    def error(self, message):  # noqa: D401 - argparse hook
+        raise InputError(message)
+
+
+def _finite_float(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
+    if not math.isfinite(value):
+        raise argparse.ArgumentTypeError(f"expected a finite number, got {text!r}")
+    return value
+
+
+def _json_number(x: float):
+    """JSON has no inf/NaN: write them as null."""
+    x = float(x)
+    return x if math.isfinite(x) else None
+
+
+# --------------------------------------------------------------------------- rates
+
+_RATES_CAUTION = (
+    "Caution: computed barriers carry errors of about 1-2 kcal/mol, so these rates are "
+    "uncertain by a factor of 5-30 at room temperature; confirm with experiment."
+)
+
+
+def _add_rates(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument(
+        "barriers", metavar="BARRIER", nargs="+", type=_finite_float,
+        help="free energy of activation ΔG‡ of one direction (A -> B), in --unit",
+    )
+    parser.add_argument(
+        "--temperature", "-T", metavar="T", nargs="+", type=_finite_float, default=[298.15],
+        help="temperature(s) in K (default 298.15)",
+    )
+    parser.add_argument(
+        "--unit", default="kcal/mol",
+        help='energy unit of the barriers: "kcal/mol" (default), "kJ/mol", "hartree", "eV", "cm-1"',
+    )
+    parser.add_argument(
+        "--delta-nu", metavar="HZ", type=_finite_float, default=100.0,
+        help="NMR signal separation in Hz used for the exchange regime (default 100 Hz)",
+    )
+    parser.add_argument(
+        "--transmission", metavar="KAPPA", type=_finite_float, default=1.0,
+        help="transmission coefficient κ of the Eyring equation (default 1)",
+    )
+    parser.add_argument("--json", action="store_true", help="print JSON to stdout instead of a table")
+
+
+def _run_rates(args: argparse.Namespace) -> int:
+    import numpy as np
+
+    from . import kinetics
+    from .units import normalize_unit
+
+    unit = normalize_unit(args.unit)
+    barriers = np.asarray(args.barriers, dtype=float)
+    temps = np.asarray(args.temperature, dtype=float)
+    for option, values, rule in (("BARRIER", barriers, "must be >= 0"),
+                                 ("--temperature", temps, "must be > 0 K"),
+                                 ("--delta-nu", [args.delta_nu], "must be > 0 Hz"),
+                                 ("--transmission", [args.transmission], "must be > 0")):
+        bad = [v for v in values if (v < 0.0 if option == "BARRIER" else v <= 0.0)]
+        if bad:
+            raise InputError(f"{option} {rule}, got {bad[0]:g}")
+    b, t = np.meshgrid(barriers, temps, indexing="ij")  # rows: barriers, columns: temperatures
+    k = np.atleast_1d(kinetics.eyring_rate(b, t, unit, args.transmission))
+    t_half = np.atleast_1d(kinetics.half_life(b, t, unit, args.transmission))
+    tau = np.atleast_1d(kinetics.mean_residence_time(b, t, unit, args.transmission))
+    regime = np.atleast_1d(kinetics.exchange_regime(k, args.delta_nu))
+    # the classes are defined by the half-life at 37 °C, whatever temperatures are asked for
+    classes = np.atleast_1d(kinetics.atropisomer_class(barriers, 310.15, unit,
+                                                       transmission=args.transmission))
+
+    rows = []
+    for i, barrier in enumerate(barriers):
+        for j, temp in enumerate(temps):
+            rows.append({
+                "barrier": float(barrier),
+                "temperature_K": float(temp),
+                "rate_per_s": _json_number(k[i, j]),
+                "half_life_s": _json_number(t_half[i, j]),
+                "half_life": kinetics.format_duration(t_half[i, j]),
+                "mean_residence_time_s": _json_number(tau[i, j]),
+                "mean_residence_time": kinetics.format_duration(tau[i, j]),
+                "atropisomer_class_37C": int(classes[i]),
+                "nmr_exchange": str(regime[i, j]),
+            })
+
+    if args.json:
+        payload = {
+            "unit": unit,
+            "transmission": args.transmission,
+            "delta_nu_hz": args.delta_nu,
+            "process": "first order, one direction (A -> B); t1/2 = ln2/k, residence time = 1/k",
+            "atropisomer_class": "LaPlante class from the enantiomerization half-life at 310.15 K",
+            "caution": _RATES_CAUTION,
+            "results": rows,
+        }
+        print(json.dumps(payload, indent=2, ensure_ascii=False))
+        return 0
+
+    header = (f"{'ΔG‡ (' + unit + ')':>16}  {'T/K':>7}  {'k/s^-1':>10}  {'t1/2':>10}  "
+              f"{'residence':>10}  {'class(37 °C)':>12}  NMR exchange")
+    lines = [
+        "Eyring rates, first order, one direction (A -> B); "
+        f"κ = {args.transmission:g}; NMR regime for Δν = {args.delta_nu:g} Hz",
+        header,
+    ]
+    for row in rows:
+        k_text = "0" if row["rate_per_s"] in (None, 0.0) else f"{row['rate_per_s']:.3e}"
+        lines.append(
+            f"{row['barrier']:>16.2f}  {row['temperature_K']:>7.2f}  {k_text:>10}  "
+            f"{row['half_life']:>10}  {row['mean_residence_time']:>10}  "
+            f"{row['atropisomer_class_37C']:>12d}  {row['nmr_exchange']}"
+        )
+    lines.append(_RATES_CAUTION)
+    print("\n".join(lines))
+    return 0
+
+
+# --------------------------------------------------------------------------- registry
+
+_COMMANDS: list[tuple] = [
+    ("rates", _add_rates, _run_rates,
+     "rates, half-lives, atropisomer classes and NMR exchange regimes from barriers"),
+]
+
+
+def _build_parser() -> argparse.ArgumentParser:
+    parser = _Parser(
+        prog=_PROG,
+        description="Conformer ensembles: populations, interconversion rates and NMR observables.",
+    )
+    parser.add_argument("--version", action="version", version=f"{_PROG} {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+    for name, add_arguments, run, help_text in _COMMANDS:
+        command_parser = sub.add_parser(name, help=help_text, description=help_text)
+        add_arguments(command_parser)
+        command_parser.set_defaults(_run=run)
+    return parser
+
+
+def main(argv=None) -> int:
+    """Run the ``confpop`` command line; return the exit status.
+
+    Parameters
+    ----------
+    argv : list of str, optional
+        Arguments without the program name (default: ``sys.argv[1:]``).
+
+    Returns
+    -------
+    int
+        0 on success, 2 on an input error (reported as one line on stderr).
+    """
+    parser = _build_parser()
+    try:
+        try:
+            args = parser.parse_args(argv)
+        except SystemExit as stop:  # --help and --version
+            return int(stop.code or 0)
+        if getattr(args, "_run", None) is None:
+            names = ", ".join(name for name, *_ in _COMMANDS)
+            raise InputError(f"a command is required: one of {names} (see confpop --help)")
+        return int(args._run(args) or 0)
+    except (ConfpopError, ValueError, OSError) as err:
+        message = " ".join(str(err).split()) or type(err).__name__
+        print(f"{_PROG}: error: {message}", file=sys.stderr)
+        return 2
