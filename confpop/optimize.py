@@ -1,0 +1,471 @@
+"""Geometry optimization on any backend that provides gradients.
+
+The default engine is geomeTRIC (translation-rotation internal coordinates, TRIC), driven
+through its Python classes with a small engine adapter around a confpop backend: nothing is
+printed, geomeTRIC's log messages are switched off while it runs, and its scratch files go
+to a temporary directory that is removed afterwards. The alternative ``engine="lbfgs"`` is
+scipy's L-BFGS-B in Cartesian coordinates (a baseline; no constraints).
+
+Convergence presets (geomeTRIC's five criteria must all hold; gradients per atom in
+hartree/bohr, displacements in angstrom, energy change in hartree):
+
+=========== ========= ========= ========= ========= =========
+preset      energy    grms      gmax      drms      dmax
+=========== ========= ========= ========= ========= =========
+loose       1e-5      1.7e-3    2.5e-3    6.7e-3    1e-2
+normal      1e-6      3e-4      4.5e-4    1.2e-3    1.8e-3
+tight       1e-6      1e-4      1.5e-4    4e-4      6e-4
+verytight   1e-7      1e-5      1.5e-5    4e-5      6e-5
+=========== ========= ========= ========= ========= =========
+
+"tight" (the default) keeps final GFN2 energies within 0.05 kcal/mol of "verytight" on the
+molecules measured in ``benchmarks/bench_optimizer.py``.
+
+Examples
+--------
+>>> sorted(CONVERGENCE_PRESETS)
+['loose', 'normal', 'tight', 'verytight']
+"""
+
+from __future__ import annotations
+
+import contextlib
+import logging
+import math
+import tempfile
+import warnings
+from collections.abc import Mapping
+from dataclasses import dataclass
+
+import numpy as np
+
+from .backends.base import Backend
+from .errors import CalculationFailed, ConfpopError, InputError
+from .units import ANGSTROM_BOHR, BOHR_ANGSTROM
+
+__all__ = ["OptimizationResult", "optimize_positions", "optimize_structure",
+           "CONVERGENCE_PRESETS"]
+
+_log = logging.getLogger(__name__)
+
+#: preset -> geomeTRIC criteria (energy hartree; grms/gmax hartree/bohr; drms/dmax angstrom)
+CONVERGENCE_PRESETS: dict[str, dict[str, float]] = {
+    "loose": {"energy": 1e-5, "grms": 1.7e-3, "gmax": 2.5e-3, "drms": 6.7e-3, "dmax": 1e-2},
+    "normal": {"energy": 1e-6, "grms": 3e-4, "gmax": 4.5e-4, "drms": 1.2e-3, "dmax": 1.8e-3},
+    "tight": {"energy": 1e-6, "grms": 1e-4, "gmax": 1.5e-4, "drms": 4e-4, "dmax": 6e-4},
+    "verytight": {"energy": 1e-7, "grms": 1e-5, "gmax": 1.5e-5, "drms": 4e-5, "dmax": 6e-5},
+}
+_CRITERIA = ("energy", "grms", "gmax", "drms", "dmax")
+_DEFAULT_MAX_STEPS = 300
+_ENGINES = ("geometric", "lbfgs")
+
+
+@dataclass(frozen=True)
+class OptimizationResult:
+    """Outcome of one geometry optimization.
+
+    Attributes
+    ----------
+    positions : (n_atoms, 3) array, angstrom
+        Final geometry (read-only).
+    energy : float, hartree
+        Energy at ``positions``.
+    converged : bool
+        Whether every convergence criterion (and every constraint) was met.
+    steps : int
+        Optimization cycles taken.
+    gradient_calls : int
+        Energy+gradient evaluations by the backend.
+    gradient_norm : float, hartree/angstrom
+        Root mean square over all 3N components of the final gradient (not projected:
+        constrained or frozen coordinates keep their forces).
+    max_gradient : float, hartree/angstrom
+        Largest absolute component of the final gradient.
+    message : str
+        Why the optimizer stopped.
+    """
+
+    positions: np.ndarray
+    energy: float
+    converged: bool
+    steps: int
+    gradient_calls: int
+    gradient_norm: float
+    max_gradient: float
+    message: str
+
+    def __post_init__(self):
+        pos = np.array(self.positions, dtype=float)
+        pos.setflags(write=False)
+        object.__setattr__(self, "positions", pos)
+        object.__setattr__(self, "energy", float(self.energy))
+
+
+def _criteria(convergence) -> tuple[str, dict[str, float]]:
+    if isinstance(convergence, str):
+        key = convergence.strip().lower()
+        if key in CONVERGENCE_PRESETS:
+            return key, dict(CONVERGENCE_PRESETS[key])
+    elif isinstance(convergence, Mapping):
+        unknown = sorted(set(convergence) - set(_CRITERIA))
+        if unknown:
+            raise InputError(f"convergence criteria must use the keys {list(_CRITERIA)}, "
+                             f"got {unknown}")
+        crit = dict(CONVERGENCE_PRESETS["tight"])
+        for key, value in convergence.items():
+            if not (isinstance(value, (int, float)) and math.isfinite(value) and value > 0):
+                raise InputError(f"convergence criterion {key!r} must be a number > 0, "
+                                 f"got {value!r}")
+            crit[key] = float(value)
+        return "custom", crit
+    raise InputError(f"convergence must be one of {list(CONVERGENCE_PRESETS)} or a mapping of "
+                     f"{list(_CRITERIA)}, got {convergence!r}")
+
+
+def _check_index(value, n_atoms: int, what: str) -> int:
+    if isinstance(value, (bool, np.bool_)) or not isinstance(value, (int, np.integer)):
+        raise InputError(f"{what} must be 0-based integer atom indices, got {value!r}")
+    if not 0 <= value < n_atoms:
+        raise InputError(f"{what}: atom index {value} is out of range for {n_atoms} atoms")
+    return int(value)
+
+
+def _check_constraints(dihedral_constraints, frozen_atoms, n_atoms: int):
+    dihedrals = []
+    for item in dihedral_constraints or ():
+        try:
+            atoms, target = item
+            atoms = tuple(atoms)
+        except (TypeError, ValueError):
+            raise InputError("dihedral_constraints must be a sequence of ((i, j, k, l), "
+                             f"target_degrees_or_None), got item {item!r}") from None
+        if len(atoms) != 4:
+            raise InputError(f"a dihedral constraint needs 4 atoms, got {atoms!r}")
+        atoms = tuple(_check_index(a, n_atoms, "dihedral_constraints") for a in atoms)
+        if len(set(atoms)) != 4:
+            raise InputError(f"a dihedral constraint needs 4 different atoms, got {atoms!r}")
+        if target is not None:
+            if isinstance(target, bool) or not isinstance(target, (int, float, np.floating,
+                                                                   np.integer)) \
+                    or not math.isfinite(target):
+                raise InputError(f"dihedral target must be a finite angle in degrees or None, "
+                                 f"got {target!r}")
+            target = float(target)
+        dihedrals.append((atoms, target))
+    frozen = sorted({_check_index(a, n_atoms, "frozen_atoms") for a in (frozen_atoms or ())})
+    return dihedrals, frozen
+
+
+def _dihedral_degrees(positions: np.ndarray, atoms) -> float:
+    p0, p1, p2, p3 = (positions[a] for a in atoms)
+    b0, b1, b2 = p0 - p1, p2 - p1, p3 - p2
+    b1 = b1 / np.linalg.norm(b1)
+    v = b0 - np.dot(b0, b1) * b1
+    w = b2 - np.dot(b2, b1) * b1
+    return float(np.degrees(np.arctan2(np.dot(np.cross(b1, v), w), np.dot(v, w))))
+
+
+@contextlib.contextmanager
+def _geometric_silenced():
+    """Switch geomeTRIC's logger off and route Python warnings to our debug log."""
+    logger = logging.getLogger("geometric.nifty")
+    level, propagate = logger.level, logger.propagate
+    logger.setLevel(logging.CRITICAL + 1)
+    logger.propagate = False
+    try:
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            yield
+        for w in caught:
+            _log.debug("geomeTRIC warning: %s", w.message)
+    finally:
+        logger.setLevel(level)
+        logger.propagate = propagate
+
+
+def _summary(positions, result, steps, calls, converged, message) -> OptimizationResult:
+    grad = np.asarray(result.gradient, dtype=float)
+    return OptimizationResult(positions=positions, energy=result.energy, converged=converged,
+                              steps=int(steps), gradient_calls=int(calls),
+                              gradient_norm=float(np.sqrt(np.mean(grad ** 2))),
+                              max_gradient=float(np.max(np.abs(grad))), message=message)
+
+
+def optimize_positions(backend: Backend, positions, *, convergence="tight", max_steps=None,
+                       dihedral_constraints=None, frozen_atoms=None,
+                       engine: str = "geometric") -> OptimizationResult:
+    """Minimize the energy of ``backend``'s molecule starting from ``positions``.
+
+    Parameters
+    ----------
+    backend : confpop.backends.Backend
+        Bound to the molecule; must provide gradients.
+    positions : (n_atoms, 3) array, angstrom
+        Starting geometry.
+    convergence : {"loose", "normal", "tight", "verytight"} or mapping
+        A preset (see the module docstring) or a mapping with any of the keys
+        ``energy, grms, gmax, drms, dmax`` (geomeTRIC units; missing keys from "tight").
+    max_steps : int, optional
+        Optimization cycle limit (default 300). Reaching it is reported, not raised.
+    dihedral_constraints : sequence of ((i, j, k, l), target_degrees or None), optional
+        0-based atoms. ``None`` holds the dihedral at its starting value; a number drives it
+        to that value (degrees) and holds it there.
+    frozen_atoms : sequence of int, optional
+        0-based atoms whose Cartesian positions stay fixed.
+    engine : {"geometric", "lbfgs"}
+        geomeTRIC with TRIC internal coordinates (default), or scipy's L-BFGS-B in
+        Cartesian coordinates (no constraints; stops when the largest gradient component is
+        below ``gmax`` or the relative energy change falls below ``energy/|E|``).
+
+    Returns
+    -------
+    OptimizationResult
+
+    Raises
+    ------
+    InputError
+        Bad positions, options or constraints; constraints with ``engine="lbfgs"``; a
+        backend without gradients.
+    CalculationFailed
+        The backend failed (e.g. SCF not converged), or geomeTRIC stopped on a structural
+        error (e.g. a constrained dihedral became linear).
+
+    Notes
+    -----
+    Non-convergence is never raised: ``converged`` is False and ``message`` says why. The
+    function keeps no state between calls; backend and inputs pickle, so it runs in worker
+    processes.
+
+    References
+    ----------
+    L.-P. Wang, C. Song, J. Chem. Phys. 2016, 144, 214108, doi:10.1063/1.4952956 (TRIC).
+    R. H. Byrd, P. Lu, J. Nocedal, C. Zhu, SIAM J. Sci. Comput. 1995, 16, 1190,
+    doi:10.1137/0916069 (L-BFGS-B).
+    """
+    if not isinstance(backend, Backend):
+        raise InputError(f"backend must be a confpop Backend, got {type(backend).__name__}")
+    if "gradient" not in backend.capabilities:
+        raise InputError(f"backend {backend.name!r} provides no gradient; it cannot optimize")
+    n_atoms = len(backend.numbers)
+    pos = np.asarray(positions, dtype=float)
+    if pos.shape != (n_atoms, 3):
+        raise InputError(f"positions must have shape ({n_atoms}, 3), got {pos.shape}")
+    if not np.all(np.isfinite(pos)):
+        raise InputError("positions contain NaN or infinite values")
+    preset, crit = _criteria(convergence)
+    if max_steps is None:
+        max_steps = _DEFAULT_MAX_STEPS
+    if isinstance(max_steps, bool) or not isinstance(max_steps, (int, np.integer)) \
+            or max_steps < 1:
+        raise InputError(f"max_steps must be an integer >= 1, got {max_steps!r}")
+    dihedrals, frozen = _check_constraints(dihedral_constraints, frozen_atoms, n_atoms)
+    if not isinstance(engine, str) or engine.lower() not in _ENGINES:
+        raise InputError(f"engine must be one of {list(_ENGINES)}, got {engine!r}")
+    engine = engine.lower()
+    if engine == "lbfgs" and (dihedrals or frozen):
+        raise InputError("engine='lbfgs' has no constraints; use engine='geometric' for "
+                         "dihedral_constraints or frozen_atoms")
+    if n_atoms == 1 or len(frozen) == n_atoms:
+        result = backend.compute(pos, gradient=True)
+        return _summary(pos, result, 0, 1, True, "nothing to optimize")
+    if engine == "lbfgs":
+        return _run_lbfgs(backend, pos, crit, preset, int(max_steps))
+    return _run_geometric(backend, pos, crit, preset, int(max_steps), dihedrals, frozen)
+
+
+def _make_engine_class():
+    from geometric.engine import Engine
+
+    class BackendEngine(Engine):
+        """geomeTRIC engine that asks a confpop backend (bohr <-> angstrom at the edge)."""
+
+        def __init__(self, molecule, backend):
+            super().__init__(molecule)
+            self.backend = backend
+            self.results = {}  # coordinate bytes (bohr) -> BackendResult
+            self.calls = 0
+
+        def calc_new(self, coords, dirname):
+            result = self.backend.compute(coords.reshape(-1, 3) * BOHR_ANGSTROM, gradient=True)
+            self.calls += 1
+            self.results[coords.tobytes()] = result
+            # hartree/angstrom -> hartree/bohr
+            return {"energy": result.energy, "gradient": result.gradient.ravel() * BOHR_ANGSTROM}
+
+    return BackendEngine
+
+
+def _run_geometric(backend, pos, crit, preset, max_steps, dihedrals, frozen):
+    from geometric.errors import GeomOptNotConvergedError
+    from geometric.internal import DelocalizedInternalCoordinates
+    from geometric.molecule import Molecule
+    from geometric.nifty import bohr2ang
+    from geometric.optimize import Optimizer, OptParams
+    from geometric.prepare import parse_constraints
+    from rdkit import Chem
+
+    table = Chem.GetPeriodicTable()
+    with _geometric_silenced(), tempfile.TemporaryDirectory(prefix="confpop-opt-") as scratch:
+        molecule = Molecule()
+        molecule.elem = [table.GetElementSymbol(int(z)) for z in backend.numbers]
+        molecule.xyzs = [pos.copy()]
+        molecule.build_topology()
+        lines = []
+        held = [atoms for atoms, target in dihedrals if target is None]
+        driven = [(atoms, target) for atoms, target in dihedrals if target is not None]
+        if frozen or held:
+            lines.append("$freeze")
+            if frozen:
+                lines.append("xyz " + ",".join(str(a + 1) for a in frozen))
+            lines += ["dihedral " + " ".join(str(a + 1) for a in atoms) for atoms in held]
+        if driven:
+            lines.append("$set")
+            lines += ["dihedral " + " ".join(str(a + 1) for a in atoms) + f" {target:.10f}"
+                      for atoms, target in driven]
+        constraints, values = (parse_constraints(molecule, "\n".join(lines)) if lines
+                               else (None, None))
+        ic = DelocalizedInternalCoordinates(
+            molecule, build=True, connect=False, addcart=False, constraints=constraints,
+            cvals=values[0] if values is not None else None)
+        params = OptParams(maxiter=max_steps, convergence_energy=crit["energy"],
+                           convergence_grms=crit["grms"], convergence_gmax=crit["gmax"],
+                           convergence_drms=crit["drms"], convergence_dmax=crit["dmax"],
+                           # constraint violation in angstrom/degrees
+                           convergence_cmax=1e-3 if constraints else 1e-2)
+        engine = _make_engine_class()(molecule, backend)
+        coords = pos.ravel() * ANGSTROM_BOHR
+        optimizer = Optimizer(coords, molecule, ic, engine, scratch, params, print_info=False)
+        converged, message = True, f"converged ({preset} criteria)"
+        try:
+            optimizer.optimizeGeometry()
+        except GeomOptNotConvergedError:
+            converged = False
+            message = (f"not converged: reached max_steps={max_steps} before the {preset} "
+                       "criteria were met")
+        except ConfpopError:
+            raise
+        except Exception as exc:  # geomeTRIC's own structural errors
+            raise CalculationFailed(f"geomeTRIC optimization failed: "
+                                    f"{type(exc).__name__}: {str(exc).strip()}") from exc
+        final_x = np.asarray(optimizer.X, dtype=float)
+        steps = optimizer.Iteration
+    final_pos = final_x.reshape(-1, 3) * bohr2ang
+    result = engine.results.get(final_x.tobytes())
+    calls = engine.calls
+    if result is None:  # not expected: the optimizer ends on an evaluated geometry
+        result = backend.compute(final_pos, gradient=True)
+        calls += 1
+    for atoms, target in driven:
+        reached = _dihedral_degrees(final_pos, atoms)
+        miss = (reached - target + 180.0) % 360.0 - 180.0
+        if converged and abs(miss) > 0.1:
+            converged = False
+            message = f"dihedral {atoms} ended at {reached:.2f} deg, target {target:.2f} deg"
+    return _summary(final_pos, result, steps, calls, converged, message)
+
+
+def _run_lbfgs(backend, pos, crit, preset, max_steps):
+    from scipy.optimize import minimize
+
+    calls = 0
+    last = {}
+
+    def energy_gradient(x):
+        nonlocal calls
+        result = backend.compute(x.reshape(-1, 3), gradient=True)
+        calls += 1
+        last[x.tobytes()] = result
+        return result.energy, result.gradient.ravel()
+
+    start = backend.compute(pos, gradient=True)
+    calls += 1
+    scale = max(abs(start.energy), 1.0)
+    # gmax in hartree/bohr -> hartree/angstrom for the largest Cartesian component
+    options = {"maxiter": max_steps, "maxfun": 10 * max_steps,
+               "gtol": crit["gmax"] * ANGSTROM_BOHR, "ftol": crit["energy"] / scale}
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        res = minimize(energy_gradient, pos.ravel(), jac=True, method="L-BFGS-B",
+                       options=options)
+    final = np.asarray(res.x, dtype=float)
+    result = last.get(final.tobytes())
+    if result is None:
+        result = backend.compute(final.reshape(-1, 3), gradient=True)
+        calls += 1
+    converged = bool(res.success)
+    msg = res.message if isinstance(res.message, str) else str(res.message)
+    message = (f"converged ({preset} criteria, L-BFGS-B: {msg})" if converged
+               else f"not converged: L-BFGS-B stopped after {res.nit} steps: {msg}")
+    return _summary(final.reshape(-1, 3), result, res.nit, calls, converged, message)
+
+
+def optimize_structure(mol, method: str = "gfn2", solvent: str | None = None, *, conf_id=-1,
+                       charge=None, multiplicity=None, convergence="tight", max_steps=None,
+                       dihedral_constraints=None, frozen_atoms=None, **backend_options):
+    """Optimize one conformer of an RDKit molecule and return a new molecule.
+
+    Parameters
+    ----------
+    mol : rdkit.Chem.Mol
+        Molecule with explicit hydrogens and at least one conformer.
+    method : str
+        Backend name (see :func:`confpop.backends.available_backends`).
+    solvent : str or None
+        Implicit solvent for the backend.
+    conf_id : int
+        Conformer to start from (-1: the default conformer).
+    charge, multiplicity : int, optional
+        As for :class:`confpop.backends.Backend`.
+    convergence, max_steps, dihedral_constraints, frozen_atoms
+        As for :func:`optimize_positions`.
+    **backend_options
+        Passed to the backend (e.g. ``accuracy``).
+
+    Returns
+    -------
+    rdkit.Chem.Mol
+        A new molecule with one conformer (id 0) at the optimized geometry and the
+        properties ``energy_hartree`` (float), ``converged`` (bool), ``steps``,
+        ``gradient_calls`` (int), ``method`` and ``solvent`` (str; empty in the gas phase)
+        and ``optimization_message``.
+
+    Raises
+    ------
+    InputError
+        No conformer, unknown method, bad options.
+    CalculationFailed
+        The backend or the optimizer failed.
+    """
+    from rdkit import Chem
+
+    from .backends import get_backend
+
+    if not isinstance(mol, Chem.Mol):
+        raise InputError(f"mol must be an RDKit Mol, got {type(mol).__name__}")
+    if mol.GetNumConformers() == 0:
+        raise InputError("mol has no conformer to optimize (embed it first)")
+    try:
+        conformer = mol.GetConformer(int(conf_id))
+    except (ValueError, RuntimeError):
+        ids = [c.GetId() for c in mol.GetConformers()]
+        raise InputError(f"conf_id must be one of {ids} (or -1), got {conf_id!r}") from None
+    backend = get_backend(method, mol, charge=charge, multiplicity=multiplicity,
+                          solvent=solvent, **backend_options)
+    result = optimize_positions(backend, conformer.GetPositions(), convergence=convergence,
+                                max_steps=max_steps, dihedral_constraints=dihedral_constraints,
+                                frozen_atoms=frozen_atoms)
+    out = Chem.Mol(mol)
+    out.RemoveAllConformers()
+    new_conf = Chem.Conformer(mol.GetNumAtoms())
+    for i, xyz in enumerate(result.positions):
+        new_conf.SetAtomPosition(i, xyz.tolist())
+    new_conf.SetId(0)
+    out.AddConformer(new_conf, assignId=False)
+    out.SetDoubleProp("energy_hartree", result.energy)
+    out.SetBoolProp("converged", result.converged)
+    out.SetIntProp("steps", result.steps)
+    out.SetIntProp("gradient_calls", result.gradient_calls)
+    out.SetProp("method", backend.name)
+    out.SetProp("solvent", backend.solvent or "")
+    out.SetProp("optimization_message", result.message)
+    return out
