@@ -154,9 +154,152 @@ def _run_rates(args: argparse.Namespace) -> int:
     return 0
 
 
+# --------------------------------------------------------------------------- ensemble
+
+_ENSEMBLE_CAUTION = (
+    "Caution: GFN2-xTB conformer energies typically err by 0.5-1.5 kcal/mol against high-level "
+    "references (force fields by 1-2 kcal/mol or more), so a population below ~10 % can be off "
+    "by a factor of several and close-lying conformers can swap order. Use these numbers to "
+    "guide, not replace, experiment (NMR, crystallography) and expert judgement."
+)
+
+
+def _add_ensemble(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("input", metavar="INPUT",
+                        help="a SMILES, or a MOL/SDF/XYZ file (or an ensemble SDF written by confpop)")
+    parser.add_argument("--method", default="gfn2",
+                        help="final level: gfn2 (default), gfn1, gfnff, tblite-gfn2, mmff94s, mmff94, uff")
+    parser.add_argument("--solvent", default=None,
+                        help="implicit solvent (ALPB) for tight-binding methods, e.g. water, chloroform")
+    parser.add_argument("--temperature", "-T", nargs="+", type=_finite_float, default=[298.15],
+                        metavar="K", help="temperatures in kelvin (default 298.15)")
+    parser.add_argument("--seed", type=int, default=0, help="sampling seed (default 0)")
+    parser.add_argument("--trials", type=int, default=None,
+                        help="trial structures per sampling round (default: from flexibility)")
+    parser.add_argument("--energy-window", type=_finite_float, default=5.0, metavar="KCAL",
+                        help="final energy window in kcal/mol (default 5)")
+    parser.add_argument("--keep-mirror-images", action="store_true",
+                        help="keep mirror-image conformers as two rows instead of one row with degeneracy 2")
+    parser.add_argument("--charge", type=int, default=None, help="total charge (default: from the input)")
+    parser.add_argument("--multiplicity", type=int, default=None,
+                        help="spin multiplicity 2S+1 (default: from the input's radicals)")
+    parser.add_argument("--enumerate-stereo", action="store_true",
+                        help="run every stereoisomer of unassigned centres instead of refusing")
+    parser.add_argument("--workers", type=int, default=None,
+                        help="worker processes (default: all cores; 1 = serial)")
+    parser.add_argument("--store", default=None, metavar="FILE",
+                        help="SQLite result store: reuse finished calculations, resume interrupted runs")
+    parser.add_argument("--out", default=None, metavar="DIR",
+                        help="write ensemble.sdf, table.csv and run.json into DIR")
+    parser.add_argument("--json", action="store_true", help="print machine-readable JSON only")
+    parser.add_argument("--quiet", action="store_true", help="no progress bars")
+
+
+def _key_torsions(ens, count: int = 2):
+    """The rotatable dihedrals that differ most between the conformers: [(label, atoms)]."""
+    import numpy as np
+    from rdkit.Chem import rdMolTransforms
+
+    from .torsion import rotatable_torsions
+
+    mol = ens.mol
+    ids = ens.ids()
+    scored = []
+    for t in rotatable_torsions(mol):
+        values = np.radians([rdMolTransforms.GetDihedralDeg(mol.GetConformer(c), *t.atoms) for c in ids])
+        spread = 1.0 - abs(np.mean(np.exp(1j * values))) if len(values) else 0.0
+        scored.append((spread, t.label, t.atoms))
+    scored.sort(key=lambda s: -s[0])
+    return [(label, atoms) for _, label, atoms in scored[:count]]
+
+
+def _ensemble_table_text(ens, temps) -> str:
+    from rdkit.Chem import rdMolTransforms
+
+    rel = ens.energies("kcal/mol")
+    pops = ens.populations(temps)
+    torsions = _key_torsions(ens)
+    head = f"{'conf':>4}  {'dE kcal/mol':>11}  {'deg':>3}  " + "  ".join(
+        f"{'p(' + format(t, 'g') + ' K)':>10}" for t in temps)
+    head += "".join(f"  {label + ' (deg)':>18}" for label, _ in torsions)
+    lines = [head]
+    mol = ens.mol
+    for cid in ens.ids():
+        line = f"{cid:>4}  {rel[cid]:>11.2f}  {int(ens.degeneracy[cid]):>3}  " + "  ".join(
+            f"{pops.loc[cid, t]:>10.3f}" for t in temps)
+        line += "".join(f"  {rdMolTransforms.GetDihedralDeg(mol.GetConformer(cid), *atoms):>18.0f}"
+                        for _, atoms in torsions)
+        lines.append(line)
+    failed = [c for c in ens.ids(active=False) if c not in set(ens.ids())]
+    table = ens.raw_table
+    for cid in failed:
+        lines.append(f"{cid:>4}  failed: {table.loc[cid, 'reason']}")
+    return "\n".join(lines)
+
+
+def _run_ensemble(args: argparse.Namespace) -> int:
+    import os
+    from pathlib import Path
+
+    from .io import ensemble_json
+    from .pipeline import search
+
+    temps = list(args.temperature)
+    for t in temps:
+        if t <= 0:
+            raise InputError(f"temperature must be > 0 K, got {t}")
+    progress = not (args.quiet or args.json) and sys.stderr.isatty()
+    sources = [args.input]
+    if args.enumerate_stereo:
+        from .molecule import stereoisomers
+        sources = stereoisomers(args.input, charge=args.charge)
+    results = []
+    for source in sources:
+        ens = search(source, method=args.method, solvent=args.solvent, seed=args.seed,
+                     n_trials=args.trials, energy_window=args.energy_window,
+                     merge_mirror_images=not args.keep_mirror_images, charge=args.charge,
+                     multiplicity=args.multiplicity, workers=args.workers, store=args.store,
+                     progress=progress)
+        results.append(ens)
+    payloads = [ensemble_json(e, temps, input_text=args.input) for e in results]
+    if args.out:
+        out = Path(args.out)
+        for k, ens in enumerate(results):
+            folder = out if len(results) == 1 else out / f"stereoisomer_{k + 1}"
+            folder.mkdir(parents=True, exist_ok=True)
+            ens.to_sdf(folder / "ensemble.sdf")
+            ens.to_csv(folder / "table.csv", temps)
+            with open(folder / "run.json", "w") as fh:
+                json.dump(payloads[k], fh, indent=2)
+                fh.write("\n")
+    if args.json:
+        print(json.dumps(payloads[0] if len(payloads) == 1 else payloads, indent=2))
+        return 0
+    for ens in results:
+        summary = next((p for p in ens.provenance if p.get("step") == "summary"), {})
+        sample = next((p for p in ens.provenance if p.get("step") == "sample"), {})
+        print(f"{ens.name}  method {ens.level}{'  solvent ' + ens.solvent if ens.solvent else ''}")
+        print(_ensemble_table_text(ens, temps))
+        n_eff = ens.effective_count(temps[0])
+        print(f"{len(ens)} conformers within {args.energy_window:g} kcal/mol; sampling "
+              f"completeness {100 * summary.get('completeness', float('nan')):.1f} % "
+              f"(Good-Turing; {sample.get('trials', 0)} trials, {sample.get('rounds', 0)} rounds, "
+              f"{sample.get('embedding_failures', 0)} embedding failures); effective number of "
+              f"conformers at {temps[0]:g} K: {n_eff:.2f}; {summary.get('seconds', 0):.1f} s")
+        stages = [p for p in ens.provenance if p.get("step") not in ("input", "summary")]
+        print("stages: " + ", ".join(f"{p['step']} {p['n_in']}->{p['n_out']} ({p['seconds']:.1f} s)"
+                                     for p in stages))
+    if args.out:
+        print(f"wrote ensemble.sdf, table.csv and run.json to {os.path.abspath(args.out)}")
+    print(_ENSEMBLE_CAUTION)
+    return 0
+
+
 # --------------------------------------------------------------------------- registry
 
 _COMMANDS: list[tuple] = [
+    ("ensemble", _add_ensemble, _run_ensemble,
+     "find, rank and weight the conformers of a molecule at several temperatures"),
     ("rates", _add_rates, _run_rates,
      "rates, half-lives, atropisomer classes and NMR exchange regimes from barriers"),
 ]

@@ -199,14 +199,20 @@ class Ensemble:
     def table(self, unit: str = "kcal/mol") -> pd.DataFrame:
         """Energies (in ``unit``), relative energy at the ranking level, degeneracy, status.
 
-        Rows are sorted by relative energy; failed conformers come last with their reason.
+        Every ``energy_<level>`` column is shown relative to the lowest active conformer at
+        that level (absolute hartree values stay in :attr:`raw_table`); ``gcorr_``/``hcorr_``
+        corrections are converted but not shifted. Rows are sorted by relative energy; failed
+        conformers come last with their reason.
         """
         unit = normalize_unit(unit)
         out = self._table.copy()
-        energy_cols = [c for c in out.columns if c.startswith(("energy_", "gcorr_", "hcorr_"))]
-        for c in energy_cols:
-            out[c] = convert(out[c].to_numpy(dtype=float), "hartree", unit)
         active = out["status"] == _STATUS_OK
+        for c in [c for c in out.columns if c.startswith(("energy_", "gcorr_", "hcorr_"))]:
+            values = convert(out[c].to_numpy(dtype=float), "hartree", unit)
+            if c.startswith("energy_") and active.any():
+                values = values - np.nanmin(np.where(active, values, np.nan)) \
+                    if np.isfinite(np.where(active, values, np.nan)).any() else values
+            out[c] = values
         ref = out.loc[active, f"energy_{self.level}"].min() if active.any() else np.nan
         out.insert(0, "relative_energy", out[f"energy_{self.level}"] - ref)
         out.loc[~active, "relative_energy"] = np.nan
