@@ -29,6 +29,8 @@ _PUBLIC: dict[str, str] = {
     "CalculationFailed": "errors",
     "StoreError": "errors",
     "convert": "units",
+    "load_molecule": "molecule",
+    "stereoisomers": "molecule",
     "boltzmann_weights": "thermo",
     "log_boltzmann_weights": "thermo",
     "ensemble_free_energy": "thermo",

@@ -183,6 +183,13 @@ def load_molecule(source, *, charge=None, multiplicity=None, keep_largest_fragme
     ...
     confpop.errors.InputError: 1 stereo element of SMILES 'CC(O)CC' has no assigned configuration ...
     """
+    return _load(source, charge=charge, multiplicity=multiplicity,
+                 keep_largest_fragment=keep_largest_fragment, stereo=stereo, method=method,
+                 name=name)
+
+
+def _load(source, *, charge, multiplicity, keep_largest_fragment, stereo, method, name,
+          warn_open_stereo=True):
     stereo = _check_stereo_policy(stereo)
     charge = _check_int("charge", charge)
     multiplicity = _check_int("multiplicity", multiplicity)
@@ -198,7 +205,7 @@ def load_molecule(source, *, charge=None, multiplicity=None, keep_largest_fragme
     parsed = _read_source(source, charge)
     return _finish(parsed, charge=charge, multiplicity=multiplicity,
                    keep_largest_fragment=keep_largest_fragment, stereo=stereo,
-                   method=method_key, name=name)
+                   method=method_key, name=name, warn=warn_open_stereo)
 
 
 def stereoisomers(source, *, max_isomers=64, embeddable_only=False, charge=None,
@@ -246,9 +253,9 @@ def stereoisomers(source, *, max_isomers=64, embeddable_only=False, charge=None,
     max_isomers = _check_int("max_isomers", max_isomers)
     if max_isomers is None or max_isomers < 1:
         raise InputError(f"max_isomers must be an integer >= 1, got {max_isomers!r}")
-    mol = load_molecule(source, charge=charge, multiplicity=multiplicity,
-                        keep_largest_fragment=keep_largest_fragment, stereo="ignore",
-                        method=method, name=name)
+    mol = _load(source, charge=charge, multiplicity=multiplicity,
+                keep_largest_fragment=keep_largest_fragment, stereo="ignore", method=method,
+                name=name, warn_open_stereo=False)
     parent_name = mol.GetProp("_Name")
     open_elements = _unassigned_stereo(mol)
     _refuse_cumulenes(open_elements, mol)
@@ -498,6 +505,8 @@ def _read_source(source, charge):
     if not text:
         raise InputError("empty input: expected a SMILES string, a MOL/SDF/XYZ file path "
                          "or an RDKit Mol")
+    if os.path.isdir(text):
+        raise InputError(f"{text} is a directory; expected a SMILES string or a MOL/SDF/XYZ file")
     if os.path.isfile(text) or text.lower().endswith(_KNOWN_SUFFIXES):
         return _read_file(Path(text), charge)
     return _read_smiles(text, label=None)
@@ -527,7 +536,7 @@ def _diagnose_smiles(smiles, label, original):
     hint = ""
     if "/" in original or "\\" in original or re.search(r"\.[A-Za-z]{2,5}$", original):
         hint = f" (no file named {original!r} exists either)"
-    raise InputError(f"could not read {label} as SMILES: {reason}{hint}")
+    raise InputError(f"could not read {label}: {reason}{hint}")
 
 
 def _smiles_syntax_reason(smiles):
@@ -580,11 +589,11 @@ def _read_rdkit_mol(source):
                              f"{mol.GetProp('multiplicity')!r}, not an integer") from None
     name = mol.GetProp("_Name").strip() if mol.HasProp("_Name") else ""
     conformers = [c for c in mol.GetConformers() if c.Is3D()]
+    labels = [f"conformer {c.GetId()}" for c in conformers]
     is3d = bool(conformers)
-    _keep_conformers(mol, conformers if is3d else [])
+    _keep_conformers(mol, conformers)
     return _Parsed(mol=mol, label=label, name=name or _isomeric_smiles(mol), source="rdkit-mol",
-                   is3d=is3d, unit="conformer",
-                   conformer_labels=[f"conformer {c.GetId()}" for c in conformers],
+                   is3d=is3d, unit="conformer", conformer_labels=labels,
                    multiplicity_hint=hint)
 
 
@@ -687,6 +696,8 @@ def _read_sdf(path, text):
     ref_iso = Chem.MolToSmiles(ref)
     merged = Chem.Mol(ref)
     merged.RemoveAllConformers()
+    for key in merged.GetPropNames():  # SD data belong to each record's conformer
+        merged.ClearProp(key)
     labels = []
     for index, (label, title, mol) in enumerate(prepared):
         if index > 0:
@@ -865,7 +876,7 @@ def _element_number(token):
 # the common checks
 # --------------------------------------------------------------------------------------
 
-def _finish(parsed, *, charge, multiplicity, keep_largest_fragment, stereo, method, name):
+def _finish(parsed, *, charge, multiplicity, keep_largest_fragment, stereo, method, name, warn):
     mol = parsed.mol
     label = parsed.label
     for atom in mol.GetAtoms():
@@ -896,7 +907,7 @@ def _finish(parsed, *, charge, multiplicity, keep_largest_fragment, stereo, meth
         if open_elements:
             raise _unassigned_stereo_error(mol, open_elements, label)
     unassigned_note = "; ".join(e.text for e in open_elements)
-    if open_elements and stereo == "ignore":
+    if open_elements and stereo == "ignore" and warn:
         logger.warning("%s: stereo left open (%s); conformer generation will pick each "
                        "configuration at random", label, unassigned_note)
 
@@ -1063,10 +1074,8 @@ def _unassigned_stereo(mol):
             cumulene = info.type == Chem.StereoType.Bond_Cumulene_Even or _is_cumulated(mol, bond)
             what = "allene/cumulene axis" if cumulene else "double bond"
             out.append(_StereoElement((i, j), f"bond {i}-{j}: unassigned {what}", cumulene))
-        else:
-            idx = info.centeredOn
-            out.append(_StereoElement((idx,), f"{str(info.type).split('.')[-1]} at {idx}: "
-                                              f"unassigned"))
+        # other kinds (square-planar, trigonal-bipyramidal, octahedral centres) are flagged
+        # by RDKit without regard to identical ligands (SF6 would count): not checked
     return out
 
 
@@ -1208,8 +1217,8 @@ def _charge_and_multiplicity(mol, label, charge, multiplicity, hint):
                    if a.GetFormalCharge()]
         where = ", ".join(charged[:6]) if charged else "no charged atoms"
         raise InputError(
-            f"charge={charge:+d} does not match {label}, whose formal charges add "
-            f"up to {formal:+d} ({where}); mark the charged atoms in the input (e.g. [NH4+], "
+            f"charge={_signed(charge)} does not match {label}, whose formal charges add "
+            f"up to {_signed(formal)} ({where}); mark the charged atoms in the input (e.g. [NH4+], "
             f"[O-]): the total charge must equal the sum of the formal charges so that every "
             f"method sees the same molecule")
     radicals = sum(a.GetNumRadicalElectrons() for a in mol.GetAtoms())
@@ -1221,7 +1230,7 @@ def _charge_and_multiplicity(mol, label, charge, multiplicity, hint):
         spin, origin = 1 + radicals, f"the inferred multiplicity {1 + radicals}"
     electrons = sum(a.GetAtomicNum() for a in mol.GetAtoms()) - formal
     if electrons < 0:
-        raise InputError(f"{label}: a total charge of {formal:+d} leaves "
+        raise InputError(f"{label}: a total charge of {_signed(formal)} leaves "
                          f"{electrons} electrons")
     unpaired = spin - 1
     if spin < 1 or unpaired > electrons or (electrons - unpaired) % 2:
@@ -1229,7 +1238,7 @@ def _charge_and_multiplicity(mol, label, charge, multiplicity, hint):
         allowed = "1, 3, 5, ..." if electrons % 2 == 0 else "2, 4, 6, ..."
         raise InputError(
             f"{origin} is impossible for {label}: it has {electrons} electrons "
-            f"(charge {formal:+d}), an {parity} number, which allows multiplicities "
+            f"(charge {_signed(formal)}), an {parity} number, which allows multiplicities "
             f"{allowed} (at most {electrons + 1})")
     return formal, spin
 
@@ -1352,6 +1361,10 @@ def _raise_chemistry_problem(raw, label):
                          f"aromatic atoms {listing}; check the aromatic ring (a pyrrole-type "
                          f"nitrogen needs its hydrogen written as [nH])")
     raise InputError(f"{label}: RDKit cannot sanitize it ({problem.Message().strip()})")
+
+
+def _signed(n):
+    return f"{n:+d}" if n else "0"
 
 
 def _atom(mol, idx):
