@@ -60,6 +60,18 @@ _PUBLIC: dict[str, str] = {
     "frequencies": "vibrations",
     "rotational_constants": "vibrations",
     "symmetry_number": "vibrations",
+    "KarplusParameters": "nmr",
+    "GeneralizedKarplus": "nmr",
+    "proton_groups": "nmr",
+    "vicinal_pairs": "nmr",
+    "couplings": "nmr",
+    "average_couplings": "nmr",
+    "coupling_spread": "nmr",
+    "population_spread": "nmr",
+    "noe_distances": "nmr",
+    "average_dipole": "nmr",
+    "fit_populations": "nmr",
+    "PopulationFit": "nmr",
 }
 
 __all__ = sorted(_PUBLIC) + ["__version__"]

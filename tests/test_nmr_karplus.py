@@ -1,0 +1,197 @@
+"""Karplus parameter sets and equations (confpop.nmr.karplus).
+
+Sources are named beside each check. Coefficients tagged [S] were seen quoted with their
+citation in public sources (see the module docstring of confpop.nmr.karplus); [M] = from
+memory; [C] = arithmetic from the stated formula.
+"""
+
+import numpy as np
+import pytest
+from rdkit import Chem
+from rdkit.Chem import AllChem
+from rdkit.Chem import rdMolTransforms
+
+from confpop.errors import InputError
+from confpop.nmr import karplus as kp
+
+
+# ----------------------------------------------------------------------------- published values
+@pytest.mark.parametrize("name, expected", [
+    # Haasnoot, de Leeuw, Altona, Tetrahedron 1980, 36, 2783 (P1..P7) [S: public code quoting
+    # the paper's table; also REFERENCES.md "Vicinal couplings"]
+    ("haasnoot-a", (13.86, -0.81, 0.0, 0.56, -2.32, 17.9, 0.0)),
+    ("haasnoot-general", (13.70, -0.73, 0.0, 0.56, -2.47, 16.9, 0.14)),
+    ("haasnoot-2", (13.89, -0.98, 0.0, 1.02, -3.40, 14.9, 0.24)),
+    ("haasnoot-3", (13.22, -0.99, 0.0, 0.87, -2.46, 19.9, 0.0)),
+    ("haasnoot-4", (13.24, -0.91, 0.0, 0.53, -2.41, 15.5, 0.19)),
+])
+def test_haasnoot_coefficients(name, expected):
+    p = kp.PARAMETER_SETS[name]
+    got = (p.p1, p.p2, p.p3, p.p4, p.p5, p.p6, p.p7)
+    np.testing.assert_allclose(got, expected, rtol=0, atol=1e-12)
+
+
+@pytest.mark.parametrize("name, expected", [
+    ("vuister-bax-1993", (6.51, -1.76, 1.60)),   # Vuister & Bax, JACS 1993, 115, 7772 [S]
+    ("hu-bax-1997", (7.09, -1.42, 1.55)),        # Hu & Bax, JACS 1997, 119, 6360 [S]
+])
+def test_hn_ha_coefficients(name, expected):
+    p = kp.PARAMETER_SETS[name]
+    np.testing.assert_allclose((p.a, p.b, p.c), expected, rtol=0, atol=1e-12)
+    assert p.backbone_offset == pytest.approx(-60.0, abs=1e-12)  # theta = phi - 60 deg
+
+
+def test_vuister_bax_worked_values():
+    # REFERENCES.md [C]: Vuister set, phi = -120 deg -> 9.87 Hz; phi = -60 deg -> 4.11 Hz
+    p = kp.get_parameters("vuister-bax-1993")
+    assert float(p.j_backbone(-120.0)) == pytest.approx(9.87, abs=0.005)
+    assert float(p.j_backbone(-60.0)) == pytest.approx(4.11, abs=0.005)
+
+
+def test_wasylishen_schaefer_matches_published_cosine_form():
+    # Wasylishen & Schaefer, Can. J. Chem. 1973, 51, 961: 4.26 - 1.00 cos(phi) + 3.56 cos(2 phi)
+    # [S: quoted with the citation in public viewer source; REFERENCES.md says M]
+    phi = np.linspace(-180, 180, 37)
+    published = 4.26 - 1.00 * np.cos(np.radians(phi)) + 3.56 * np.cos(np.radians(2 * phi))
+    np.testing.assert_allclose(kp.get_parameters("wasylishen-schaefer-1973").j(phi), published,
+                               rtol=0, atol=1e-12)
+
+
+def test_karplus_1963_cosine_form():
+    # Karplus, JACS 1963, 85, 2870: J = 7 - cos(phi) + 5 cos(2 phi) [from memory]
+    phi = np.linspace(-180, 180, 13)
+    expected = 7 - np.cos(np.radians(phi)) + 5 * np.cos(np.radians(2 * phi))
+    np.testing.assert_allclose(kp.get_parameters("karplus-1963").j(phi), expected, atol=1e-12)
+
+
+def test_user_supplied_coefficients():
+    user = kp.get_parameters((9.0, -1.0, 0.5))
+    assert user.name == "user"
+    # [C] theta = 0: A + B + C; theta = 90: C; theta = 180: A - B + C
+    np.testing.assert_allclose(user.j([0.0, 90.0, 180.0]), [8.5, 0.5, 10.5], atol=1e-12)
+
+
+def test_bad_parameters_raise():
+    with pytest.raises(InputError, match="parameters must be"):
+        kp.get_parameters("no-such-set")
+    with pytest.raises(InputError, match="three coefficients"):
+        kp.get_parameters((1.0, 2.0))
+    with pytest.raises(InputError, match="finite"):
+        kp.KarplusParameters("bad", float("nan"), 1.0, 1.0)
+    with pytest.raises(InputError, match="j\\(theta\\)"):
+        kp.get_parameters("karplus-1963").j_backbone(0.0)
+    with pytest.raises(InputError, match="0 to 4"):
+        kp.haasnoot_set_for(5)
+
+
+def test_set_by_substituent_count():
+    assert [kp.haasnoot_set_for(n).name for n in range(5)] == [
+        "haasnoot-general", "haasnoot-general", "haasnoot-2", "haasnoot-3", "haasnoot-4"]
+
+
+# ----------------------------------------------------------------------------- HLA identities
+SETS = ["haasnoot-a", "haasnoot-general", "haasnoot-2", "haasnoot-3", "haasnoot-4"]
+SUBS = [(1.30, 1.0), (0.40, -1.0), (1.30 - 0.14 * 0.40, 1.0)]  # O, C, O with a beta C
+
+
+@pytest.mark.parametrize("name", SETS)
+def test_mirror_invariance(name):
+    # inverting a structure flips phi and every xi: J(phi, {xi}) = J(-phi, {-xi}) (REFERENCES)
+    p = kp.PARAMETER_SETS[name]
+    phi = np.linspace(-180, 180, 73)
+    mirrored = [(d, -x) for d, x in SUBS]
+    np.testing.assert_allclose(p.j(phi, SUBS), p.j(-phi, mirrored), rtol=0, atol=1e-12)
+
+
+@pytest.mark.parametrize("name", SETS)
+def test_xi_independent_at_180(name):
+    # at phi = 180 deg cos^2(+-180 + c) = cos^2(c): no dependence on xi (REFERENCES)
+    p = kp.PARAMETER_SETS[name]
+    for d in (0.4, 1.3):
+        four = [float(p.j(180.0, [(d, x1), (0.4, x2)])) for x1 in (1, -1) for x2 in (1, -1)]
+        np.testing.assert_allclose(four, four[0], rtol=0, atol=1e-12)
+    # but at a gauche angle xi matters (otherwise the test above would be empty)
+    assert abs(float(p.j(60.0, [(1.3, 1)])) - float(p.j(60.0, [(1.3, -1)]))) > 0.5
+
+
+def test_hla_worked_value():
+    # [C] set C (two substituents), phi = 180: 13.89 + 0.98 + sum dchi (1.02 - 3.40 cos^2(P6 dchi))
+    # by hand: O (1.30): 1.30 * (1.02 - 3.40 * cos^2(19.37)) = 1.30 * (1.02 - 3.027) = -2.609;
+    #          C (0.40): 0.40 * (1.02 - 3.40 * cos^2(5.96))  = 0.40 * (1.02 - 3.363) = -0.937;
+    #          14.87 - 2.609 - 0.937 = 11.32 Hz
+    p = kp.get_parameters("haasnoot-2")
+    expected = 13.89 + 0.98
+    for d in (1.30, 0.40):
+        expected += d * (1.02 - 3.40 * np.cos(np.radians(14.9 * d)) ** 2)
+    assert float(p.j(180.0, [(1.30, 1), (0.40, -1)])) == pytest.approx(expected, abs=1e-12)
+    assert expected == pytest.approx(11.32, abs=0.01)
+
+
+def test_beta_correction():
+    # Delta chi = Delta chi_alpha - P7 sum Delta chi_beta (HLA 1980; REFERENCES): CH2OH on
+    # the fragment: 0.40 - 0.24 * 1.30 with set C
+    p = kp.get_parameters("haasnoot-2")
+    assert p.group_electronegativity(0.40, [1.30, 0.0, 0.0]) == pytest.approx(0.40 - 0.24 * 1.30, abs=1e-12)
+
+
+# ----------------------------------------------------------------------------- geometry
+def _ethane_like(smiles="ClCCO", seed=3):
+    mol = Chem.AddHs(Chem.MolFromSmiles(smiles))
+    AllChem.EmbedMolecule(mol, randomSeed=seed)
+    return mol
+
+
+def test_dihedral_matches_rdkit():
+    # independent implementation: RDKit's rdMolTransforms.GetDihedralDeg
+    mol = _ethane_like()
+    conf = mol.GetConformer()
+    pos = conf.GetPositions()
+    for quad in [(0, 1, 2, 3), (4, 1, 2, 6), (5, 1, 2, 3)]:
+        assert float(kp.dihedral(*(pos[i] for i in quad))) == pytest.approx(
+            rdMolTransforms.GetDihedralDeg(conf, *quad), abs=1e-9)
+
+
+def _newman(front, back, bond=1.54, length=1.09, tilt=109.47):
+    """Front carbon at the origin, back carbon on +z; substituents at the given torsion angles."""
+    t = np.radians(180.0 - tilt)
+    x, y = np.zeros(3), np.array([0.0, 0.0, bond])
+    f = [x + length * np.array([np.sin(t) * np.cos(np.radians(a)), np.sin(t) * np.sin(np.radians(a)),
+                                -np.cos(t)]) for a in front]
+    b = [y + length * np.array([np.sin(t) * np.cos(np.radians(a)), np.sin(t) * np.sin(np.radians(a)),
+                                np.cos(t)]) for a in back]
+    return x, y, f, b
+
+
+def test_orientation_sign_booth_rule():
+    # Booth's rule (REFERENCES): a gauche coupling is smallest when an electronegative
+    # substituent is antiperiplanar to one of the coupled protons. With phi = +60 deg the
+    # substituent anti to the other proton must get the sign that lowers J most.
+    x, y, f, b = _newman([0, 120, 240], [60, 180, 300])
+    h1, h2 = f[0], b[0]
+    assert float(kp.dihedral(h1, x, y, h2)) == pytest.approx(60.0, abs=1e-9)
+    p = kp.get_parameters("haasnoot-general")
+    j_by_position = {}
+    for s in b[1:]:  # substituent on the back carbon
+        anti = abs(abs(float(kp.dihedral(h1, x, y, s))) - 180.0) < 1e-6
+        xi = float(kp.orientation_sign(h2, y, x, s))
+        j_by_position[anti] = float(p.j(60.0, [(1.30, xi)]))
+    assert j_by_position[True] < j_by_position[False] - 1.0
+    # the same rule from the front carbon (symmetry of the two ends)
+    for s in f[1:]:
+        anti = abs(abs(float(kp.dihedral(s, x, y, h2))) - 180.0) < 1e-6
+        xi = float(kp.orientation_sign(h1, x, y, s))
+        assert float(p.j(60.0, [(1.30, xi)])) == pytest.approx(j_by_position[anti], abs=1e-9)
+
+
+def test_orientation_sign_flips_under_inversion():
+    mol = _ethane_like()
+    pos = mol.GetConformer().GetPositions()
+    # Cl0-C1-C2-O3: substituent Cl on C1 relative to each proton of C1
+    hs = [a.GetIdx() for a in mol.GetAtomWithIdx(1).GetNeighbors() if a.GetAtomicNum() == 1]
+    for h in hs:
+        xi = kp.orientation_sign(pos[h], pos[1], pos[2], pos[0])
+        xi_inv = kp.orientation_sign(-pos[h], -pos[1], -pos[2], -pos[0])
+        assert float(xi) == pytest.approx(-float(xi_inv), abs=0)
+    # the two geminal protons see the substituent on opposite sides
+    signs = sorted(float(kp.orientation_sign(pos[h], pos[1], pos[2], pos[0])) for h in hs)
+    assert signs == [-1.0, 1.0]
