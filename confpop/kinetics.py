@@ -403,11 +403,10 @@ _LARGE_UNITS = (("yr", _YEAR), ("d", 86400.0), ("h", 3600.0), ("min", 60.0))
 def _two_significant(x: float) -> str:
     if x >= 1e6:
         return f"{x:.1e}"
-    digits = 1 - math.floor(math.log10(x)) if x > 0 else 0
-    value = round(x, digits)
-    if value >= 10:
+    value = float(f"{x:.2g}")
+    if value >= 10.0:
         return f"{value:.0f}"
-    return f"{value:.{max(digits, 0)}f}"
+    return f"{value:.{1 - math.floor(math.log10(value))}f}"
 
 
 def format_duration(seconds) -> str:
@@ -440,14 +439,16 @@ def format_duration(seconds) -> str:
         return "inf"
     if s == 0.0:
         return "0 s"
-    s = float(f"{s:.2g}")  # round first, so 0.999 s reads "1.0 s", not "1000 ms"
-    if s >= 60.0:
+    # the unit is chosen on the value rounded to two figures (0.999 s reads "1.0 s", not
+    # "1000 ms"); the number shown is rounded once, from the exact value
+    rounded = float(f"{s:.2g}")
+    if rounded >= 60.0:
         for name, size in _LARGE_UNITS:
-            if s >= size:
+            if rounded >= size:
                 return f"{_two_significant(s / size)} {name}"
-    if s >= 1.0:
+    if rounded >= 1.0:
         return f"{_two_significant(s)} s"
     for name, size in reversed(_SMALL_UNITS):
-        if s >= size:
+        if rounded >= size:
             return f"{_two_significant(s / size)} {name}"
     return f"{_two_significant(s / 1e-15)} fs"
