@@ -496,7 +496,7 @@ def content_key(numbers, positions, *, charge: int, multiplicity: int, method: s
     grid = np.rint(xyz * 10.0 ** decimals).astype(np.int64)  # rint: round half to even
     document = {
         "recipe": _KEY_RECIPE,
-        "numbers": [int(v) for v in z],
+        "numbers": z.tolist(),
         "positions": grid.tolist(),
         "decimals": int(decimals),
         "charge": int(charge),

@@ -1,0 +1,592 @@
+"""Running many independent calculations: serially, in local processes, or on any executor.
+
+One function, :func:`run_units`, maps a module-level function over a list of items (one
+optimization, single point, Hessian displacement or molecule each) and returns one
+:class:`UnitOutcome` per item, in the order of the items. A unit that raises is retried and
+then recorded as failed; the others go on. With a :class:`~confpop.store.ResultStore`,
+finished results are written as they arrive and found again by the next run.
+
+Where the work runs
+-------------------
+``workers=1``
+    In this process, one unit after the other (no pickling, no pool; the fast path for tests
+    and tiny jobs). A unit that kills its process kills the caller.
+``executor=None`` (default)
+    A pool of local worker processes (``workers``, default: the CPUs this process may use),
+    started with the ``"forkserver"`` method (never ``"fork"``; see :data:`START_METHOD`).
+    Each worker sets ``OMP_NUM_THREADS=1`` before it imports anything a unit needs, so every
+    tight-binding engine runs on one thread and parallelism comes from processes; the
+    caller's environment is left as it is.
+``executor=...``
+    Any :class:`concurrent.futures.Executor`, for example
+    ``dask.distributed.Client(...).get_executor()``; a ``dask.distributed.Client`` itself is
+    accepted too. The environment of those workers is the executor's business: start dask
+    workers with ``OMP_NUM_THREADS=1`` (and one thread each) for tight-binding work.
+"""
+
+from __future__ import annotations
+
+import ctypes
+import logging
+import multiprocessing
+import os
+import pickle
+import sys
+import time
+from collections import deque
+from concurrent.futures import FIRST_COMPLETED, Executor, ProcessPoolExecutor, wait
+from concurrent.futures.process import BrokenProcessPool
+from dataclasses import dataclass
+from typing import Any, Callable, Iterable, Sequence
+
+from .errors import InputError, StoreError
+
+__all__ = ["UnitOutcome", "run_units", "local_executor", "default_workers"]
+
+logger = logging.getLogger(__name__)
+
+#: multiprocessing start method of the local pool. Never "fork": a caller that has loaded an
+#: OpenMP runtime (xtb, tblite) would hand it, with the caller's thread count, to every worker.
+#: "forkserver" forks workers from a small server process started (fresh, by exec) on first
+#: use, which has already imported the main script: measured here (benchmarks/bench_store.py),
+#: a 2-worker pool returns its first units sooner than with "spawn", where every worker is a
+#: new interpreter that imports everything again. Workers still get the caller's current
+#: environment and working directory (see _init_worker). "spawn" where there is no forkserver.
+START_METHOD = ("forkserver" if "forkserver" in multiprocessing.get_all_start_methods()
+                else "spawn")
+#: message of a unit whose worker process died while running it
+WORKER_DIED = "worker process died"
+# a pool that breaks this many times in a row with no unit running is given up
+_MAX_IDLE_BREAKS = 3
+_OPENMP_RUNTIMES = ("libgomp", "libiomp", "libomp")
+
+
+@dataclass(frozen=True)
+class UnitOutcome:
+    """What became of one unit of work.
+
+    Attributes
+    ----------
+    index : int
+        Position of the item in the input.
+    ok : bool
+        True if ``value`` holds the function's result.
+    value : object
+        The result (None when the unit failed).
+    error_type : str or None
+        Class name of the exception of the last attempt (``"BrokenProcessPool"`` when the
+        worker process died), None when ``ok``.
+    error_message : str or None
+        Its message (``"worker process died"`` for a dead worker), None when ``ok``.
+    attempts : int
+        How many times the unit was run in this call (0 when it came from the store).
+    from_store : bool
+        True if the result was read from the result store instead of computed.
+    seconds : float, seconds
+        Wall time inside the function in the last attempt; for a result from the store, the
+        time it took when it was computed (0.0 if unknown).
+    """
+
+    index: int
+    ok: bool
+    value: Any = None
+    error_type: str | None = None
+    error_message: str | None = None
+    attempts: int = 0
+    from_store: bool = False
+    seconds: float = 0.0
+
+
+# --------------------------------------------------------------------------------------------
+# worker side
+# --------------------------------------------------------------------------------------------
+# shared array of the local pool: started[i] = attempt while unit i runs, -attempt once its
+# function has returned; it tells which unit was running when a worker process died.
+_started = None
+
+
+def _limit_loaded_openmp() -> tuple[list[str], list[str]]:
+    """Set one thread in every OpenMP runtime already mapped into this process (Linux).
+
+    A runtime reads OMP_NUM_THREADS once, when it loads; one loaded earlier (by a top-level
+    import in the main script, which workers re-import) is told through its own
+    ``omp_set_num_threads``. Returns (runtimes found, runtimes that could not be told).
+    """
+    try:
+        with open("/proc/self/maps") as handle:
+            lines = handle.read().splitlines()
+    except OSError:  # not Linux: nothing to look at
+        return [], []
+    paths = sorted({line.split(maxsplit=5)[-1] for line in lines
+                    if line.count(" ") >= 5 and os.path.basename(
+                        line.split(maxsplit=5)[-1]).startswith(_OPENMP_RUNTIMES)})
+    failed = []
+    for path in paths:
+        try:
+            ctypes.CDLL(path).omp_set_num_threads(1)
+        except (OSError, AttributeError):
+            failed.append(path)
+    return paths, failed
+
+
+def _init_worker(started=None, environ=None) -> None:
+    """Initializer of local pool workers: one OpenMP thread, before any unit's imports.
+
+    ``environ`` is the caller's environment when the pool was made: a forkserver worker
+    would otherwise see the environment of the moment the server started.
+    """
+    if environ is not None:
+        for name in set(os.environ) - set(environ):
+            del os.environ[name]
+        os.environ.update(environ)
+    os.environ["OMP_NUM_THREADS"] = "1"
+    global _started
+    _started = started
+    found, failed = _limit_loaded_openmp()
+    if found:
+        logger.debug("worker %d: OpenMP runtime(s) loaded before the initializer, set to one "
+                     "thread: %s", os.getpid(), found)
+    if failed:
+        logger.warning("worker %d: cannot set %s to one thread (loaded by a top-level import "
+                       "in the main script?); engines may use several threads per worker",
+                       os.getpid(), failed)
+
+
+def _run_unit(function, item, index: int, attempt: int, track: bool):
+    """Call ``function(item)``; return (ok, value, error_type, error_message, seconds)."""
+    started = _started if track else None
+    if started is not None:
+        started[index] = attempt
+    start = time.perf_counter()
+    try:
+        value = function(item)
+    except Exception as exc:  # a unit's failure is data, not an exception of the run
+        result = (False, None, type(exc).__name__, str(exc), time.perf_counter() - start)
+    else:
+        result = (True, value, None, None, time.perf_counter() - start)
+    if started is not None:
+        started[index] = -attempt
+    return result
+
+
+# --------------------------------------------------------------------------------------------
+# parent side
+# --------------------------------------------------------------------------------------------
+def default_workers() -> int:
+    """Number of CPUs this process may run on (its affinity mask), at least 1."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except (AttributeError, OSError):  # not Linux
+        return max(1, os.cpu_count() or 1)
+
+
+def local_executor(workers: int | None = None) -> ProcessPoolExecutor:
+    """A local process pool set up like the one :func:`run_units` makes, for reuse.
+
+    Its workers run with ``OMP_NUM_THREADS=1``. Pass it as ``executor=`` to several calls to
+    save the pool start-up (~0.1 s); unlike the pool :func:`run_units` makes itself, a passed
+    pool cannot be rebuilt when a worker dies, so the units left are then recorded as failed.
+
+    Parameters
+    ----------
+    workers : int, optional
+        Number of processes; default :func:`default_workers`.
+
+    Returns
+    -------
+    concurrent.futures.ProcessPoolExecutor
+        Shut it down (or use it in a ``with`` block) when done.
+    """
+    workers = default_workers() if workers is None else _check_workers(workers)
+    return ProcessPoolExecutor(max_workers=workers,
+                               mp_context=multiprocessing.get_context(START_METHOD),
+                               initializer=_init_worker, initargs=(None, dict(os.environ)))
+
+
+def _check_workers(workers) -> int:
+    if isinstance(workers, bool) or not isinstance(workers, int) or workers < 1:
+        raise InputError(f"workers must be an int >= 1, got {workers!r}")
+    return workers
+
+
+class _NoBar:
+    def update(self, n: int = 1) -> None:
+        pass
+
+    def close(self) -> None:
+        pass
+
+
+def _progress_bar(progress: bool, total: int, description: str | None):
+    if not progress:
+        return _NoBar()
+    from tqdm.auto import tqdm  # imported only when asked for
+
+    return tqdm(total=total, desc=description, file=sys.stderr, unit="unit")
+
+
+class _Run:
+    """State of one :func:`run_units` call: attempts, outcomes, store writes, progress."""
+
+    def __init__(self, function, items, retries, store, keys, bar):
+        self.function = function
+        self.items = items
+        self.retries = retries
+        self.store = store
+        self.keys = keys
+        self.bar = bar
+        self.outcomes: list[UnitOutcome | None] = [None] * len(items)
+        self.attempts = [0] * len(items)
+        self._store_warned = False
+
+    # -- bookkeeping -------------------------------------------------------------------------
+    def succeeded(self, i: int, value, seconds: float) -> None:
+        self.outcomes[i] = UnitOutcome(i, True, value, attempts=self.attempts[i],
+                                       seconds=float(seconds))
+        key = None if self.keys is None else self.keys[i]
+        if key is not None:
+            try:
+                self.store.put(key, value, seconds=seconds)
+            except (StoreError, InputError) as exc:  # keep the run going; say so once
+                if not self._store_warned:
+                    logger.warning("result not written to the store (the run goes on): %s", exc)
+                    self._store_warned = True
+        self.bar.update(1)
+
+    def failed(self, i: int, error_type: str, message: str, seconds: float) -> None:
+        logger.info("unit %d failed after %d attempt(s): %s: %s", i, self.attempts[i],
+                    error_type, message)
+        self.outcomes[i] = UnitOutcome(i, False, None, error_type, message,
+                                       attempts=self.attempts[i], seconds=float(seconds))
+        self.bar.update(1)
+
+    def attempt_failed(self, i: int, error_type: str, message: str, seconds: float) -> bool:
+        """Record a failed attempt; True if the unit is to be tried again."""
+        if self.attempts[i] <= self.retries:
+            logger.info("unit %d attempt %d failed (%s: %s); trying again", i, self.attempts[i],
+                        error_type, message)
+            return True
+        self.failed(i, error_type, message, seconds)
+        return False
+
+    def handle(self, i: int, result) -> bool:
+        """Take one attempt's result tuple; True if the unit is to be tried again."""
+        ok, value, error_type, message, seconds = result
+        if ok:
+            self.succeeded(i, value, seconds)
+            return False
+        return self.attempt_failed(i, error_type, message, seconds)
+
+    @staticmethod
+    def result_of(future):
+        """The worker's result tuple, or a failure tuple for an executor-level exception."""
+        try:
+            return future.result()
+        except BrokenProcessPool:
+            raise
+        except Exception as exc:  # pickling errors, dask's KilledWorker, cancellation
+            return (False, None, type(exc).__name__, str(exc) or repr(exc), 0.0)
+
+    # -- the three ways to run ---------------------------------------------------------------
+    def serial(self, todo: Sequence[int]) -> None:
+        for i in todo:
+            while True:
+                self.attempts[i] += 1
+                result = _run_unit(self.function, self.items[i], i, self.attempts[i], False)
+                if not self.handle(i, result):
+                    break
+
+    def on_executor(self, executor: Executor, todo: Sequence[int]) -> None:
+        queue = deque(todo)
+        pending: dict = {}
+        try:
+            while queue or pending:
+                while queue:
+                    i = queue.popleft()
+                    self.attempts[i] += 1
+                    try:
+                        future = executor.submit(_run_unit, self.function, self.items[i], i,
+                                                 self.attempts[i], False)
+                    except Exception as exc:  # shut down or broken: nothing more can run here
+                        self.attempts[i] -= 1
+                        for j in (i, *queue):
+                            self.failed(j, type(exc).__name__,
+                                        f"the executor refused the unit: {exc}", 0.0)
+                        queue.clear()
+                        break
+                    pending[future] = i
+                if not pending:
+                    break
+                done, _ = wait(pending, return_when=FIRST_COMPLETED)
+                for future in done:
+                    i = pending.pop(future)
+                    try:
+                        result = self.result_of(future)
+                    except BrokenProcessPool as exc:  # a pool we do not own cannot be rebuilt
+                        result = (False, None, type(exc).__name__, str(exc), 0.0)
+                    if self.handle(i, result):
+                        queue.append(i)
+        except BaseException:
+            for future in pending:
+                future.cancel()
+            raise
+
+    def local_pool(self, todo: Sequence[int], workers: int) -> None:
+        context = multiprocessing.get_context(START_METHOD)
+        queue = deque(todo)   # units to run, in parallel
+        quarantine = deque()  # units suspected of killing a worker: run one at a time
+        pending: dict = {}
+        pool = None
+        started = None
+        idle_breaks = 0
+        try:
+            while queue or quarantine or pending:
+                if pool is None:
+                    started = context.RawArray("i", len(self.items))
+                    size = max(1, min(workers, len(queue) + len(quarantine)))
+                    pool = ProcessPoolExecutor(max_workers=size, mp_context=context,
+                                               initializer=_init_worker,
+                                               initargs=(started, dict(os.environ)))
+                lost: list[int] = []
+                try:
+                    if quarantine:
+                        if not pending:
+                            self._submit(pool, quarantine, pending)
+                    else:
+                        while queue:
+                            self._submit(pool, queue, pending)
+                except BrokenProcessPool:
+                    broken = True  # the pool broke between two submissions
+                else:
+                    broken = False
+                    done, _ = wait(pending, return_when=FIRST_COMPLETED)
+                    for future in done:
+                        i = pending.pop(future)
+                        try:
+                            result = self.result_of(future)
+                        except BrokenProcessPool:
+                            lost.append(i)
+                            broken = True
+                            continue
+                        if self.handle(i, result):
+                            queue.append(i)
+                if not broken:
+                    continue
+                # A worker died: the pool fails every unfinished future at once.
+                wait(pending)
+                for future, i in pending.items():
+                    try:
+                        result = self.result_of(future)
+                    except BrokenProcessPool:
+                        lost.append(i)
+                        continue
+                    if self.handle(i, result):
+                        queue.append(i)
+                pending.clear()
+                pool.shutdown(wait=True)
+                pool = None
+                idle_breaks = self._sort_lost(lost, started, queue, quarantine, idle_breaks)
+                if idle_breaks >= _MAX_IDLE_BREAKS:
+                    message = (f"{WORKER_DIED}: the local pool broke {idle_breaks} times in a row "
+                               "with no unit running (worker start-up failing?)")
+                    for i in (*quarantine, *queue):
+                        self.failed(i, "BrokenProcessPool", message, 0.0)
+                    queue.clear()
+                    quarantine.clear()
+        except BaseException:
+            if pool is not None:
+                pool.shutdown(wait=False, cancel_futures=True)
+                # Do not leave long calculations running after an interrupt. Python 3.14 has
+                # ProcessPoolExecutor.terminate_workers(); before it, only the private dict.
+                for process in list((getattr(pool, "_processes", None) or {}).values()):
+                    process.terminate()
+                pool = None
+            raise
+        finally:
+            if pool is not None:
+                pool.shutdown(wait=True)
+
+    def _submit(self, pool, source: deque, pending: dict) -> None:
+        i = source.popleft()
+        self.attempts[i] += 1
+        try:
+            future = pool.submit(_run_unit, self.function, self.items[i], i, self.attempts[i],
+                                 True)
+        except BaseException:
+            self.attempts[i] -= 1
+            source.appendleft(i)
+            raise
+        pending[future] = i
+
+    def _sort_lost(self, lost, started, queue, quarantine, idle_breaks) -> int:
+        """After a worker died: charge the unit that was running, re-queue the rest."""
+        suspects = [i for i in lost if started[i] == self.attempts[i]]  # running, not returned
+        for i in lost:
+            if i not in suspects:  # never started (or finished): that attempt does not count
+                self.attempts[i] -= 1
+                queue.appendleft(i)
+        if len(suspects) == 1:
+            # Alone in flight, or the only one running: it killed the worker.
+            i = suspects[0]
+            logger.info("unit %d: worker process died (attempt %d)", i, self.attempts[i])
+            if self.attempt_failed(i, "BrokenProcessPool", WORKER_DIED, 0.0):
+                quarantine.append(i)
+            return 0
+        if suspects:
+            # Several were running; the others were stopped when the pool broke. Run each
+            # alone to find the one that kills its worker; no attempt is charged yet.
+            for i in suspects:
+                self.attempts[i] -= 1
+            quarantine.extend(suspects)
+            return 0
+        return idle_breaks + 1
+
+
+def run_units(function: Callable[[Any], Any], items: Iterable, *,
+              executor: Executor | None = None, workers: int | None = None, retries: int = 1,
+              progress: bool = False, description: str | None = None, store=None,
+              keys: Sequence[str | None] | None = None) -> list[UnitOutcome]:
+    """Run ``function(item)`` for every item; each unit's failure is kept as data.
+
+    Parameters
+    ----------
+    function : callable
+        Takes one item, returns a result. For process pools and distributed executors it
+        must be picklable (a module-level function, or :func:`functools.partial` of one)
+        and so must the items and results (dicts/tuples of numbers, strings, numpy arrays).
+    items : iterable
+        One item per unit of work.
+    executor : concurrent.futures.Executor or dask.distributed.Client, optional
+        Where to run the units (a ``Client`` is turned into ``client.get_executor()``). It is
+        used, not shut down. Default: a local process pool made (and shut down) by this call.
+    workers : int, optional
+        Processes of the local pool; default :func:`default_workers`. ``workers=1`` runs
+        every unit in this process, one after the other. Not allowed with ``executor``.
+    retries : int
+        How many times a failed unit is tried again (default 1, so at most two attempts).
+    progress : bool
+        Show a progress bar (tqdm) on stderr. Nothing is printed otherwise.
+    description : str, optional
+        Label of the progress bar.
+    store : confpop.store.ResultStore, optional
+        Results already in the store (under ``keys``) are taken from it and not computed;
+        each new successful result is written to it as soon as it arrives. Failures are not
+        stored, so a later run tries them again.
+    keys : sequence of str or None, optional
+        One content key per item (see :func:`confpop.store.content_key`); None for an item
+        that should not be stored. Needed with ``store`` and only with it.
+
+    Returns
+    -------
+    list of UnitOutcome
+        One per item, in the order of ``items``.
+
+    Raises
+    ------
+    InputError
+        If an argument is of the wrong kind, ``keys`` does not match ``items``, or
+        ``function`` cannot be pickled for the local pool.
+
+    Notes
+    -----
+    A unit that raises an ``Exception`` is retried ``retries`` times, then recorded with the
+    exception's type and message; ``KeyboardInterrupt`` stops the whole run (after which the
+    store holds every result finished so far).
+
+    In the local pool, a worker process that dies inside a unit (``os._exit``, a signal, a
+    crash in compiled code) does not cost the units already finished: the pool is rebuilt
+    and the unfinished units run again. The unit that was running when the worker died is
+    charged one attempt (when several were running, each is first run alone to find the
+    culprit) and after its retries is recorded as failed with ``error_message ==
+    "worker process died"``. A passed-in executor cannot be rebuilt: its failures are
+    recorded per unit as they come.
+
+    Workers are forked from a fresh server process (``"forkserver"``, see
+    :data:`START_METHOD`) that imports the caller's main script without running its ``if
+    __name__ == "__main__":`` block; a script must keep its work under that block. An OpenMP
+    runtime that the script's top-level imports load before ``OMP_NUM_THREADS=1`` is set is
+    told to use one thread through its ``omp_set_num_threads`` (a warning is logged if that
+    fails).
+
+    Each unit costs about 0.1-0.5 ms of pool traffic: make units of at least milliseconds
+    (one optimization, one single point, one molecule), not single arithmetic operations.
+
+    Examples
+    --------
+    >>> import math
+    >>> outcomes = run_units(math.sqrt, [4.0, -1.0, 9.0], workers=1)
+    >>> [o.value for o in outcomes]
+    [2.0, None, 3.0]
+    >>> outcomes[1].ok, outcomes[1].error_type, outcomes[1].attempts
+    (False, 'ValueError', 2)
+    """
+    if not callable(function):
+        raise InputError(f"function must be callable, got {type(function).__name__}")
+    if isinstance(items, (str, bytes)):
+        raise InputError("items must be a sequence of work items, got a single str/bytes")
+    try:
+        items = list(items)
+    except TypeError:
+        raise InputError(f"items must be iterable, got {type(items).__name__}") from None
+    if isinstance(retries, bool) or not isinstance(retries, int) or retries < 0:
+        raise InputError(f"retries must be an int >= 0, got {retries!r}")
+    if executor is not None and workers is not None:
+        raise InputError("give either executor= or workers= (workers sizes the local pool), "
+                         "not both")
+    if workers is not None:
+        workers = _check_workers(workers)
+    if executor is not None and not isinstance(executor, Executor):
+        if hasattr(executor, "get_executor"):  # a dask.distributed Client
+            executor = executor.get_executor()
+        if not callable(getattr(executor, "submit", None)):
+            raise InputError("executor must be a concurrent.futures.Executor or a "
+                             f"dask.distributed Client, got {type(executor).__name__}")
+    if (store is None) != (keys is None):
+        raise InputError("store= and keys= go together: give both or neither")
+    if keys is not None:
+        if isinstance(keys, str):
+            raise InputError("keys must be a sequence of keys, one per item, got a single str")
+        keys = list(keys)
+        if len(keys) != len(items):
+            raise InputError(f"keys must hold one key per item ({len(items)}), got {len(keys)}")
+        for key in keys:
+            if key is not None and (not isinstance(key, str) or not key):
+                raise InputError(f"each key must be a non-empty str or None, got {key!r}")
+        if not all(callable(getattr(store, name, None)) for name in ("record", "put")):
+            raise InputError("store must be a confpop.store.ResultStore, "
+                             f"got {type(store).__name__}")
+
+    serial = executor is None and workers == 1
+    if not serial and (executor is None or isinstance(executor, ProcessPoolExecutor)):
+        try:
+            pickle.dumps(function)
+        except Exception as exc:
+            raise InputError(
+                "function must be picklable to run in worker processes (a module-level "
+                "function or functools.partial of one, not a lambda or a local function); "
+                f"pickling {function!r} failed: {exc}. Use workers=1 to run in this process."
+            ) from exc
+
+    bar = _progress_bar(progress, len(items), description)
+    try:
+        run = _Run(function, items, retries, store, keys, bar)
+        todo = []
+        for i in range(len(items)):
+            record = None if keys is None or keys[i] is None else store.record(keys[i])
+            if record is None:
+                todo.append(i)
+            else:
+                seconds = 0.0 if record.seconds is None else float(record.seconds)
+                run.outcomes[i] = UnitOutcome(i, True, record.value, from_store=True,
+                                              seconds=seconds)
+        bar.update(len(items) - len(todo))
+        if todo:
+            if serial:
+                run.serial(todo)
+            elif executor is not None:
+                run.on_executor(executor, todo)
+            else:
+                run.local_pool(todo, default_workers() if workers is None else workers)
+    finally:
+        bar.close()
+    return list(run.outcomes)
