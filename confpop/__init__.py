@@ -72,6 +72,7 @@ _PUBLIC: dict[str, str] = {
     "average_dipole": "nmr",
     "fit_populations": "nmr",
     "PopulationFit": "nmr",
+    "ResultStore": "store",
 }
 
 __all__ = sorted(_PUBLIC) + ["__version__"]
