@@ -295,9 +295,162 @@ def _run_ensemble(args: argparse.Namespace) -> int:
     return 0
 
 
+# --------------------------------------------------------------------------- couplings
+
+_COUPLINGS_CAUTION = (
+    "Caution: Karplus equations reproduce measured vicinal couplings to about 0.5-1 Hz, and "
+    "the populations behind these averages carry the energy method's error (see --energy-sigma)."
+)
+
+
+def _add_couplings(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("input", metavar="INPUT",
+                        help="an ensemble SDF written by confpop, or a SMILES (then a conformer "
+                             "search with default settings runs first)")
+    parser.add_argument("--temperature", "-T", nargs="+", type=_finite_float, default=[298.15],
+                        metavar="K", help="temperatures in kelvin (default 298.15); the fit uses the first")
+    parser.add_argument("--observed", metavar="FILE.csv", default=None,
+                        help="measured couplings, CSV columns atom_a, atom_b, J_hz [, sigma_hz] "
+                             "(0-based hydrogen indices as printed); fits the populations")
+    parser.add_argument("--parameters", default="auto",
+                        help="Karplus set: auto (default: Haasnoot-de Leeuw-Altona for H-C-C-H, "
+                             "Hu-Bax for amide H-N-C-H) or a set name, e.g. karplus-generic")
+    parser.add_argument("--by", choices=("group", "pair"), default="group",
+                        help="one row per group of equivalent protons (default) or per proton pair")
+    parser.add_argument("--energy-sigma", type=_finite_float, default=None, metavar="KCAL",
+                        help="add a Monte Carlo spread (5-95 %%) from this per-conformer energy "
+                             "error in kcal/mol (1 is typical for GFN2-xTB)")
+    parser.add_argument("--method", default="gfn2", help="method for a SMILES input (default gfn2)")
+    parser.add_argument("--solvent", default=None, help="implicit solvent for a SMILES input")
+    parser.add_argument("--seed", type=int, default=0, help="seed for sampling, spread and bootstrap")
+    parser.add_argument("--plot", metavar="FILE.png", default=None,
+                        help="write a figure: predicted vs observed with --observed, else J vs temperature")
+    parser.add_argument("--json", action="store_true", help="print machine-readable JSON only")
+
+
+def _plain(value):
+    """A JSON-ready Python value from a table cell (tuples of indices, numpy scalars)."""
+    if isinstance(value, tuple):
+        return [_plain(v) for v in value]
+    if hasattr(value, "item"):
+        value = value.item()
+    if isinstance(value, float):
+        return _json_number(value)
+    return value
+
+
+def _couplings_ensemble(args):
+    from pathlib import Path
+
+    if Path(args.input).is_file():
+        from .io import read_ensemble
+        return read_ensemble(args.input)
+    from .pipeline import search
+    return search(args.input, method=args.method, solvent=args.solvent, seed=args.seed,
+                  progress=False)
+
+
+def _run_couplings(args: argparse.Namespace) -> int:
+    import pandas as pd
+
+    from . import nmr
+
+    temps = [float(t) for t in args.temperature]
+    for t in temps:
+        if t <= 0:
+            raise InputError(f"temperature must be > 0 K, got {t}")
+    ens = _couplings_ensemble(args)
+    table = nmr.average_couplings(ens, temps, parameters=args.parameters, by=args.by)
+    id_cols = [c for c in table.columns if not isinstance(c, float)]
+    spread = None
+    if args.energy_sigma is not None:
+        spread = nmr.coupling_spread(ens, temps, parameters=args.parameters, by=args.by,
+                                     energy_sigma=args.energy_sigma, seed=args.seed)
+    fit = None
+    if args.observed:
+        observed = pd.read_csv(args.observed)
+        fit = nmr.fit_populations(ens, observed, temperature=temps[0], parameters=args.parameters,
+                                  seed=args.seed)
+    if args.plot:
+        from . import plot
+        if fit is not None:
+            plot.coupling_parity_plot(fit, path=args.plot)
+        else:
+            plot.coupling_temperature_plot(table, path=args.plot)
+
+    if args.json:
+        rows = []
+        for _, row in table.iterrows():
+            item = {c: _plain(row[c]) for c in id_cols}
+            item["J_hz"] = {format(t, "g"): _json_number(row[t]) for t in temps}
+            rows.append(item)
+        payload = {"temperatures_K": temps, "parameters": args.parameters, "by": args.by,
+                   "couplings": rows, "caution": _COUPLINGS_CAUTION}
+        if spread is not None:
+            payload["spread"] = {"energy_sigma_kcal_mol": args.energy_sigma, "rows": [
+                {"key": r["group"] if args.by == "group" else r["label"], "temperature_K": r["temperature"],
+                 **{k: _json_number(r[k]) for k in ("value", "mean", "std", "p05", "p95")}}
+                for _, r in spread.iterrows()]}
+        if fit is not None:
+            frame = fit.to_frame()
+            payload["fit"] = {
+                "temperature_K": fit.temperature, "chi2": fit.chi2,
+                "chi2_boltzmann": fit.chi2_boltzmann, "n_observations": fit.n_observations,
+                "rms_deviation_hz": _json_number(fit.rms_deviation), "warning": fit.warning,
+                "minimal_subset": list(fit.minimal_subset) if fit.minimal_subset else None,
+                "free_energy_unit": fit.unit,
+                "conformers": [{"conformer": int(cid), **{k: _json_number(v) for k, v in r.items()}}
+                               for cid, r in frame.iterrows()],
+                "residuals": [{k: _plain(v) for k, v in r.items()}
+                              for _, r in fit.residuals.iterrows()],
+            }
+        print(json.dumps(payload, indent=2, ensure_ascii=False, default=str))
+        return 0
+
+    key = "group" if args.by == "group" else "label"
+    width = max(len(key), *(len(str(v)) for v in table[key])) if len(table) else len(key)
+    lines = [f"{len(ens)} conformers ({ens.level}); population-averaged vicinal 3J(H,H) in Hz; "
+             "atom indices 0-based",
+             f"{key:<{width}}  {'set':<16}" + "".join(f"  {format(t, 'g') + ' K':>9}" for t in temps)]
+    for _, row in table.iterrows():
+        lines.append(f"{str(row[key]):<{width}}  {str(row['parameter_set']):<16}"
+                     + "".join(f"  {row[t]:>9.2f}" for t in temps))
+    if spread is not None:
+        lines.append(f"spread from a {args.energy_sigma:g} kcal/mol energy error "
+                     f"(Monte Carlo, at {temps[0]:g} K): 5-95 % interval in Hz")
+        for _, r in spread[spread["temperature"] == temps[0]].iterrows():
+            lines.append(f"{str(r[key]):<{width}}  {r['p05']:>6.2f} - {r['p95']:<6.2f}")
+    if fit is not None:
+        lines.append(f"fit to {fit.n_observations} observations at {fit.temperature:g} K: "
+                     f"chi2 {fit.chi2:.2f} (Boltzmann populations: {fit.chi2_boltzmann:.2f}); "
+                     f"rms deviation {fit.rms_deviation:.2f} Hz")
+        lines.append(f"{'conf':>4}  {'fitted':>7}  {'± std':>6}  {'Boltzmann':>9}  "
+                     f"{'implied dG ' + fit.unit:>20}")
+        for cid, r in fit.to_frame().iterrows():
+            dg = "inf" if not math.isfinite(r["free_energy"]) else f"{r['free_energy']:.2f}"
+            lines.append(f"{cid:>4}  {r['population']:>7.3f}  {r['population_std']:>6.3f}  "
+                         f"{r['boltzmann']:>9.3f}  {dg:>20}")
+        lines.append(f"{'observed':>24}  {'obs':>6}  {'fit':>6}  {'Boltz':>6}")
+        for _, r in fit.residuals.iterrows():
+            lines.append(f"{r['kind'] + ' ' + str(r['atom_a']) + '-' + str(r['atom_b']):>24}  "
+                         f"{r['observed']:>6.2f}  {r['predicted']:>6.2f}  {r['boltzmann']:>6.2f}")
+        if fit.minimal_subset:
+            lines.append(f"smallest conformer set explaining the data within the noise: "
+                         f"{list(fit.minimal_subset)} (chi2 {fit.minimal_subset_chi2:.2f})")
+        if fit.warning:
+            lines.append("warning: " + fit.warning)
+    if args.plot:
+        lines.append(f"wrote {args.plot}")
+    lines.append(_COUPLINGS_CAUTION)
+    print("\n".join(lines))
+    return 0
+
+
 # --------------------------------------------------------------------------- registry
 
 _COMMANDS: list[tuple] = [
+    ("couplings", _add_couplings, _run_couplings,
+     "population-averaged vicinal couplings; fit populations to measured couplings"),
     ("ensemble", _add_ensemble, _run_ensemble,
      "find, rank and weight the conformers of a molecule at several temperatures"),
     ("rates", _add_rates, _run_rates,

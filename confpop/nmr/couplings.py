@@ -243,12 +243,33 @@ def _hla_substituents(mol, h_a, x, y, h_b):
     return subs
 
 
+_BOND_MARK = {Chem.BondType.SINGLE: "-", Chem.BondType.DOUBLE: "=", Chem.BondType.TRIPLE: "#",
+              Chem.BondType.AROMATIC: ":"}
+
+
+def _atom_mark(atom: Chem.Atom) -> str:
+    if atom.GetIsAromatic():
+        return f"{atom.GetSymbol()}(ar)"
+    hyb = atom.GetHybridization()
+    if atom.GetAtomicNum() == 6 and hyb in (Chem.HybridizationType.SP2, Chem.HybridizationType.SP):
+        return f"{atom.GetSymbol()}({str(hyb).lower()})"
+    return atom.GetSymbol()
+
+
+def _fragment_name(mol, x, y) -> str:
+    """E.g. "H-C-C-H" (sp3-sp3 single bond), "H-C(sp2)=C(sp2)-H", "H-C-O-H", "H-C(sp2)-C-H"."""
+    ax, ay = mol.GetAtomWithIdx(x), mol.GetAtomWithIdx(y)
+    bond = _BOND_MARK.get(mol.GetBondBetweenAtoms(x, y).GetBondType(), "~")
+    return f"H-{_atom_mark(ax)}{bond}{_atom_mark(ay)}-H"
+
+
 def _classify(mol, h_a, x, y, h_b, overrides) -> _Pair:
     ax, ay = mol.GetAtomWithIdx(x), mol.GetAtomWithIdx(y)
-    kind = f"H-{ax.GetSymbol()}-{ay.GetSymbol()}-H"
+    kind = _fragment_name(mol, x, y)
     if _is_sp3_carbon(ax) and _is_sp3_carbon(ay):
         kind = "H-C-C-H"
-    elif {ax.GetAtomicNum(), ay.GetAtomicNum()} == {6, 7}:
+    elif ({ax.GetAtomicNum(), ay.GetAtomicNum()} == {6, 7}
+          and mol.GetBondBetweenAtoms(x, y).GetBondType() == Chem.BondType.SINGLE):
         n_atom, c_atom = (ax, ay) if ax.GetAtomicNum() == 7 else (ay, ax)
         if _is_amide_n(n_atom) and _is_sp3_carbon(c_atom):
             kind = "H-N-C-H"
@@ -293,10 +314,10 @@ def _parse_parameters(parameters):
     if isinstance(parameters, dict):
         overrides = {}
         for key, value in parameters.items():
-            if not isinstance(key, str) or key.count("-") != 3:
+            if not isinstance(key, str) or not (key.startswith("H-") and key.endswith("-H")):
                 raise InputError(f"parameters dict keys must be fragments like 'H-C-C-H' or "
-                                 f"'H-N-C-H', got {key!r}")
-            overrides[key.strip().upper()] = kp.get_parameters(value)
+                                 f"'H-N-C-H' (as in vicinal_pairs()['fragment']), got {key!r}")
+            overrides[key.strip()] = kp.get_parameters(value)
         return overrides, {p.name: p for p in overrides.values()}
     pset = kp.get_parameters(parameters)
     return {pset.pathway: pset}, {pset.name: pset}
@@ -415,7 +436,8 @@ def couplings(ens, parameters="auto") -> pd.DataFrame:
         "auto" picks a set per pair (see the module docstring). A set name or object
         replaces the automatic choice for the fragment it was made for (its ``pathway``,
         e.g. a user (A, B, C) set applies to every H-C-C-H between sp3 carbons); a dict maps
-        fragments (``"H-C-C-H"``, ``"H-N-C-H"``, or others such as ``"H-C-O-H"``) to sets.
+        fragment names as listed by :func:`vicinal_pairs` (``"H-C-C-H"`` for sp3-sp3,
+        ``"H-N-C-H"`` for amides, or others such as ``"H-C-O-H"``, ``"H-C(sp2)-C-H"``) to sets.
 
     Returns
     -------
