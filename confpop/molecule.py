@@ -27,6 +27,7 @@ Examples
 
 from __future__ import annotations
 
+import itertools
 import logging
 import math
 import os
@@ -36,7 +37,8 @@ from pathlib import Path
 
 import numpy as np
 from rdkit import Chem, rdBase
-from rdkit.Chem import rdCIPLabeler, rdDetermineBonds, rdForceFieldHelpers, rdMolDescriptors
+from rdkit.Chem import (AllChem, rdCIPLabeler, rdDetermineBonds, rdForceFieldHelpers,
+                        rdMolDescriptors)
 from rdkit.Chem.EnumerateStereoisomers import EnumerateStereoisomers, StereoEnumerationOptions
 
 from .errors import InputError
@@ -89,6 +91,14 @@ _METHOD_FAMILY = {
     "gfn2": "gfn", "gfn1": "gfn", "gfnff": "gfn", "tblite-gfn2": "gfn", "tblite-gfn1": "gfn",
     "gfn2-xtb": "gfn", "gfn1-xtb": "gfn", "model": None,
 }
+
+# Junction atoms of small bridged or fused ring systems have their relative configuration
+# forced by the rings (in/out isomers of a bridged system need rings of eight or more atoms;
+# a trans junction needs more than four atoms in each fused ring) [common practice]. RDKit
+# flags them as independent centres, which would make norbornane or adamantane "chiral".
+_FORCED_BRIDGED_MAX_RING = 7
+_FORCED_FUSED_MAX_RING = 4
+_PROBE_SEED = 0x5EED
 
 _PT = Chem.GetPeriodicTable()
 _SYMBOL_TO_Z = {_PT.GetElementSymbol(z).lower(): z for z in range(1, 119)}
@@ -257,7 +267,7 @@ def stereoisomers(source, *, max_isomers=64, embeddable_only=False, charge=None,
                 keep_largest_fragment=keep_largest_fragment, stereo="ignore", method=method,
                 name=name, warn_open_stereo=False)
     parent_name = mol.GetProp("_Name")
-    open_elements = _unassigned_stereo(mol)
+    mol, open_elements, units = _open_stereo(mol)
     _refuse_cumulenes(open_elements, mol)
     if 2 ** len(open_elements) > max_isomers:
         raise InputError(
@@ -282,6 +292,8 @@ def stereoisomers(source, *, max_isomers=64, embeddable_only=False, charge=None,
                 with rdBase.BlockLogs():
                     produced = list(EnumerateStereoisomers(parent, options=options))
                 for iso in produced:
+                    if not _fits_units(iso, units):
+                        continue  # a ring system with an impossible set of junctions
                     Chem.AssignStereochemistry(iso, cleanIt=True, force=True)
                     if [e for e in _unassigned_stereo(iso) if not e.cumulene]:
                         next_round.append(iso)
@@ -705,8 +717,8 @@ def _read_sdf(path, text):
                 raise _different_molecule(label, ref_label, mol, ref)
             mol = _renumber_like(mol, ref, label)
         conf = Chem.Conformer(mol.GetConformer())
-        for key, value in mol.GetPropsAsDict(includePrivate=False).items():
-            conf.SetProp(str(key), str(value))
+        for key in mol.GetPropNames():  # public SD data, kept as the text of the file
+            conf.SetProp(key, mol.GetProp(key))
         conf.SetProp("title", title)
         conf.SetId(index)
         merged.AddConformer(conf, assignId=False)
@@ -890,7 +902,11 @@ def _finish(parsed, *, charge, multiplicity, keep_largest_fragment, stereo, meth
         _check_geometry(mol, parsed)
         mol = _assign_stereo_from_coordinates(mol, parsed)
 
-    open_elements = _unassigned_stereo(mol)
+    units = []
+    if parsed.is3d:
+        open_elements = _unassigned_stereo(mol)
+    else:
+        mol, open_elements, units = _open_stereo(mol)
     if parsed.is3d:
         # the coordinates fix an allene's axis even though RDKit cannot record it
         for element in (e for e in open_elements if e.cumulene):
@@ -905,7 +921,7 @@ def _finish(parsed, *, charge, multiplicity, keep_largest_fragment, stereo, meth
     elif stereo == "refuse":
         _refuse_cumulenes(open_elements, mol)
         if open_elements:
-            raise _unassigned_stereo_error(mol, open_elements, label)
+            raise _unassigned_stereo_error(mol, open_elements, label, units)
     unassigned_note = "; ".join(e.text for e in open_elements)
     if open_elements and stereo == "ignore" and warn:
         logger.warning("%s: stereo left open (%s); conformer generation will pick each "
@@ -1046,9 +1062,167 @@ def _assign_stereo_from_coordinates(mol, parsed):
 
 @dataclass(frozen=True)
 class _StereoElement:
-    key: tuple          # (atom,) or (i, j)
+    key: tuple          # (atom,) or (i, j); the junction atoms for a ring unit
     text: str           # "atom 2 (C): unassigned tetrahedral centre"
     cumulene: bool = False
+    unit: bool = False
+
+
+@dataclass(frozen=True)
+class _RingUnit:
+    """Junction centres of one ring system whose configurations can only change together."""
+
+    atoms: tuple        # atom indices
+    tags: tuple         # one feasible set of chiral tags; the other is its mirror image
+
+
+_INVERTED = {Chem.ChiralType.CHI_TETRAHEDRAL_CW: Chem.ChiralType.CHI_TETRAHEDRAL_CCW,
+             Chem.ChiralType.CHI_TETRAHEDRAL_CCW: Chem.ChiralType.CHI_TETRAHEDRAL_CW}
+
+
+def _open_stereo(mol):
+    """(mol with forced stereo assigned, open stereo elements, ring units).
+
+    Two kinds of RDKit flags are settled here because they are no choice at all: junction
+    atoms of small bridged or fused ring systems whose configurations the rings force
+    (norbornane, adamantane, quinuclidine), and flags whose every assignment gives the same
+    molecule (C2 of 2-methyladamantane). Junctions of a chiral ring system (camphor) stay
+    open as one element with two mirror-image forms.
+    """
+    elements = _unassigned_stereo(mol)
+    settled, units = _settle_ring_junctions(mol, elements)
+    if settled is not mol:
+        elements = _unassigned_stereo(settled)
+    in_units = {a for u in units for a in u.atoms}
+    merged = [e for e in elements if not (len(e.key) == 1 and e.key[0] in in_units)]
+    for unit in units:
+        atoms = ", ".join(_atom(settled, a) for a in unit.atoms)
+        merged.append(_StereoElement(unit.atoms, f"atoms {atoms}: unassigned configuration of "
+                                                 f"the ring system (two mirror-image forms)",
+                                     unit=True))
+    choices = [e for e in merged if not e.cumulene]
+    if choices and len(choices) <= 6:
+        distinct = _distinct_isomers(settled, units, limit=2)
+        if len(distinct) == 1:
+            settled = distinct[0]
+            merged = [e for e in merged if e.cumulene]
+            units = []
+    return settled, merged, units
+
+
+def _settle_ring_junctions(mol, elements):
+    """Assign forced ring junctions; return (mol, chiral ring units left open)."""
+    open_atoms = {e.key[0] for e in elements if len(e.key) == 1}
+    if not open_atoms:
+        return mol, []
+    centres = {i.centeredOn for i in _stereo_elements(mol)
+               if i.type == Chem.StereoType.Atom_Tetrahedral}
+    forced = _forced_junctions(mol, centres)
+    forced_open = sorted(open_atoms & forced)
+    if not forced_open:
+        return mol, []
+    probe = Chem.Mol(mol)
+    params = AllChem.ETKDGv3()
+    params.randomSeed = _PROBE_SEED
+    with rdBase.BlockLogs():
+        if AllChem.EmbedMolecule(probe, params) < 0:
+            return mol, []  # cannot tell: every centre stays open
+    positions = probe.GetConformer().GetPositions()
+    system_of = _ring_systems(mol)
+    settled = Chem.Mol(mol)
+    units = []
+    for system in sorted({system_of[a] for a in forced_open}):
+        unit_atoms = [a for a in forced_open if system_of[a] == system]
+        fixed_partners = [a for a in forced if system_of[a] == system and a not in open_atoms]
+        tags = [_tag_from_geometry(mol, a, positions) for a in unit_atoms]
+        candidate = _with_tags(settled, unit_atoms, tags)
+        if not fixed_partners:
+            mirror = _with_tags(settled, unit_atoms, [_INVERTED[t] for t in tags])
+            if _isomeric_smiles(candidate) != _isomeric_smiles(mirror):
+                units.append(_RingUnit(tuple(unit_atoms), tuple(tags)))
+                continue
+        settled = candidate  # only one configuration exists (up to symmetry)
+    return settled, units
+
+
+def _distinct_isomers(mol, units, limit):
+    """Up to ``limit`` distinct stereoisomers completing ``mol`` (ring units respected)."""
+    options = StereoEnumerationOptions(onlyUnassigned=True, unique=True, maxIsomers=1024)
+    found = {}
+    with rdBase.BlockLogs():
+        for isomer in EnumerateStereoisomers(mol, options=options):
+            if not _fits_units(isomer, units):
+                continue
+            found.setdefault(_isomeric_smiles(isomer), isomer)
+            if len(found) >= limit:
+                break
+    return list(found.values())
+
+
+def _tag_from_geometry(mol, idx, positions):
+    """RDKit's chiral tag of atom ``idx`` in the given geometry.
+
+    The tag is CCW when the first three neighbours, in the atom's bond order, seen from the
+    centre span a positive volume (checked against ``AssignStereochemistryFrom3D`` for
+    three- and four-coordinate centres); it works for amine nitrogens, which RDKit's own
+    3D assignment skips.
+    """
+    atom = mol.GetAtomWithIdx(idx)
+    nbrs = [b.GetOtherAtomIdx(idx) for b in atom.GetBonds()][:3]
+    centre = positions[idx]
+    volume = np.dot(positions[nbrs[0]] - centre,
+                    np.cross(positions[nbrs[1]] - centre, positions[nbrs[2]] - centre))
+    return (Chem.ChiralType.CHI_TETRAHEDRAL_CCW if volume > 0
+            else Chem.ChiralType.CHI_TETRAHEDRAL_CW)
+
+
+def _forced_junctions(mol, centres):
+    rings = [set(r) for r in mol.GetRingInfo().AtomRings()]
+    forced = set()
+    for idx in centres:
+        atom = mol.GetAtomWithIdx(idx)
+        if sum(1 for b in atom.GetBonds() if b.IsInRing()) < 3:
+            continue
+        mine = [r for r in rings if idx in r]
+        if any(len(r) > _FORCED_BRIDGED_MAX_RING for r in mine):
+            continue
+        for a, b in itertools.combinations(mine, 2):
+            shared = len(a & b)
+            if shared >= 3 or (shared == 2 and max(len(a), len(b)) <= _FORCED_FUSED_MAX_RING):
+                forced.add(idx)
+                break
+    return forced
+
+
+def _ring_systems(mol):
+    """Map ring atom -> id of its ring system (rings joined through shared atoms)."""
+    parent = {}
+
+    def find(x):
+        while parent.setdefault(x, x) != x:
+            parent[x] = parent[parent[x]]
+            x = parent[x]
+        return x
+
+    for ring in mol.GetRingInfo().AtomRings():
+        for a in ring[1:]:
+            parent[find(a)] = find(ring[0])
+    return {a: find(a) for a in parent}
+
+
+def _with_tags(mol, atoms, tags):
+    out = Chem.Mol(mol)
+    for a, tag in zip(atoms, tags):
+        out.GetAtomWithIdx(a).SetChiralTag(tag)
+    return out
+
+
+def _fits_units(isomer, units):
+    for unit in units:
+        tags = tuple(isomer.GetAtomWithIdx(a).GetChiralTag() for a in unit.atoms)
+        if tags != unit.tags and tags != tuple(_INVERTED.get(t, t) for t in unit.tags):
+            return False
+    return True
 
 
 def _stereo_elements(mol):
@@ -1097,14 +1271,16 @@ def _refuse_cumulenes(elements, mol):
             f"yourself) or leave out the cumulene")
 
 
-def _unassigned_stereo_error(mol, elements, label):
+def _unassigned_stereo_error(mol, elements, label, units):
     n = len(elements)
     example = ""
     try:
+        options = StereoEnumerationOptions(onlyUnassigned=True, maxIsomers=256)
         with rdBase.BlockLogs():
-            first = next(iter(EnumerateStereoisomers(
-                mol, options=StereoEnumerationOptions(onlyUnassigned=True, maxIsomers=1))))
-        example = f" (for example {_isomeric_smiles(first)})"
+            for isomer in EnumerateStereoisomers(mol, options=options):
+                if _fits_units(isomer, units):
+                    example = f" (for example {_isomeric_smiles(isomer)})"
+                    break
     except Exception:  # noqa: BLE001 - an example is a courtesy only
         example = ""
     return InputError(
@@ -1234,12 +1410,19 @@ def _charge_and_multiplicity(mol, label, charge, multiplicity, hint):
                          f"{electrons} electrons")
     unpaired = spin - 1
     if spin < 1 or unpaired > electrons or (electrons - unpaired) % 2:
-        parity = "even" if electrons % 2 == 0 else "odd"
-        allowed = "1, 3, 5, ..." if electrons % 2 == 0 else "2, 4, 6, ..."
+        allowed = list(range(1 + electrons % 2, electrons + 2, 2))
+        if len(allowed) == 1:
+            allowed_text = f"only multiplicity {allowed[0]}"
+        elif len(allowed) <= 4:
+            allowed_text = (f"multiplicities {', '.join(map(str, allowed[:-1]))} or "
+                            f"{allowed[-1]}")
+        else:
+            allowed_text = (f"multiplicities {', '.join(map(str, allowed[:3]))}, ... up to "
+                            f"{allowed[-1]}")
         raise InputError(
-            f"{origin} is impossible for {label}: it has {electrons} electrons "
-            f"(charge {_signed(formal)}), an {parity} number, which allows multiplicities "
-            f"{allowed} (at most {electrons + 1})")
+            f"{origin} is impossible for {label}: it has {electrons} "
+            f"electron{'s' if electrons != 1 else ''} (charge {_signed(formal)}), which "
+            f"allows {allowed_text}")
     return formal, spin
 
 
