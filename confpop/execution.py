@@ -152,18 +152,41 @@ def _init_worker(started=None, environ=None) -> None:
                        os.getpid(), failed)
 
 
-def _run_unit(function, item, index: int, attempt: int, track: bool):
+def _run_unit(function, item):
     """Call ``function(item)``; return (ok, value, error_type, error_message, seconds)."""
-    started = _started if track else None
-    if started is not None:
-        started[index] = attempt
     start = time.perf_counter()
     try:
         value = function(item)
     except Exception as exc:  # a unit's failure is data, not an exception of the run
-        result = (False, None, type(exc).__name__, str(exc), time.perf_counter() - start)
+        return (False, None, type(exc).__name__, str(exc), time.perf_counter() - start)
+    return (True, value, None, None, time.perf_counter() - start)
+
+
+_function_cache: dict[bytes, Callable] = {}
+
+
+def _run_pooled_unit(function_blob: bytes, item_blob: bytes, index: int, attempt: int):
+    """Local pool entry: mark the unit as taken, then unpickle and run it.
+
+    Function and item travel pickled and are unpickled here, after the mark, so that a
+    worker dying anywhere in a unit's handling (imports, unpickling, the calculation) is
+    charged to that unit.
+    """
+    started = _started
+    if started is not None:
+        started[index] = attempt
+    try:
+        function = _function_cache.get(function_blob)
+        if function is None:
+            function = pickle.loads(function_blob)
+            _function_cache.clear()
+            _function_cache[function_blob] = function
+        item = pickle.loads(item_blob)
+    except Exception as exc:
+        result = (False, None, type(exc).__name__,
+                  f"cannot unpickle the unit in the worker process: {exc}", 0.0)
     else:
-        result = (True, value, None, None, time.perf_counter() - start)
+        result = _run_unit(function, item)
     if started is not None:
         started[index] = -attempt
     return result
@@ -238,6 +261,7 @@ class _Run:
         self.outcomes: list[UnitOutcome | None] = [None] * len(items)
         self.attempts = [0] * len(items)
         self._store_warned = False
+        self.function_blob = b""  # the pickled function, for the local pool
 
     # -- bookkeeping -------------------------------------------------------------------------
     def succeeded(self, i: int, value, seconds: float) -> None:
@@ -292,7 +316,7 @@ class _Run:
         for i in todo:
             while True:
                 self.attempts[i] += 1
-                result = _run_unit(self.function, self.items[i], i, self.attempts[i], False)
+                result = _run_unit(self.function, self.items[i])
                 if not self.handle(i, result):
                     break
 
@@ -305,8 +329,7 @@ class _Run:
                     i = queue.popleft()
                     self.attempts[i] += 1
                     try:
-                        future = executor.submit(_run_unit, self.function, self.items[i], i,
-                                                 self.attempts[i], False)
+                        future = executor.submit(_run_unit, self.function, self.items[i])
                     except Exception as exc:  # shut down or broken: nothing more can run here
                         self.attempts[i] -= 1
                         for j in (i, *queue):
@@ -332,6 +355,7 @@ class _Run:
             raise
 
     def local_pool(self, todo: Sequence[int], workers: int) -> None:
+        self.function_blob = pickle.dumps(self.function, protocol=pickle.HIGHEST_PROTOCOL)
         context = multiprocessing.get_context(START_METHOD)
         queue = deque(todo)   # units to run, in parallel
         quarantine = deque()  # units suspected of killing a worker: run one at a time
@@ -388,17 +412,20 @@ class _Run:
                 idle_breaks = self._sort_lost(lost, started, queue, quarantine, idle_breaks)
                 if idle_breaks >= _MAX_IDLE_BREAKS:
                     message = (f"{WORKER_DIED}: the local pool broke {idle_breaks} times in a row "
-                               "with no unit running (worker start-up failing?)")
+                               "before any unit started (can the workers import the function "
+                               "and unpickle the items?)")
                     for i in (*quarantine, *queue):
                         self.failed(i, "BrokenProcessPool", message, 0.0)
                     queue.clear()
                     quarantine.clear()
         except BaseException:
             if pool is not None:
+                # Do not leave long calculations running after an interrupt (the interpreter
+                # would wait for them at exit). Python 3.14 has terminate_workers(); before it,
+                # only the private dict, which shutdown() clears: take it first.
+                processes = list((getattr(pool, "_processes", None) or {}).values())
                 pool.shutdown(wait=False, cancel_futures=True)
-                # Do not leave long calculations running after an interrupt. Python 3.14 has
-                # ProcessPoolExecutor.terminate_workers(); before it, only the private dict.
-                for process in list((getattr(pool, "_processes", None) or {}).values()):
+                for process in processes:
                     process.terminate()
                 pool = None
             raise
@@ -408,10 +435,16 @@ class _Run:
 
     def _submit(self, pool, source: deque, pending: dict) -> None:
         i = source.popleft()
+        try:
+            item_blob = pickle.dumps(self.items[i], protocol=pickle.HIGHEST_PROTOCOL)
+        except Exception as exc:  # deterministic: no point in trying again
+            self.attempts[i] += 1
+            self.failed(i, type(exc).__name__, f"the item cannot be pickled: {exc}", 0.0)
+            return
         self.attempts[i] += 1
         try:
-            future = pool.submit(_run_unit, self.function, self.items[i], i, self.attempts[i],
-                                 True)
+            future = pool.submit(_run_pooled_unit, self.function_blob, item_blob, i,
+                                 self.attempts[i])
         except BaseException:
             self.attempts[i] -= 1
             source.appendleft(i)
@@ -420,11 +453,11 @@ class _Run:
 
     def _sort_lost(self, lost, started, queue, quarantine, idle_breaks) -> int:
         """After a worker died: charge the unit that was running, re-queue the rest."""
-        suspects = [i for i in lost if started[i] == self.attempts[i]]  # running, not returned
-        for i in lost:
-            if i not in suspects:  # never started (or finished): that attempt does not count
-                self.attempts[i] -= 1
-                queue.appendleft(i)
+        suspects = [i for i in lost if started[i] == self.attempts[i]]  # taken, not returned
+        requeue = [i for i in lost if i not in suspects]
+        for i in requeue:  # never taken (or finished): that attempt does not count
+            self.attempts[i] -= 1
+        queue.extendleft(reversed(requeue))
         if len(suspects) == 1:
             # Alone in flight, or the only one running: it killed the worker.
             i = suspects[0]
@@ -566,6 +599,14 @@ def run_units(function: Callable[[Any], Any], items: Iterable, *,
                 "function or functools.partial of one, not a lambda or a local function); "
                 f"pickling {function!r} failed: {exc}. Use workers=1 to run in this process."
             ) from exc
+        target = getattr(function, "func", function)  # functools.partial
+        main = sys.modules.get("__main__")
+        if getattr(target, "__module__", None) == "__main__" and \
+                not getattr(main, "__file__", None):
+            raise InputError(
+                f"function {getattr(target, '__qualname__', target)!r} is defined interactively "
+                "(a notebook or the interactive prompt), where worker processes cannot import "
+                "it: move it into a module, or use workers=1 to run in this process")
 
     bar = _progress_bar(progress, len(items), description)
     try:

@@ -141,10 +141,20 @@ def test_a_unit_that_kills_its_worker_costs_only_itself():
     assert all(o.attempts == 1 for i, o in enumerate(outcomes) if i != 2)
 
 
-def test_dead_worker_without_retries_is_tried_once():
-    outcomes = run_units(die_or_double, [(1, False), (2, True)], workers=2, retries=0)
-    assert [(o.ok, o.value, o.attempts) for o in outcomes] == [(True, 2, 1), (False, None, 1)]
+class DiesWhenUnpickled:
+    """An item whose unpickling ends the process that unpickles it (a worker)."""
+
+    def __reduce__(self):
+        return (os._exit, (1,))
+
+
+def test_death_while_unpickling_an_item_is_charged_to_that_unit_and_unpicklable_items_fail():
+    items = [3, DiesWhenUnpickled(), lambda: 0, 4]
+    outcomes = run_units(square_or_fail, items, workers=2, retries=0)
+    assert [(o.ok, o.value, o.attempts) for o in outcomes] == \
+        [(True, 9, 1), (False, None, 1), (False, None, 1), (True, 16, 1)]
     assert outcomes[1].error_message == "worker process died"
+    assert "the item cannot be pickled" in outcomes[2].error_message
 
 
 # -- one OpenMP thread per worker --------------------------------------------------------------
