@@ -1,0 +1,222 @@
+"""Populations fitted to couplings and NOE distances (confpop.nmr.fit), the figures and the
+``confpop couplings`` command.
+
+The data are generated here from known populations with the package's own forward model,
+so these tests check the inversion (recovery, noise behaviour, identifiability), not the
+Karplus equation (tests/test_nmr_karplus.py and test_nmr_couplings.py do that).
+"""
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+from rdkit import Chem
+from rdkit.Chem import AllChem
+from rdkit.Chem import rdForceFieldHelpers as FF
+from rdkit.Chem import rdMolTransforms
+
+from confpop.ensemble import Ensemble
+from confpop.errors import InputError
+from confpop.nmr import couplings, fit_populations, group_couplings, noe_distances, read_observations
+
+
+def rotamers(smiles, torsion, angles, seed=7):
+    """One MMFF94 minimum per start angle of ``torsion`` (constrained, then released)."""
+    mol = Chem.AddHs(Chem.MolFromSmiles(smiles))
+    AllChem.EmbedMolecule(mol, randomSeed=seed)
+    props = FF.MMFFGetMoleculeProperties(mol)
+    out = Chem.Mol(mol)
+    out.RemoveAllConformers()
+    energies = []
+    for k, angle in enumerate(angles):
+        m = Chem.Mol(mol)
+        rdMolTransforms.SetDihedralDeg(m.GetConformer(), *torsion, float(angle))
+        ff = FF.MMFFGetMoleculeForceField(m, props)
+        ff.MMFFAddTorsionConstraint(*torsion, False, float(angle), float(angle), 200.0)
+        ff.Minimize(maxIts=2000)
+        ff = FF.MMFFGetMoleculeForceField(m, props)
+        ff.Minimize(maxIts=2000)
+        energies.append(ff.CalcEnergy())
+        conf = Chem.Conformer(m.GetConformer())
+        conf.SetId(k)
+        out.AddConformer(conf, assignId=False)
+    return out, np.array(energies)
+
+
+TRUTH = np.array([0.6, 0.3, 0.1])
+
+
+@pytest.fixture(scope="module")
+def butanol():
+    # (S)-butan-2-ol, the three staggered rotamers about C2-C3 (atoms 0-1-2-3)
+    mol, e = rotamers("CC[C@H](C)O", (0, 1, 2, 3), [60, 180, 300])
+    return Ensemble.from_mol(mol, energies=e, unit="kcal/mol")
+
+
+@pytest.fixture(scope="module")
+def synthetic(butanol):
+    """Group-averaged couplings at TRUTH: {(a, b): J}."""
+    table = group_couplings(couplings(butanol))
+    j = table[[0, 1, 2]].to_numpy() @ TRUTH
+    return {(row.atoms_a[0], row.atoms_b[0]): float(v) for row, v in zip(table.itertuples(), j)}
+
+
+def test_recovers_known_populations(butanol, synthetic):
+    fit = fit_populations(butanol, synthetic, n_bootstrap=50, seed=1)
+    np.testing.assert_allclose(fit.populations.to_numpy(), TRUTH, atol=0.02)
+    assert fit.populations.sum() == pytest.approx(1.0, abs=1e-12)
+    assert fit.chi2 == pytest.approx(0.0, abs=1e-6)
+    assert fit.rms_deviation == pytest.approx(0.0, abs=1e-3)
+    assert fit.warning == ""
+    assert list(fit.residuals.columns) == ["kind", "atom_a", "atom_b", "group", "observed",
+                                           "predicted", "boltzmann", "residual", "sigma", "unit"]
+    # implied free energies: G_i - G_j = -RT ln(p_i / p_j) (degeneracy 1) [C]
+    rt = 1.987204258640832e-3 * 298.15  # REFERENCES: R in kcal/(mol K)
+    expected = -rt * np.log(fit.populations.to_numpy() / fit.populations.max())
+    np.testing.assert_allclose(fit.free_energies.to_numpy(), expected, atol=1e-9)
+    assert fit.free_energies.min() == 0.0
+
+
+def test_noise_degrades_gracefully(butanol, synthetic):
+    # error grows with the noise, and the parametric bootstrap std covers the truth
+    errors = {}
+    covered = 0
+    trials = 0
+    for noise in (0.0, 0.2, 0.5, 1.0):
+        errs = []
+        for seed in range(6):
+            rng = np.random.default_rng(100 + seed)
+            noisy = {k: v + rng.normal(0.0, noise) for k, v in synthetic.items()}
+            fit = fit_populations(butanol, noisy, sigma=max(noise, 0.05), n_bootstrap=60, seed=seed)
+            err = np.abs(fit.populations.to_numpy() - TRUTH)
+            errs.append(err.max())
+            if noise > 0:
+                trials += 3
+                covered += int(np.sum(err <= 3.0 * fit.population_std.to_numpy() + 1e-9))
+        errors[noise] = float(np.mean(errs))
+    assert errors[0.0] == pytest.approx(0.0, abs=0.02)
+    assert errors[0.0] < errors[0.2] < errors[0.5] < errors[1.0]
+    assert errors[0.5] < 0.35  # still informative at a typical Karplus error
+    assert covered / trials >= 0.9
+
+
+def test_equivalent_protons_match_the_group_average(butanol, synthetic):
+    # observing the methyl coupling via any methyl proton gives the same fit
+    key = next(k for k in synthetic if k[0] == 5)   # a (H5..H7 methyl, H8/H9) coupling
+    other = {(7 if a == 5 else a, b): v for (a, b), v in synthetic.items()}
+    f1 = fit_populations(butanol, synthetic, n_bootstrap=0)
+    f2 = fit_populations(butanol, other, n_bootstrap=0)
+    np.testing.assert_allclose(f1.populations, f2.populations, atol=1e-12)
+    assert key in synthetic
+
+
+def test_underdetermined_fit_says_so(butanol, synthetic):
+    # one rotamer-sensitive coupling + the sum rule cannot fix three populations
+    one = {(8, 10): synthetic[(8, 10)]}
+    fit = fit_populations(butanol, one, n_bootstrap=20)
+    assert "underdetermined" in fit.warning
+    assert fit.minimal_subset is not None and 1 <= len(fit.minimal_subset) <= 2
+    assert fit.minimal_subset_chi2 <= 3.85  # chi2 95 % point for 1 degree of freedom [C]
+    # the fitted populations reproduce the observation even though they are not unique
+    assert fit.residuals["residual"].abs().max() < 0.05
+
+
+def test_zero_population_gives_infinite_free_energy(butanol, synthetic):
+    table = group_couplings(couplings(butanol))
+    truth = np.array([0.7, 0.3, 0.0])
+    obs = {(r.atoms_a[0], r.atoms_b[0]): float(v)
+           for r, v in zip(table.itertuples(), table[[0, 1, 2]].to_numpy() @ truth)}
+    fit = fit_populations(butanol, obs, n_bootstrap=0)
+    np.testing.assert_allclose(fit.populations.to_numpy(), truth, atol=0.02)
+    zero = fit.populations.to_numpy() == 0.0
+    assert np.isinf(fit.free_energies.to_numpy()[zero]).all()
+    assert np.isfinite(fit.free_energies.to_numpy()[~zero]).all()
+
+
+def test_prior_pulls_towards_boltzmann(butanol, synthetic):
+    one = {(8, 10): synthetic[(8, 10)]}
+    fit = fit_populations(butanol, one, prior="boltzmann", prior_weight=1e6, n_bootstrap=0)
+    np.testing.assert_allclose(fit.populations, fit.boltzmann, atol=1e-3)
+    custom = pd.Series({0: 0.2, 1: 0.2, 2: 0.6})
+    fit = fit_populations(butanol, one, prior=custom, prior_weight=1e6, n_bootstrap=0)
+    np.testing.assert_allclose(fit.populations, custom.to_numpy(), atol=1e-3)
+
+
+def test_noe_observations_join_the_fit(butanol, synthetic):
+    pops = pd.DataFrame({298.15: TRUTH}, index=[0, 1, 2])
+    noe = noe_distances(butanol, 298.15, pairs=[(5, 10), (5, 11)], populations=pops)
+    obs = {("J", 8, 10): synthetic[(8, 10)]}
+    for row in noe.itertuples():
+        obs[("noe", row.atom_a, row.atom_b)] = (float(row[7]), 0.05)
+    fit = fit_populations(butanol, obs, n_bootstrap=0)
+    np.testing.assert_allclose(fit.populations.to_numpy(), TRUTH, atol=0.02)
+    assert set(fit.residuals["unit"]) == {"Hz", "angstrom"}
+    assert fit.rms_distance == pytest.approx(0.0, abs=1e-3)
+
+
+def test_dataframe_input_matches_dict(butanol, synthetic):
+    frame = pd.DataFrame([{"atom_a": a, "atom_b": b, "J_hz": v, "sigma_hz": 0.5}
+                          for (a, b), v in synthetic.items()])
+    f1 = fit_populations(butanol, frame, n_bootstrap=0)
+    f2 = fit_populations(butanol, synthetic, n_bootstrap=0)
+    np.testing.assert_allclose(f1.populations, f2.populations, atol=1e-12)
+    obs = read_observations(pd.DataFrame({"kind": ["noe"], "atom_a": [8], "atom_b": [4],
+                                          "value": [2.5], "sigma": [0.2]}))
+    assert obs[0].kind == "noe" and obs[0].value == 2.5 and obs[0].sigma == 0.2
+
+
+def test_bad_observations(butanol):
+    with pytest.raises(InputError, match="not a hydrogen"):
+        fit_populations(butanol, {(0, 10): 5.0}, n_bootstrap=0)
+    with pytest.raises(InputError, match="not a vicinal"):
+        fit_populations(butanol, {(8, 14): 5.0}, n_bootstrap=0)   # H8 to the O-H proton
+    with pytest.raises(InputError, match="equivalent"):
+        fit_populations(butanol, {(5, 6): 5.0}, n_bootstrap=0)
+    with pytest.raises(InputError, match="empty"):
+        fit_populations(butanol, {}, n_bootstrap=0)
+    with pytest.raises(InputError, match="kind"):
+        fit_populations(butanol, {("roe", 8, 10): 5.0}, n_bootstrap=0)
+    with pytest.raises(InputError, match="sigma must be > 0"):
+        fit_populations(butanol, {(8, 10): (5.0, -1.0)}, n_bootstrap=0)
+    with pytest.raises(InputError, match="temperature"):
+        fit_populations(butanol, {(8, 10): 5.0}, temperature=-3.0)
+
+
+# ----------------------------------------------------------------------------- figures
+def test_figures_are_written(butanol, synthetic, tmp_path):
+    from confpop import plot
+    from confpop.nmr import average_couplings
+
+    fit = fit_populations(butanol, synthetic, n_bootstrap=0)
+    fig = plot.coupling_parity_plot(fit, path=tmp_path / "parity.png")
+    assert (tmp_path / "parity.png").stat().st_size > 1000
+    assert fig.axes[0].get_xlabel().startswith("observed")
+    avg = average_couplings(butanol, [273.15, 298.15, 323.15], by="group")
+    plot.coupling_temperature_plot(avg, path=tmp_path / "jt.png")
+    assert (tmp_path / "jt.png").stat().st_size > 1000
+    with pytest.raises(InputError, match="temperature"):
+        plot.coupling_temperature_plot(avg[["group"]])
+
+
+# ----------------------------------------------------------------------------- command line
+def test_couplings_command(butanol, synthetic, tmp_path, capsys):
+    from confpop.cli import main
+
+    sdf = tmp_path / "ens.sdf"
+    butanol.to_sdf(sdf)
+    csv = tmp_path / "observed.csv"
+    pd.DataFrame([{"atom_a": a, "atom_b": b, "J_hz": round(v, 3)} for (a, b), v in synthetic.items()]
+                 ).to_csv(csv, index=False)
+    status = main(["couplings", str(sdf), "-T", "273.15", "298.15", "--observed", str(csv),
+                   "--json", "--plot", str(tmp_path / "fit.png")])
+    out = capsys.readouterr().out
+    assert status == 0
+    payload = json.loads(out)
+    assert payload["temperatures_K"] == [273.15, 298.15]
+    fitted = [c["population"] for c in payload["fit"]["conformers"]]
+    np.testing.assert_allclose(fitted, TRUTH, atol=0.02)
+    assert (tmp_path / "fit.png").stat().st_size > 1000
+    status = main(["couplings", str(sdf), "--observed", str(tmp_path / "missing.csv")])
+    err = capsys.readouterr().err
+    assert status == 2 and err.startswith("confpop: error:") and err.count("\n") == 1
