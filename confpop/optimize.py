@@ -331,7 +331,10 @@ def _run_geometric(backend, pos, crit, preset, max_steps, dihedrals, frozen):
                            convergence_grms=crit["grms"], convergence_gmax=crit["gmax"],
                            convergence_drms=crit["drms"], convergence_dmax=crit["dmax"],
                            # constraint violation in angstrom/degrees
-                           convergence_cmax=1e-3 if constraints else 1e-2)
+                           convergence_cmax=1e-3 if constraints else 1e-2,
+                           # satisfy constraints exactly once within 0.1 a.u./rad of them
+                           # (frozen atoms then stay put to ~1e-7 angstrom, not ~1e-4)
+                           enforce=0.1 if constraints else 0.0)
         engine = _make_engine_class()(molecule, backend)
         coords = pos.ravel() * ANGSTROM_BOHR
         optimizer = Optimizer(coords, molecule, ic, engine, scratch, params, print_info=False)
