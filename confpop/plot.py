@@ -65,7 +65,10 @@ def coupling_parity_plot(fit, path=None, ax=None, show_boltzmann: bool = True):
     if show_boltzmann and "boltzmann" in table.columns:
         ax.plot(obs, table["boltzmann"].to_numpy(float), "s", mfc="none", color="C1",
                 label="Boltzmann populations")
-    values = np.concatenate([obs, table["predicted"].to_numpy(float)])
+    values = [obs, table["predicted"].to_numpy(float)]
+    if show_boltzmann and "boltzmann" in table.columns:
+        values.append(table["boltzmann"].to_numpy(float))
+    values = np.concatenate(values)
     lo, hi = float(np.nanmin(values)) - 1.0, float(np.nanmax(values)) + 1.0
     ax.plot([lo, hi], [lo, hi], "k--", lw=0.8)
     ax.set_xlim(lo, hi)

@@ -188,7 +188,10 @@ def average_dipole(ens, temperatures, energy: str = "auto") -> pd.DataFrame:
     InputError
         If the ensemble has no ``dipole_debye`` column, or an active conformer has none.
     """
-    columns = list(getattr(ens, "raw_table", pd.DataFrame()).columns) if hasattr(ens, "raw_table") else []
+    columns = list(ens.raw_table.columns) if hasattr(ens, "raw_table") else []
+    if "dipole_debye" in columns and not np.isfinite(
+            ens.column("dipole_debye").to_numpy(dtype=float)).any():
+        columns.remove("dipole_debye")  # present but empty: the method computed no dipoles
     if "dipole_debye" not in columns:
         raise InputError("the ensemble has no 'dipole_debye' column: dipole moments are "
                          "recorded by engines that compute them (e.g. GFN2-xTB); rescore with "
@@ -197,7 +200,8 @@ def average_dipole(ens, temperatures, energy: str = "auto") -> pd.DataFrame:
     mu = ens.column("dipole_debye").reindex(pops.index).to_numpy(dtype=float)
     if np.any(~np.isfinite(mu)):
         bad = [int(i) for i, v in zip(pops.index, mu) if not np.isfinite(v)]
-        raise InputError(f"conformers {bad} have no dipole_debye value")
+        raise InputError(f"conformers {bad} have no dipole_debye value (computed at a level "
+                         "without dipole moments?)")
     w = pops.to_numpy(dtype=float)
     return pd.DataFrame({"mean_dipole": mu @ w, "rms_dipole": np.sqrt((mu ** 2) @ w)},
                         index=pd.Index([float(t) for t in pops.columns], name="temperature"))
