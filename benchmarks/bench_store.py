@@ -9,6 +9,7 @@ Prints
 - the start-up of a 2-worker local pool (time until its first two trivial units are back)
   with the "spawn" and "forkserver" start methods: cold (a fresh process, so forkserver must
   start its server too) and warm (later pools in the same process);
+- GFN2 single points through run_units, serial against a 2-worker pool;
 - the per-unit overhead of run_units on the local pool against a serial loop.
 Timings are medians of interleaved repeats; the machine may be shared, so compare ratios.
 """
@@ -38,6 +39,47 @@ from confpop.store import ResultStore, content_key  # noqa: E402
 
 def trivial(x):
     return x
+
+
+def gfn2_unit(item):
+    """One GFN2 single point + gradient: item = (MOL block with H, positions in angstrom)."""
+    from rdkit import Chem
+
+    from confpop.backends import get_backend
+
+    molblock, positions = item
+    mol = Chem.MolFromMolBlock(molblock, removeHs=False)
+    return get_backend("gfn2", mol).compute(positions, gradient=True).energy
+
+
+def nonanol():
+    from rdkit import Chem
+    from rdkit.Chem import AllChem
+
+    mol = Chem.AddHs(Chem.MolFromSmiles("CCCCCCCCCO"))
+    AllChem.EmbedMolecule(mol, randomSeed=11)
+    AllChem.MMFFOptimizeMolecule(mol)
+    assert mol.GetNumAtoms() == 30
+    return mol
+
+
+def bench_gfn2_throughput(n_units: int) -> tuple[float, float]:
+    """Wall time per GFN2 unit through run_units: serial, and a 2-worker local pool."""
+    from rdkit import Chem
+
+    mol = nonanol()
+    base = mol.GetConformer().GetPositions()
+    rng = np.random.default_rng(3)
+    items = [(Chem.MolToMolBlock(mol), base + rng.normal(scale=0.01, size=base.shape))
+             for _ in range(n_units)]
+    t0 = time.perf_counter()
+    serial = execution.run_units(gfn2_unit, items, workers=1)
+    t_serial = (time.perf_counter() - t0) / n_units
+    t0 = time.perf_counter()
+    pooled = execution.run_units(gfn2_unit, items, workers=2)
+    t_pool = (time.perf_counter() - t0) / n_units
+    assert [o.value for o in serial] == [o.value for o in pooled]
+    return t_serial, t_pool
 
 
 def typical_result(rng) -> dict:
@@ -77,14 +119,8 @@ def bench_store(n_records: int) -> dict:
 
 def gfn2_single_point() -> tuple[float, str]:
     """Median wall time of one GFN2 single point of 1-nonanol (30 atoms), and how it ran."""
-    from rdkit import Chem
-    from rdkit.Chem import AllChem
-
-    mol = Chem.AddHs(Chem.MolFromSmiles("CCCCCCCCCO"))
-    AllChem.EmbedMolecule(mol, randomSeed=11)
-    AllChem.MMFFOptimizeMolecule(mol)
+    mol = nonanol()
     positions = mol.GetConformer().GetPositions()
-    assert mol.GetNumAtoms() == 30
     backend_file = os.path.join(os.path.dirname(HERE), "confpop", "backends", "xtb.py")
     if os.path.exists(backend_file):
         from confpop.backends import get_backend
@@ -188,6 +224,12 @@ def main() -> None:
     for method, (cold, warm) in pools.items():
         print(f"  {method:10s} cold {cold * 1e3:7.1f} ms   warm {warm * 1e3:7.1f} ms")
     print(f"  run_units uses START_METHOD = {execution.START_METHOD!r}")
+
+    n_gfn2 = 16
+    t_serial, t_pool = bench_gfn2_throughput(n_gfn2)
+    print(f"\n{n_gfn2} GFN2 single points of 1-nonanol through run_units (pool start-up "
+          f"included): serial {t_serial * 1e3:.1f} ms/unit, 2-worker pool "
+          f"{t_pool * 1e3:.1f} ms/unit, speed-up {t_serial / t_pool:.2f}")
 
     serial, pooled = bench_run_units(400)
     print(f"\nrun_units per-unit overhead, trivial function, 400 units: serial "

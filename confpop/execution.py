@@ -100,8 +100,8 @@ class UnitOutcome:
 # --------------------------------------------------------------------------------------------
 # worker side
 # --------------------------------------------------------------------------------------------
-# shared array of the local pool: started[i] = attempt while unit i runs, -attempt once its
-# function has returned; it tells which unit was running when a worker process died.
+# shared array of the local pool: started[i] = attempt once a worker has taken unit i,
+# -attempt once its function has returned; it tells which unit a dead worker was running.
 _started = None
 
 
@@ -117,9 +117,9 @@ def _limit_loaded_openmp() -> tuple[list[str], list[str]]:
             lines = handle.read().splitlines()
     except OSError:  # not Linux: nothing to look at
         return [], []
-    paths = sorted({line.split(maxsplit=5)[-1] for line in lines
-                    if line.count(" ") >= 5 and os.path.basename(
-                        line.split(maxsplit=5)[-1]).startswith(_OPENMP_RUNTIMES)})
+    mapped = {parts[5] for parts in (line.split(maxsplit=5) for line in lines)
+              if len(parts) == 6}  # address perms offset device inode path
+    paths = sorted(p for p in mapped if os.path.basename(p).startswith(_OPENMP_RUNTIMES))
     failed = []
     for path in paths:
         try:

@@ -137,7 +137,8 @@ class ResultStore:
 
     def __init__(self, path: str | os.PathLike, *, timeout: float = 30.0):
         if isinstance(path, bytes) or not isinstance(path, (str, os.PathLike)):
-            raise InputError(f"path must be a file path (str or os.PathLike), got {type(path).__name__}")
+            raise InputError("path must be a file path (str or os.PathLike), "
+                             f"got {type(path).__name__}")
         self.path = os.fspath(path)
         if not self.path:
             raise InputError("path must be a file path, got an empty string")
@@ -187,7 +188,8 @@ class ResultStore:
         except FileNotFoundError:
             return
         except IsADirectoryError:
-            raise StoreError(f"result store path {self.path!r} is a directory, not a file") from None
+            raise StoreError(
+                f"result store path {self.path!r} is a directory, not a file") from None
         except OSError as exc:
             raise StoreError(f"cannot read result store {self.path!r}: {exc}") from exc
         if head and head != _SQLITE_MAGIC:
