@@ -47,6 +47,7 @@ __all__ = [
     "load_molecule",
     "stereoisomers",
     "stereo_signature",
+    "configuration_smiles",
     "bond_graph_from_coordinates",
     "molecule_summary",
     "STEREO_POLICIES",
@@ -369,9 +370,44 @@ def stereo_signature(mol: Chem.Mol, conf_id: int = -1) -> tuple:
     work = Chem.Mol(mol, True)  # quick copy: graph only, no conformers or properties
     work.AddConformer(Chem.Conformer(conf), assignId=True)
     Chem.RemoveStereochemistry(work)
-    with rdBase.BlockLogs():
-        Chem.AssignStereochemistryFrom3D(work, confId=work.GetConformer().GetId())
+    _assign_from_coordinates(work, work.GetConformer().GetId())
     return _stereo_labels(work, conf)
+
+
+def configuration_smiles(mol: Chem.Mol, conf_id: int = -1) -> str:
+    """Isomeric SMILES of the stereoisomer that one conformer's coordinates show.
+
+    Unlike a per-atom comparison of :func:`stereo_signature`, equality of these strings is
+    blind to the molecule's symmetry: the two mirror-image conformers of a meso compound
+    (atom 1 R and atom 2 S in one, atom 1 S and atom 2 R in the other) give the same string.
+
+    Parameters
+    ----------
+    mol : rdkit.Chem.Mol
+        Molecule with explicit hydrogens and at least one 3D conformer.
+    conf_id : int, default -1
+        Conformer id (-1: the first conformer).
+
+    Returns
+    -------
+    str
+        Canonical isomeric SMILES (hydrogens implicit), configuration from the coordinates.
+
+    Examples
+    --------
+    >>> from rdkit.Chem import AllChem
+    >>> mol = load_molecule("C[C@@H](O)CC")
+    >>> AllChem.EmbedMolecule(mol, randomSeed=7)
+    0
+    >>> configuration_smiles(mol, 0)
+    'CC[C@@H](C)O'
+    """
+    conf = _get_conformer(mol, conf_id, "configuration_smiles")
+    work = Chem.Mol(mol, True)
+    work.AddConformer(Chem.Conformer(conf), assignId=True)
+    Chem.RemoveStereochemistry(work)
+    _assign_from_coordinates(work, work.GetConformer().GetId())
+    return _isomeric_smiles(work)
 
 
 def bond_graph_from_coordinates(mol: Chem.Mol, conf_id: int = -1, tolerance: float = BOND_TOLERANCE
@@ -1039,11 +1075,11 @@ def _assign_stereo_from_coordinates(mol, parsed):
                 f"the coordinates of {_conformer_label(parsed, first)} make it {ref_map[key]}; "
                 f"fix the flags or the coordinates")
     Chem.RemoveStereochemistry(mol)
-    with rdBase.BlockLogs():
-        Chem.AssignStereochemistryFrom3D(mol, confId=first)
+    _assign_from_coordinates(mol, first)
+    ref_smiles = configuration_smiles(mol, first)
     for conf_id in conf_ids[1:]:
-        signature = dict(stereo_signature(mol, conf_id))
-        if signature != ref_map:
+        if configuration_smiles(mol, conf_id) != ref_smiles:
+            signature = dict(stereo_signature(mol, conf_id))
             diffs = [f"{_element_text(mol, key)} is {signature.get(key, 'not stereogenic')} "
                      f"there, {ref_map.get(key, 'not stereogenic')} in "
                      f"{_conformer_label(parsed, first)}"
@@ -1159,21 +1195,52 @@ def _distinct_isomers(mol, units, limit):
     return list(found.values())
 
 
-def _tag_from_geometry(mol, idx, positions):
-    """RDKit's chiral tag of atom ``idx`` in the given geometry.
+def _tag_from_geometry(mol, idx, positions, min_volume=0.0):
+    """RDKit's chiral tag of atom ``idx`` in the given geometry (None if flatter than allowed).
 
-    The tag is CCW when the first three neighbours, in the atom's bond order, seen from the
-    centre span a positive volume (checked against ``AssignStereochemistryFrom3D`` for
-    three- and four-coordinate centres); it works for amine nitrogens, which RDKit's own
-    3D assignment skips.
+    The tag is CCW when the unit vectors to the first three neighbours, in the atom's bond
+    order, span a positive volume (checked against ``AssignStereochemistryFrom3D`` for
+    three- and four-coordinate centres); it works for amine nitrogens (aziridines, bridgehead
+    amines), which RDKit's own 3D assignment skips. A regular tetrahedral centre gives a
+    volume of 0.77, a planar one 0.
     """
     atom = mol.GetAtomWithIdx(idx)
     nbrs = [b.GetOtherAtomIdx(idx) for b in atom.GetBonds()][:3]
-    centre = positions[idx]
-    volume = np.dot(positions[nbrs[0]] - centre,
-                    np.cross(positions[nbrs[1]] - centre, positions[nbrs[2]] - centre))
+    if len(nbrs) < 3:
+        return None
+    vectors = positions[nbrs] - positions[idx]
+    lengths = np.linalg.norm(vectors, axis=1)
+    if np.any(lengths == 0):
+        return None
+    vectors = vectors / lengths[:, None]
+    volume = float(np.dot(vectors[0], np.cross(vectors[1], vectors[2])))
+    if abs(volume) <= min_volume:
+        return None
     return (Chem.ChiralType.CHI_TETRAHEDRAL_CCW if volume > 0
             else Chem.ChiralType.CHI_TETRAHEDRAL_CW)
+
+
+# a centre flatter than this (normalized volume, see _tag_from_geometry) has no configuration
+_MIN_CHIRAL_VOLUME = 0.1
+
+
+def _assign_from_coordinates(mol, conf_id):
+    """Stereo flags of ``mol`` from one conformer, amine nitrogens included."""
+    with rdBase.BlockLogs():
+        Chem.AssignStereochemistryFrom3D(mol, confId=conf_id)
+    positions = mol.GetConformer(conf_id).GetPositions()
+    for _ in range(3):  # a newly set centre can make another one stereogenic
+        changed = False
+        for info in _stereo_elements(mol):
+            if (info.type != Chem.StereoType.Atom_Tetrahedral
+                    or info.specified == Chem.StereoSpecified.Specified):
+                continue
+            tag = _tag_from_geometry(mol, info.centeredOn, positions, _MIN_CHIRAL_VOLUME)
+            if tag is not None:
+                mol.GetAtomWithIdx(info.centeredOn).SetChiralTag(tag)
+                changed = True
+        if not changed:
+            break
 
 
 def _forced_junctions(mol, centres):
@@ -1318,6 +1385,8 @@ def _stereo_labels(mol, conf):
                 tag = atom.GetChiralTag()
                 lab = {Chem.ChiralType.CHI_TETRAHEDRAL_CCW: "@",
                        Chem.ChiralType.CHI_TETRAHEDRAL_CW: "@@"}.get(tag, "?")
+                if lab != "?" and _inversion_changes_nothing(mol, info.centeredOn):
+                    continue  # a cage junction (adamantane): no configuration of its own
             labels.append(((info.centeredOn,), lab))
         else:
             bond = work.GetBondWithIdx(info.centeredOn)
@@ -1334,6 +1403,13 @@ def _stereo_labels(mol, conf):
                 lab = _cis_trans_from_flags(bond)
             labels.append((key, lab))
     return tuple(sorted(labels))
+
+
+def _inversion_changes_nothing(mol, idx):
+    flipped = Chem.Mol(mol, True)
+    atom = flipped.GetAtomWithIdx(idx)
+    atom.SetChiralTag(_INVERTED.get(atom.GetChiralTag(), atom.GetChiralTag()))
+    return _isomeric_smiles(flipped) == _isomeric_smiles(Chem.Mol(mol, True))
 
 
 def _lowest_other_neighbour(atom, other_idx):

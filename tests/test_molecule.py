@@ -18,8 +18,8 @@ from rdkit.Chem import AllChem, rdCIPLabeler, rdDetermineBonds, rdForceFieldHelp
 
 import confpop
 from confpop.errors import InputError
-from confpop.molecule import (bond_graph_from_coordinates, load_molecule, molecule_summary,
-                              stereo_signature, stereoisomers)
+from confpop.molecule import (bond_graph_from_coordinates, configuration_smiles, load_molecule,
+                              molecule_summary, stereo_signature, stereoisomers)
 
 DATA = Path(__file__).parent / "data"
 BUTANOL_SDF = DATA / "molecule_butanol_single.sdf"
@@ -568,6 +568,22 @@ def test_3d_input_takes_stereo_from_coordinates(tmp_path):
     assert atoms == {1: "R"} and list(bonds.values()) == ["E"]
 
 
+@pytest.mark.parametrize("smiles, centres", [
+    ("C[N@@]1C[C@H]1C", 2),     # an aziridine nitrogen inverts slowly: a real centre [from memory]
+    ("C1CN2CCC1CC2", 0),        # quinuclidine: cage junctions have no configuration of their own
+    ("C1C2CC3CC1CC(C2)C3", 0),  # adamantane
+    ("CC1(C)C2CC[C@@]1(C)C(=O)C2", 2),  # (1R,4R)-camphor: both bridgeheads carry CIP labels
+])
+def test_3d_input_reads_every_centre_from_coordinates(centres, smiles):
+    mol = embedded(smiles, n=2, seed=3)
+    Chem.RemoveStereochemistry(mol)  # only the coordinates tell
+    loaded = load_molecule(mol)
+    signature = stereo_signature(loaded, 0)
+    assert len(signature) == centres
+    assert "?" not in dict(signature).values()
+    assert configuration_smiles(loaded, 1) == configuration_smiles(loaded, 0)
+
+
 def test_conformers_of_different_configuration_are_refused():
     mol = embedded("C[C@@H](O)CC", n=2, seed=2)
     conf = mol.GetConformer(1)
@@ -576,6 +592,29 @@ def test_conformers_of_different_configuration_are_refused():
         conf.SetAtomPosition(i, xyz.tolist())
     with pytest.raises(InputError, match=r"conformer 1 is a different stereoisomer \(atom 1 \(C\) is S"):
         load_molecule(mol)
+
+
+def mirrored_second_conformer(smiles):
+    mol = embedded(smiles, n=2, seed=2)
+    conf = mol.GetConformer(1)
+    for i, xyz in enumerate(conf.GetPositions() * np.array([-1.0, 1.0, 1.0])):
+        conf.SetAtomPosition(i, xyz.tolist())
+    Chem.RemoveStereochemistry(mol)
+    return mol
+
+
+def test_mirror_image_conformers_of_a_meso_compound_are_one_stereoisomer():
+    # meso-butane-2,3-diol equals its mirror image (its SMILES is unchanged by swapping @/@@);
+    # the (R,R) isomer does not
+    meso = load_molecule(mirrored_second_conformer("C[C@@H](O)[C@H](C)O"))
+    assert meso.GetNumConformers() == 2
+    canonical = Chem.MolToSmiles(Chem.MolFromSmiles("C[C@@H](O)[C@H](C)O"))
+    assert configuration_smiles(meso, 0) == configuration_smiles(meso, 1) == canonical
+    # per atom the labels are swapped: R,S in one conformer, S,R in the other
+    assert sorted(dict(stereo_signature(meso, 0)).values()) == ["R", "S"]
+    assert stereo_signature(meso, 0) != stereo_signature(meso, 1)
+    with pytest.raises(InputError, match=r"conformer 1 is a different stereoisomer"):
+        load_molecule(mirrored_second_conformer("C[C@@H](O)[C@@H](C)O"))
 
 
 def test_flags_contradicting_coordinates_are_refused():
