@@ -126,13 +126,13 @@ class ResultStore:
     Examples
     --------
     >>> import os, tempfile
-    >>> path = os.path.join(tempfile.mkdtemp(), "results.sqlite")
-    >>> with ResultStore(path) as store:
-    ...     store.put("abc", {"energy": -5.07}, seconds=0.03)
-    ...     print(store.get("abc"), "abc" in store, len(store))
-    {'energy': -5.07} True 1
-    >>> ResultStore(path).get("missing") is None
-    True
+    >>> with tempfile.TemporaryDirectory() as folder:
+    ...     path = os.path.join(folder, "results.sqlite")
+    ...     with ResultStore(path) as store:
+    ...         store.put("abc", {"energy": -5.07}, seconds=0.03)
+    ...     with ResultStore(path) as again:  # a later run
+    ...         print(again.get("abc"), "abc" in again, len(again), again.get("xyz"))
+    {'energy': -5.07} True 1 None
     """
 
     def __init__(self, path: str | os.PathLike, *, timeout: float = 30.0):
