@@ -29,6 +29,7 @@ _REGISTRY: dict[str, str] = {
     "tblite-gfn2": "confpop.backends.tblite:TbliteGFN2",
     "tblite-gfn1": "confpop.backends.tblite:TbliteGFN1",
     "model": "confpop.backends.model:ModelTorsion",
+    "dft": "confpop.backends.dft:DFT",
 }
 
 _EXTRA = {"confpop.backends.xtb": "xtb (pip install xtb typing_extensions)",
