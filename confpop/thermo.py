@@ -194,6 +194,9 @@ def _log_degeneracy(g: np.ndarray | None):
 # rows of temperatures are processed in blocks of about this many elements, so the reduced
 # energies, their exponentials and the row sums are computed while the block is in cache
 _BLOCK_ELEMENTS = 1 << 15
+# beyond this ratio of the largest to the smallest positive degeneracy, weights are formed
+# in log space (see boltzmann_weights)
+_MAX_DEGENERACY_RATIO = 1e100
 
 
 # --------------------------------------------------------------------------- weights
@@ -231,9 +234,9 @@ def boltzmann_weights(energies, temperature, unit: str = "kcal/mol", degeneracy=
     -----
     .. math:: p_i(T) = \frac{g_i\, e^{-E_i/RT}}{\sum_j g_j\, e^{-E_j/RT}}
 
-    evaluated with the log-sum-exp shift: energies are first taken relative to the lowest
-    one, then the exponent of every row is shifted by its maximum, so no term overflows and
-    the normalisation never underflows to zero. Weights below ~1e-308 are returned as 0.
+    evaluated with the log-sum-exp shift: energies are first taken relative to the lowest one
+    (among conformers with g > 0), so every exponent is <= 0, no term overflows and the
+    normalisation is at least min(g > 0), never 0. Weights below ~1e-308 are returned as 0.
     The work is done in place in the (n_T, n) float64 output, a block of temperatures at a
     time (peak memory ≈ the output).
 
@@ -254,7 +257,18 @@ def boltzmann_weights(energies, temperature, unit: str = "kcal/mol", degeneracy=
     n = e.shape[-1]
     neg_beta = -1.0 / (gas_constant(unit) * t)
     e_ref = _reference_energy(e, g)
-    log_g = _log_degeneracy(g)
+    # Degeneracies within a sane range multiply the exponentials (fewer passes over the
+    # data): every exponent is <= 0 and the reference conformer contributes g_ref * 1, so
+    # the normalisation is >= min(g > 0) and no term can overflow. Absurd ranges of g go
+    # through log space with a per-row shift instead.
+    log_g = None
+    if g is not None:
+        positive = g[g > 0.0]
+        if math.log(positive.max()) - math.log(positive.min()) > math.log(_MAX_DEGENERACY_RATIO):
+            log_g = _log_degeneracy(g)
+        elif positive.size < g.size:
+            # a masked (g = 0) conformer may lie below e_ref: give it e_ref, its weight is 0
+            e = np.where(g > 0.0, e, e_ref if e.ndim == 1 else e_ref[:, None])
     x = np.empty((t.size, n))
     step = max(1, _BLOCK_ELEMENTS // n)
     for start in range(0, t.size, step):
@@ -262,10 +276,10 @@ def boltzmann_weights(energies, temperature, unit: str = "kcal/mol", degeneracy=
         block = x[rows]
         _reduced_into(block, e, e_ref, neg_beta, log_g, rows)
         if log_g is not None:
-            # with degeneracies the largest term need not be the lowest energy: shift per row
             block -= block.max(axis=1, keepdims=True)
-        # without degeneracies every row already has its maximum, 0, at the lowest energy
         np.exp(block, out=block)
+        if g is not None and log_g is None:
+            block *= g
         norm = block.sum(axis=1, keepdims=True)
         np.reciprocal(norm, out=norm)
         block *= norm

@@ -141,6 +141,18 @@ def test_degeneracy_zero_masks_a_conformer():
     np.testing.assert_allclose(w[1:], boltzmann_weights([0.0, 1.0], 298.15), rtol=1e-14)
     assert log_boltzmann_weights([-5.0, 0.0], 298.15, degeneracy=[0, 1])[0] == -np.inf
     assert ensemble_free_energy([-5.0, 0.0], 298.15, degeneracy=[0, 1]) == pytest.approx(0.0, abs=1e-15)
+    # a masked conformer far below the rest at low T must not overflow (found by hypothesis)
+    assert boltzmann_weights([-2.0, 0.0], 1.0, degeneracy=[0, 1]).tolist() == [0.0, 1.0]
+    assert boltzmann_weights([[-2.0, 0.0], [0.0, -5.0]], [1.0, 2.0], degeneracy=[0, 1]).tolist() == [
+        [0.0, 1.0], [0.0, 1.0]]
+
+
+def test_extreme_degeneracy_ratios_agree_with_log_space():
+    e = [0.0, 1.0, 2.0]
+    for g in ([1e-200, 1e200, 1.0], [1.0, 3.0, 1e150]):
+        np.testing.assert_allclose(boltzmann_weights(e, 300.0, degeneracy=g),
+                                   np.exp(log_boltzmann_weights(e, 300.0, degeneracy=g)),
+                                   rtol=1e-13, atol=1e-300)
 
 
 def test_ensemble_free_energy_identity_with_mixing_entropy():
