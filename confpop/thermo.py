@@ -166,9 +166,12 @@ def _reference_energy(e: np.ndarray, g: np.ndarray | None):
 
 
 def _reduced_into(out: np.ndarray, e: np.ndarray, e_ref, neg_beta: np.ndarray, log_g, rows: slice):
-    """Write x[j, i] = -(E_i - e_ref_j) / (R T_j) + ln g_i for the temperature rows `rows`."""
+    """Write x[j, i] = -(E_i - e_ref_j) / (R T_j) + ln g_i for the temperature rows `rows`.
+
+    For 1-D energies already taken relative to the reference, pass ``e_ref=None``.
+    """
     if e.ndim == 1:
-        np.multiply.outer(neg_beta[rows], e - e_ref, out=out)
+        np.multiply.outer(neg_beta[rows], e if e_ref is None else e - e_ref, out=out)
     else:
         np.subtract(e[rows], e_ref[rows, None], out=out)
         out *= neg_beta[rows, None]
@@ -269,6 +272,8 @@ def boltzmann_weights(energies, temperature, unit: str = "kcal/mol", degeneracy=
         elif positive.size < g.size:
             # a masked (g = 0) conformer may lie below e_ref: give it e_ref, its weight is 0
             e = np.where(g > 0.0, e, e_ref if e.ndim == 1 else e_ref[:, None])
+    if e.ndim == 1:  # shift once, not once per block
+        e, e_ref = e - e_ref, None
     x = np.empty((t.size, n))
     step = max(1, _BLOCK_ELEMENTS // n)
     for start in range(0, t.size, step):
