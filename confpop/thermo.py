@@ -688,7 +688,9 @@ def ideal_gas_thermo(
     frequencies : (m,) array, cm^-1
         Vibrational frequencies (3N-6, or 3N-5 for a linear molecule; translations and
         rotations already removed). Negative values stand for imaginary modes: they are left
-        out and reported in ``imaginary_frequencies``. Zero is rejected.
+        out and reported in ``imaginary_frequencies`` (a small spurious imaginary mode of a
+        minimum is left out too; pass its absolute value if you judge it numerical noise).
+        Zero is rejected.
     mass : float, amu
         Molecular mass (for spectroscopic constants of the main isotopologue, its exact mass).
     rotational_constants : sequence, cm^-1
