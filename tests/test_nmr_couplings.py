@@ -108,6 +108,11 @@ def test_pair_kinds_and_sets():
     by_path = {tuple(p): s for p, s in zip(pairs["path"], pairs["parameter_set"])}
     assert by_path[(13, 3, 4, 14)] == "hu-bax-1997"
     assert by_path[(14, 4, 5, 15)] == "haasnoot-2"  # C-alpha has N and C(=O): 2 substituents
+    assert set(pairs.loc[pairs["parameter_set"] == "hu-bax-1997", "fragment"]) == {"H-N(amide)-C-H"}
+    # an amine H-N-C-H is not an amide: no protein backbone set for it
+    mol = lowest_mmff("CNC", n=1)
+    pairs = vicinal_pairs(mol)
+    assert set(pairs["fragment"]) == {"H-C-N-H"} and pairs["parameter_set"].isna().all()
     # propene: the H-C=C-H pairs have no rotamer-dependent set and are reported, not predicted
     mol = lowest_mmff("C=CC", n=1)
     pairs = vicinal_pairs(mol)

@@ -7,7 +7,8 @@ parameter set by its fragment ("auto"):
   number of non-H substituents on the fragment (``haasnoot-general`` for 0-1,
   ``haasnoot-2``/``-3``/``-4``); when an atom within two bonds of the fragment has no Huggins
   electronegativity in the table the pair falls back to ``karplus-generic``.
-- H-N-C-H with an amide N (bonded to a carbonyl carbon) and an sp3 carbon: ``hu-bax-1997``.
+- H-N-C-H with an amide N (bonded to a carbonyl carbon) and an sp3 carbon, fragment name
+  ``"H-N(amide)-C-H"``: ``hu-bax-1997``.
 - anything else (alkene and aromatic H-C=C-H, H-C-O-H, H-C(sp3)-C(sp2)-H, ...): listed by
   :func:`vicinal_pairs` with ``parameter_set`` None and the reason, and left out of
   :func:`couplings` (no conformer-dependent Karplus set is shipped for them).
@@ -257,10 +258,12 @@ def _atom_mark(atom: Chem.Atom) -> str:
 
 
 def _fragment_name(mol, x, y) -> str:
-    """E.g. "H-C-C-H" (sp3-sp3 single bond), "H-C(sp2)=C(sp2)-H", "H-C-O-H", "H-C(sp2)-C-H"."""
+    """E.g. "H-C-C-H" (sp3-sp3 single bond), "H-C(sp2)=C(sp2)-H", "H-C-O-H", "H-C(sp2)-C-H"
+    (amides are renamed "H-N(amide)-C-H" by the caller)."""
     ax, ay = mol.GetAtomWithIdx(x), mol.GetAtomWithIdx(y)
     bond = _BOND_MARK.get(mol.GetBondBetweenAtoms(x, y).GetBondType(), "~")
-    return f"H-{_atom_mark(ax)}{bond}{_atom_mark(ay)}-H"
+    # the same name whichever end comes first: the alphabetically smaller spelling
+    return min(f"H-{_atom_mark(ax)}{bond}{_atom_mark(ay)}-H", f"H-{_atom_mark(ay)}{bond}{_atom_mark(ax)}-H")
 
 
 def _classify(mol, h_a, x, y, h_b, overrides) -> _Pair:
@@ -272,7 +275,7 @@ def _classify(mol, h_a, x, y, h_b, overrides) -> _Pair:
           and mol.GetBondBetweenAtoms(x, y).GetBondType() == Chem.BondType.SINGLE):
         n_atom, c_atom = (ax, ay) if ax.GetAtomicNum() == 7 else (ay, ax)
         if _is_amide_n(n_atom) and _is_sp3_carbon(c_atom):
-            kind = "H-N-C-H"
+            kind = "H-N(amide)-C-H"
     chosen = overrides.get(kind) if overrides else None
     if kind == "H-C-C-H":
         subs = _hla_substituents(mol, h_a, x, y, h_b)
@@ -289,7 +292,7 @@ def _classify(mol, h_a, x, y, h_b, overrides) -> _Pair:
             return _Pair(h_a, x, y, h_b, kind, None,
                          "an atom near the fragment has no Huggins electronegativity", ())
         return _Pair(h_a, x, y, h_b, kind, pset.name, "", packed)
-    if kind == "H-N-C-H":
+    if kind == "H-N(amide)-C-H":
         pset = kp.get_parameters(chosen if chosen is not None else "hu-bax-1997")
         if isinstance(pset, kp.GeneralizedKarplus):
             raise InputError(f"the generalized (H-C-C-H) set {pset.name!r} cannot be used for "
@@ -316,7 +319,7 @@ def _parse_parameters(parameters):
         for key, value in parameters.items():
             if not isinstance(key, str) or not (key.startswith("H-") and key.endswith("-H")):
                 raise InputError(f"parameters dict keys must be fragments like 'H-C-C-H' or "
-                                 f"'H-N-C-H' (as in vicinal_pairs()['fragment']), got {key!r}")
+                                 f"'H-N(amide)-C-H' (as in vicinal_pairs()['fragment']), got {key!r}")
             overrides[key.strip()] = kp.get_parameters(value)
         return overrides, {p.name: p for p in overrides.values()}
     pset = kp.get_parameters(parameters)
@@ -437,7 +440,8 @@ def couplings(ens, parameters="auto") -> pd.DataFrame:
         replaces the automatic choice for the fragment it was made for (its ``pathway``,
         e.g. a user (A, B, C) set applies to every H-C-C-H between sp3 carbons); a dict maps
         fragment names as listed by :func:`vicinal_pairs` (``"H-C-C-H"`` for sp3-sp3,
-        ``"H-N-C-H"`` for amides, or others such as ``"H-C-O-H"``, ``"H-C(sp2)-C-H"``) to sets.
+        ``"H-N(amide)-C-H"``, or others such as ``"H-C-O-H"``, ``"H-C-N-H"`` (an amine),
+        ``"H-C(sp2)-C-H"``) to sets.
 
     Returns
     -------

@@ -99,7 +99,7 @@ class KarplusParameters:
     a, b, c : float, Hz
         The coefficients.
     pathway : str
-        The coupled fragment the set was made for, e.g. ``"H-C-C-H"``, ``"H-N-C-H"``
+        The coupled fragment the set was made for, e.g. ``"H-C-C-H"``, ``"H-N(amide)-C-H"``
         (amide HN to H-alpha) or ``"C-C-C-H"`` (a carbon-proton coupling).
     backbone_offset : float or None, degrees
         theta = (backbone angle) + offset, for sets published against a backbone angle
@@ -258,11 +258,11 @@ PARAMETER_SETS: dict[str, ParameterSet] = {
         reference="generic H-C-C-H coefficients as tabulated in NMR handbooks (e.g. Pretsch et "
                   "al., Structure Determination of Organic Compounds); attribution unconfirmed"),
     "vuister-bax-1993": KarplusParameters(
-        "vuister-bax-1993", 6.51, -1.76, 1.60, "H-N-C-H", backbone_offset=-60.0,
+        "vuister-bax-1993", 6.51, -1.76, 1.60, "H-N(amide)-C-H", backbone_offset=-60.0,
         reference="G. W. Vuister, A. Bax, J. Am. Chem. Soc. 1993, 115, 7772, "
                   "doi:10.1021/ja00070a024"),
     "hu-bax-1997": KarplusParameters(
-        "hu-bax-1997", 7.09, -1.42, 1.55, "H-N-C-H", backbone_offset=-60.0,
+        "hu-bax-1997", 7.09, -1.42, 1.55, "H-N(amide)-C-H", backbone_offset=-60.0,
         reference="J.-S. Hu, A. Bax, J. Am. Chem. Soc. 1997, 119, 6360, doi:10.1021/ja970067v"),
     "wasylishen-schaefer-1973": KarplusParameters(
         "wasylishen-schaefer-1973", 7.12, -1.00, 0.70, "C-C-C-H",
