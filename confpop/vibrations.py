@@ -249,21 +249,27 @@ def _make_backend(method, mol, settings):
     return backend
 
 
-def _run_units(func, tasks, executor):
-    """Run ``func(*task)`` for each task, in parallel when an executor is given."""
-    if executor is None:
-        return [func(*t) for t in tasks]
-    try:
-        from .execution import run_units
-    except ImportError:  # execution layer not available: any Executor will do
-        futures = [executor.submit(func, *t) for t in tasks]
-        return [f.result() for f in futures]
-    return run_units(func, tasks, executor=executor)
+def _gradient_unit(task) -> np.ndarray:
+    """One work item of :func:`run_units`: ``displaced_gradients(*task)``."""
+    return displaced_gradients(*task)
+
+
+def _run_units(tasks, executor, workers):
+    """Gradients of every task, in parallel through :func:`confpop.execution.run_units`."""
+    from .errors import CalculationFailed
+    from .execution import run_units
+
+    outcomes = run_units(_gradient_unit, tasks, executor=executor, workers=workers, retries=0)
+    failed = [o for o in outcomes if not o.ok]
+    if failed:
+        raise CalculationFailed(f"{len(failed)} of {len(tasks)} displaced-gradient units failed; "
+                                f"first: {failed[0].error_type}: {failed[0].error_message}")
+    return [o.value for o in outcomes]
 
 
 def hessian(mol, method: str = "gfn2", solvent: str | None = None, *, conf_id: int = -1,
-            step: float = DEFAULT_STEP_BOHR, executor=None, n_chunks: int | None = None,
-            charge: int | None = None, multiplicity: int | None = None,
+            step: float = DEFAULT_STEP_BOHR, executor=None, workers: int | None = None,
+            n_chunks: int | None = None, charge: int | None = None, multiplicity: int | None = None,
             **backend_options) -> np.ndarray:
     """Cartesian Hessian by central differences of backend gradients.
 
@@ -277,8 +283,11 @@ def hessian(mol, method: str = "gfn2", solvent: str | None = None, *, conf_id: i
     conf_id : int
     step : float, bohr
         Displacement of each Cartesian coordinate (default 0.005 bohr).
-    executor : concurrent.futures.Executor, optional
-        Runs the displaced gradients in parallel; serial in this process when None.
+    executor : concurrent.futures.Executor or dask.distributed.Client, optional
+        Runs the displaced gradients in parallel (see :func:`confpop.execution.run_units`).
+    workers : int, optional
+        Without ``executor``: size of a local process pool for the displaced gradients.
+        Default (neither given): everything runs serially in this process.
     n_chunks : int, optional
         Number of work units the 6N displacements are split into (default: 6N serially,
         else about four units per worker).
@@ -311,15 +320,15 @@ def hessian(mol, method: str = "gfn2", solvent: str | None = None, *, conf_id: i
         displaced[2 * k].reshape(-1)[k] += h_ang
         displaced[2 * k + 1].reshape(-1)[k] -= h_ang
 
-    if executor is None:
+    if executor is None and (workers is None or workers == 1):
         grads = np.array([backend.compute(p, gradient=True).gradient for p in displaced])
     else:
-        workers = getattr(executor, "_max_workers", None) or 2
-        chunks = n_chunks or min(6 * n, 4 * workers)
+        n_workers = workers or getattr(executor, "_max_workers", None) or 2
+        chunks = n_chunks or min(6 * n, 4 * n_workers)
         parts = np.array_split(np.arange(6 * n), chunks)
         binary = single.ToBinary()
         tasks = [(binary, displaced[idx], backend.name, settings) for idx in parts if len(idx)]
-        grads = np.concatenate(_run_units(displaced_gradients, tasks, executor), axis=0)
+        grads = np.concatenate(_run_units(tasks, executor, workers), axis=0)
     grads = grads.reshape(3 * n, 2, 3 * n) * BOHR_ANGSTROM  # hartree/bohr
     jac = (grads[:, 0, :] - grads[:, 1, :]) / (2.0 * step)  # row k: d g / d x_k
     return 0.5 * (jac + jac.T)
@@ -509,7 +518,7 @@ def _analyse(hess, pos, masses, linear):
 
 def harmonic_analysis(mol, method: str = "gfn2", solvent: str | None = None, conf_id: int = -1,
                       step: float = DEFAULT_STEP_BOHR, executor=None, *,
-                      charge: int | None = None, multiplicity: int | None = None,
+                      workers: int | None = None, charge: int | None = None, multiplicity: int | None = None,
                       symmetry_tolerance: float = 0.1, **backend_options) -> HarmonicAnalysis:
     """Harmonic frequencies and normal modes of one conformer from a numerical Hessian.
 
@@ -526,6 +535,8 @@ def harmonic_analysis(mol, method: str = "gfn2", solvent: str | None = None, con
     step : float, bohr
     executor : concurrent.futures.Executor, optional
         Parallel displaced gradients.
+    workers : int, optional
+        Local worker processes when no executor is given (default: serial).
     charge, multiplicity : int, optional
     symmetry_tolerance : float, angstrom
         For :func:`symmetry_number`.
@@ -564,7 +575,7 @@ def harmonic_analysis(mol, method: str = "gfn2", solvent: str | None = None, con
     backend = _make_backend(method, _single_conformer(mol, pos), settings)
     energy = backend.compute(pos, gradient=False).energy
     hess = hessian(mol, method, solvent, conf_id=conf_id, step=step, executor=executor,
-                   charge=charge, multiplicity=multiplicity, **backend_options)
+                   workers=workers, charge=charge, multiplicity=multiplicity, **backend_options)
     masses = atomic_masses(mol)
     linear = is_linear(pos)
     freqs, modes, reduced = _analyse(hess, pos, masses, linear)
