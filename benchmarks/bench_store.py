@@ -196,6 +196,7 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--records", type=int, default=2000)
     parser.add_argument("--repeats", type=int, default=5)
+    parser.add_argument("--gfn2-units", type=int, default=16)
     parser.add_argument("--cold-pool", choices=["spawn", "forkserver"], help=argparse.SUPPRESS)
     args = parser.parse_args()
     if args.cold_pool:
@@ -225,7 +226,7 @@ def main() -> None:
         print(f"  {method:10s} cold {cold * 1e3:7.1f} ms   warm {warm * 1e3:7.1f} ms")
     print(f"  run_units uses START_METHOD = {execution.START_METHOD!r}")
 
-    n_gfn2 = 16
+    n_gfn2 = args.gfn2_units
     t_serial, t_pool = bench_gfn2_throughput(n_gfn2)
     print(f"\n{n_gfn2} GFN2 single points of 1-nonanol through run_units (pool start-up "
           f"included): serial {t_serial * 1e3:.1f} ms/unit, 2-worker pool "
