@@ -40,6 +40,7 @@ from rdkit import Chem, rdBase
 from rdkit.Chem import (AllChem, rdCIPLabeler, rdDetermineBonds, rdForceFieldHelpers,
                         rdMolDescriptors)
 from rdkit.Chem.EnumerateStereoisomers import EnumerateStereoisomers, StereoEnumerationOptions
+from scipy.spatial import cKDTree
 
 from .errors import InputError
 
@@ -306,9 +307,15 @@ def stereoisomers(source, *, max_isomers=64, embeddable_only=False, charge=None,
             if not next_round:
                 break
             pending = next_round
+        else:  # still open after several rounds (not seen in practice): keep them as they are
+            for iso in pending:
+                if Chem.MolToSmiles(iso) not in seen:
+                    seen.add(Chem.MolToSmiles(iso))
+                    isomers.append(iso)
         if not isomers:
-            raise InputError(f"no stereoisomer of {parent_name} could be embedded in 3D "
-                             f"(embeddable_only=True); check the structure")
+            why = ("could be embedded in 3D (embeddable_only=True)" if embeddable_only
+                   else "is geometrically possible")
+            raise InputError(f"no stereoisomer of {parent_name} {why}; check the structure")
         if len(isomers) > max_isomers:
             raise InputError(f"{parent_name} has {len(isomers)} stereoisomers, more than "
                              f"max_isomers={max_isomers}; assign some stereo elements in the "
@@ -332,8 +339,11 @@ def stereo_signature(mol: Chem.Mol, conf_id: int = -1) -> tuple:
     """The configuration of every stereocentre and stereogenic double bond in one conformer.
 
     The configuration is read from the conformer's 3D coordinates alone (the stereo flags
-    stored on ``mol`` are not used), so two signatures differ exactly when a centre was
-    inverted or a double bond isomerized between two geometries.
+    stored on ``mol`` are not used), so the signatures of two geometries differ when a
+    centre was inverted or a double bond isomerized in between. The comparison is per atom:
+    the two mirror-image conformers of a meso compound differ although they are one
+    stereoisomer; :func:`configuration_smiles` compares blind to symmetry. Junctions of
+    cages (adamantane, quinuclidine), which cannot invert on their own, are left out.
 
     Parameters
     ----------
@@ -458,12 +468,19 @@ def bond_graph_from_coordinates(mol: Chem.Mol, conf_id: int = -1, tolerance: flo
                          f"covalent radii), got {tolerance}")
     conf = _get_conformer(mol, conf_id, "bond_graph_from_coordinates")
     positions = np.asarray(conf.GetPositions(), dtype=float)
+    if len(positions) < 2:
+        return set()
     radii = np.array([_PT.GetRcovalent(a.GetAtomicNum()) for a in mol.GetAtoms()])
-    diff = positions[:, None, :] - positions[None, :, :]
-    distances = np.sqrt(np.einsum("ijk,ijk->ij", diff, diff))
-    limit = (1.0 + tolerance) * (radii[:, None] + radii[None, :])
-    i_idx, j_idx = np.nonzero(np.triu(distances <= limit, k=1))
-    return {(int(i), int(j)) for i, j in zip(i_idx, j_idx)}
+    # candidate pairs from a k-d tree (no n x n matrix for large molecules), then the
+    # pair-specific limit
+    pairs = cKDTree(positions).query_pairs(r=(1.0 + tolerance) * 2.0 * radii.max(),
+                                           output_type="ndarray")
+    if len(pairs) == 0:
+        return set()
+    i_idx, j_idx = pairs[:, 0], pairs[:, 1]
+    distances = np.linalg.norm(positions[i_idx] - positions[j_idx], axis=1)
+    keep = distances <= (1.0 + tolerance) * (radii[i_idx] + radii[j_idx])
+    return {(int(min(i, j)), int(max(i, j))) for i, j in zip(i_idx[keep], j_idx[keep])}
 
 
 def molecule_summary(mol: Chem.Mol) -> dict:
@@ -674,6 +691,8 @@ def _read_file(path, charge):
 def _read_smiles_file(path, text):
     lines = [(n, ln.strip()) for n, ln in enumerate(text.splitlines(), 1)
              if ln.strip() and not ln.lstrip().startswith("#")]
+    if not lines:
+        raise InputError(f"{path} holds no SMILES line (only comments)")
     parsed = [(n, _read_smiles(ln, label=f"line {n} of {path}")) for n, ln in lines]
     first_key = Chem.MolToSmiles(parsed[0][1].mol)
     for n, p in parsed[1:]:
@@ -1043,14 +1062,12 @@ def _check_geometry(mol, parsed):
             raise InputError(f"{parsed.label}: {where} has coordinates that are not finite")
         if len(positions) < 2:
             continue
-        diff = positions[:, None, :] - positions[None, :, :]
-        dist = np.sqrt(np.einsum("ijk,ijk->ij", diff, diff))
-        np.fill_diagonal(dist, np.inf)
-        i, j = np.unravel_index(np.argmin(dist), dist.shape)
-        if dist[i, j] < _MIN_DISTANCE:
-            i, j = sorted((int(i), int(j)))
+        close = cKDTree(positions).query_pairs(r=_MIN_DISTANCE, output_type="ndarray")
+        if len(close):
+            i, j = sorted(int(k) for k in close[0])
+            distance = float(np.linalg.norm(positions[i] - positions[j]))
             raise InputError(f"{parsed.label}: in {where} atoms {_atom(mol, i)} and "
-                             f"{_atom(mol, j)} are {dist[i, j]:.2f} angstrom apart (less than "
+                             f"{_atom(mol, j)} are {distance:.2f} angstrom apart (less than "
                              f"{_MIN_DISTANCE}): the geometry is broken or not in angstrom")
 
 
