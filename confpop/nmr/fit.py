@@ -454,8 +454,8 @@ def fit_populations(ens, observed, temperature: float = 298.15, sigma=None, prio
     notes = []
     if rank < len(reps):
         notes.append(f"underdetermined: {len(reps)} conformers predict distinct observables but "
-                     f"the {len(observations)} observations give only {rank - 1} independent "
-                     f"constraints besides the sum rule; the populations are not unique "
+                     f"the {len(observations)} observations and the sum rule give only {rank} "
+                     f"independent constraints; the populations are not unique "
                      f"(see minimal_subset)")
     merged = [sorted(ids[i] for i in m) for m in members.values() if len(m) > 1]
     if merged:
