@@ -99,9 +99,10 @@ def main() -> None:
         print(f"  speed-up vs loop          : {loop_best / best:.2f}x (best), {loop_median / median:.2f}x (median)")
         print(f"  peak memory               : {peak / 2**20:.1f} MiB = {peak / output_bytes:.2f}x output "
               f"(loop: {loop_peak / 2**20:.1f} MiB = {loop_peak / output_bytes:.2f}x)")
-        verdict = "met" if n_weights / best >= 1e8 else "MISSED"
-        print(f"  targets: >= 1e8 weights/s {verdict} (best); memory <= 3x output "
-              f"{'met' if peak <= 3 * output_bytes else 'MISSED'}")
+        wall = "met" if n_weights / best >= 1e8 else "MISSED"
+        on_cpu = "met" if n_weights / cpu >= 1e8 else "MISSED"
+        print(f"  targets: >= 1e8 weights/s {wall} on wall time (best), {on_cpu} on CPU time; "
+              f"memory <= 3x output {'met' if peak <= 3 * output_bytes else 'MISSED'}")
 
 
 if __name__ == "__main__":
