@@ -185,6 +185,8 @@ def _add_ensemble(parser: argparse.ArgumentParser) -> None:
                         help="spin multiplicity 2S+1 (default: from the input's radicals)")
     parser.add_argument("--enumerate-stereo", action="store_true",
                         help="run every stereoisomer of unassigned centres instead of refusing")
+    parser.add_argument("--keep-largest-fragment", action="store_true",
+                        help="keep only the largest fragment of a salt or mixture (default: refuse)")
     parser.add_argument("--workers", type=int, default=None,
                         help="worker processes (default: all cores; 1 = serial)")
     parser.add_argument("--store", default=None, metavar="FILE",
@@ -252,14 +254,15 @@ def _run_ensemble(args: argparse.Namespace) -> int:
     sources = [args.input]
     if args.enumerate_stereo:
         from .molecule import stereoisomers
-        sources = stereoisomers(args.input, charge=args.charge)
+        sources = stereoisomers(args.input, charge=args.charge,
+                                keep_largest_fragment=args.keep_largest_fragment)
     results = []
     for source in sources:
         ens = search(source, method=args.method, solvent=args.solvent, seed=args.seed,
                      n_trials=args.trials, energy_window=args.energy_window,
                      merge_mirror_images=not args.keep_mirror_images, charge=args.charge,
                      multiplicity=args.multiplicity, workers=args.workers, store=args.store,
-                     progress=progress)
+                     keep_largest_fragment=args.keep_largest_fragment, progress=progress)
         results.append(ens)
     payloads = [ensemble_json(e, temps, input_text=args.input) for e in results]
     if args.out:

@@ -9,8 +9,11 @@ Stages (each records its counts in and out and its wall time in the provenance):
 2. **screen** (tight-binding methods only): single points at the final method on the
    force-field geometries; conformers more than ``screen_window`` above the lowest dropped
    (default 6 kcal/mol: optimization lowers single-point gaps by 1-3 kcal/mol, rarely more).
-3. **optimize**: the survivors optimized at the final method (geomeTRIC, "tight"
-   convergence, final energies within 0.05 kcal/mol of a very tight optimization).
+3. **optimize**: a loose pre-optimization (L-BFGS, few gradient calls) of every survivor,
+   duplicates removed with looser criteria (twice the RMSD, 2.5 times the energy tolerance)
+   and a window of ``energy_window + preopt_margin``; then the distinct survivors optimized
+   at the final method (geomeTRIC, "tight" convergence, final energies within 0.05 kcal/mol
+   of a very tight optimization).
 4. **check**: bond graph and stereo of every optimized conformer compared with the input;
    a conformer that changed is kept in the table with status "failed" and the reason.
 5. **prune**: duplicates removed again (optimization makes distinct force-field minima
@@ -70,7 +73,8 @@ def optimize_unit(item: dict) -> dict:
     backend = _backend_for(item)
     res = optimize_positions(backend, np.asarray(item["positions"]),
                              convergence=item.get("convergence", "tight"),
-                             max_steps=item.get("max_steps"))
+                             max_steps=item.get("max_steps"),
+                             engine=item.get("engine", "geometric"))
     final = backend.compute(res.positions, gradient=False)
     dip = None if final.dipole is None else float(np.linalg.norm(final.dipole) * EBOHR_DEBYE)
     return {"positions": np.array(res.positions), "energy": res.energy, "converged": res.converged,
@@ -112,7 +116,8 @@ def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int
            n_trials: int | None = None, energy_window: float = 5.0, ff_window: float = 10.0,
            screen_window: float = 6.0, rmsd: float = 0.125, energy_tolerance: float = 0.1,
            merge_mirror_images: bool = True, max_rounds: int = 5, sampling_method: str = "mmff94s",
-           convergence: str = "tight", charge: int | None = None, multiplicity: int | None = None,
+           convergence: str = "tight", preoptimize: bool = True, preopt_margin: float = 2.0,
+           charge: int | None = None, multiplicity: int | None = None,
            stereo: str = "refuse", keep_largest_fragment: bool = False,
            force_trans_amides: bool = True, method_options: dict | None = None,
            executor=None, workers: int | None = None, store=None,
@@ -141,6 +146,10 @@ def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int
         One row with degeneracy 2 per mirror-image pair (True) or two rows (False).
     convergence : str
         Optimizer preset ("loose", "normal", "tight", "verytight").
+    preoptimize : bool
+        First optimize loosely (L-BFGS), drop duplicates and conformers more than
+        ``energy_window + preopt_margin`` above the lowest, then optimize the rest tightly.
+        Loose energies lie 0.3-1 kcal/mol above the tight ones, hence the 2 kcal/mol margin.
     executor : concurrent.futures.Executor, optional
         Where the units of work run (e.g. ``dask.distributed.Client.get_executor()``);
         default a local process pool (serial for a handful of units).
@@ -180,7 +189,6 @@ def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int
                 **(method_options or {}))
     prune_settings = PruneSettings(rmsd=rmsd, energy_tolerance=energy_tolerance,
                                    merge_mirror_images=merge_mirror_images)
-    reference_stereo = stereo_signature(mol, -1) if mol.GetNumConformers() else None
     achiral = is_achiral(mol)
     store = _open_store(store)
     provenance = [{"step": "input", "smiles": Chem.MolToSmiles(Chem.RemoveHs(mol)),
@@ -238,47 +246,26 @@ def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int
         "screen", started=t0, n_in=len(ids), n_out=int(ok.sum() - drop.sum()), method=method,
         solvent=solvent, window_kcal=screen_window, failed=int((~ok).sum())))
 
-    # 3. optimize the survivors
-    t0 = time.perf_counter()
-    ids = ens.ids()
-    outcomes = _run(optimize_unit, [{**base_item, "positions": positions[c],
-                                     "convergence": convergence} for c in ids],
-                    executor=executor, workers=workers, progress=progress, store=store,
-                    kind="optimize", description="optimizations")
-    table = ens.raw_table
+    # 3. optimize: a cheap loose pre-optimization collapses force-field minima that fall into
+    #    one tight-binding minimum; only the distinct survivors get the tight optimization
+    if preoptimize:
+        ens, positions = _optimize_stage(ens, positions, base_item, "loose", "lbfgs",
+                                         "preoptimize", method, solvent, executor, workers,
+                                         progress, store)
+        ens, positions = _intermediate_prune(ens, positions, method, energy_window + preopt_margin,
+                                             prune_settings, achiral)
+    ens, positions = _optimize_stage(ens, positions, base_item, convergence, "geometric",
+                                     "optimize", method, solvent, executor, workers, progress, store)
     opt_mol = ens.mol
-    for col, default in ((f"energy_{method}", np.nan), ("converged", False), ("opt_steps", 0),
-                         ("gradient_calls", 0), ("dipole_debye", np.nan)):
-        table[col] = default
-    for cid, out in zip(ids, outcomes):
-        if not out.ok:
-            table.loc[cid, ["status", "reason"]] = ["failed", f"optimization: {out.error_type}: {out.error_message}"]
-            continue
-        v = out.value
-        conf = opt_mol.GetConformer(cid)
-        for a, (x, y, z) in enumerate(v["positions"]):
-            conf.SetAtomPosition(a, (float(x), float(y), float(z)))
-        positions[cid] = np.array(v["positions"])
-        table.loc[cid, [f"energy_{method}", "converged", "opt_steps", "gradient_calls"]] = [
-            v["energy"], bool(v["converged"]), int(v["steps"]), int(v["gradient_calls"])]
-        if v["dipole_debye"] is not None:
-            table.loc[cid, "dipole_debye"] = v["dipole_debye"]
-        if not v["converged"]:
-            table.loc[cid, "reason"] = f"not converged: {v['message']}"
-    n_opt_ok = int((table["status"] == "ok").sum())
-    step = step_record("optimize", started=t0, n_in=len(ids), n_out=n_opt_ok, method=method,
-                       solvent=solvent, convergence=convergence,
-                       gradient_calls_median=float(np.median(table["gradient_calls"])) if len(table) else 0.0,
-                       not_converged=int((~table["converged"].astype(bool) & (table["status"] == "ok")).sum()))
-    ens = Ensemble(opt_mol, table, level=method, charge=charge, multiplicity=multiplicity,
-                   solvent=solvent, provenance=ens.provenance + [step], name=ens.name)
 
     # 4. integrity checks
     t0 = time.perf_counter()
     table = ens.raw_table
     n_bad = 0
     for cid in ens.ids():
-        problems = integrity_problems(opt_mol, cid, reference_stereo or stereo_signature(sampled, cid))
+        # compare each optimized conformer with its own force-field geometry, whose stereo
+        # ETKDG enforced from the input
+        problems = integrity_problems(opt_mol, cid, stereo_signature(sampled, cid))
         if problems:
             n_bad += 1
             table.loc[cid, ["status", "reason"]] = ["failed", "integrity: " + "; ".join(problems)]
@@ -286,6 +273,71 @@ def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int
                                                       n_out=len(ens) - n_bad, changed=n_bad))
     return _finish(ens, positions, method, energy_window, prune_settings, achiral,
                    sampling=srep, t_start=t_start)
+
+
+def _optimize_stage(ens, positions, base_item, convergence, engine, name, method, solvent,
+                    executor, workers, progress, store):
+    """Optimize every active conformer; failures become rows with status "failed"."""
+    t0 = time.perf_counter()
+    ids = ens.ids()
+    outcomes = _run(optimize_unit, [{**base_item, "positions": positions[c],
+                                     "convergence": convergence, "engine": engine} for c in ids],
+                    executor=executor, workers=workers, progress=progress, store=store,
+                    kind=f"optimize-{engine}", description=name)
+    table = ens.raw_table
+    opt_mol = ens.mol
+    for col, default in ((f"energy_{method}", np.nan), ("converged", False), ("opt_steps", 0),
+                         ("gradient_calls", 0), ("dipole_debye", np.nan)):
+        if col not in table.columns:
+            table[col] = default
+    positions = dict(positions)
+    for cid, out in zip(ids, outcomes):
+        if not out.ok:
+            table.loc[cid, ["status", "reason"]] = ["failed", f"{name}: {out.error_type}: {out.error_message}"]
+            continue
+        v = out.value
+        conf = opt_mol.GetConformer(cid)
+        for a, (x, y, z) in enumerate(v["positions"]):
+            conf.SetAtomPosition(a, (float(x), float(y), float(z)))
+        positions[cid] = np.array(v["positions"])
+        calls = int(v["gradient_calls"]) + (int(table.loc[cid, "gradient_calls"]) if name == "optimize" else 0)
+        table.loc[cid, [f"energy_{method}", "converged", "opt_steps", "gradient_calls"]] = [
+            v["energy"], bool(v["converged"]), int(v["steps"]), calls]
+        if v["dipole_debye"] is not None:
+            table.loc[cid, "dipole_debye"] = v["dipole_debye"]
+        table.loc[cid, "reason"] = "" if v["converged"] else f"not converged: {v['message']}"
+    active = table["status"] == "ok"
+    calls = [int(out.value["gradient_calls"]) for out in outcomes if out.ok]
+    step = step_record(name, started=t0, n_in=len(ids), n_out=int(active.sum()), method=method,
+                       solvent=solvent, convergence=convergence, engine=engine,
+                       gradient_calls_median=float(np.median(calls)) if calls else 0.0,
+                       not_converged=int((~table["converged"].astype(bool) & active).sum()),
+                       failed=len(ids) - int(active.sum()))
+    out_ens = Ensemble(opt_mol, table, level=method, charge=ens.charge,
+                       multiplicity=ens.multiplicity, solvent=solvent,
+                       provenance=ens.provenance + [step], name=ens.name)
+    return out_ens, positions
+
+
+def _intermediate_prune(ens, positions, method, window, settings, achiral):
+    """Drop duplicates (looser criteria: geometries are only loosely converged) and
+    conformers above ``window`` kcal/mol after the pre-optimization."""
+    t0 = time.perf_counter()
+    ids = ens.ids()
+    energies = ens.raw_table.loc[ids, f"energy_{method}"].to_numpy(dtype=float)
+    loose = PruneSettings(rmsd=2 * settings.rmsd, energy_tolerance=2.5 * settings.energy_tolerance,
+                          merge_mirror_images=True, max_automorphisms=settings.max_automorphisms)
+    rep = find_duplicates(ens.mol, [positions[c] for c in ids], energies, loose, achiral=achiral)
+    e_min = energies.min()
+    keep = [ids[u] for u in rep.unique
+            if energies[u] - e_min <= convert(window, "kcal/mol", "hartree")]
+    failed = [c for c in ens.ids(active=False) if c not in set(ids)]
+    step = step_record("prune-preoptimized", started=t0, n_in=len(ids), n_out=len(keep),
+                       window_kcal=window, rmsd=loose.rmsd,
+                       energy_tolerance_kcal=loose.energy_tolerance,
+                       duplicates=len(rep.duplicate_of) - len(rep.mirror_of),
+                       mirror_images=len(rep.mirror_of))
+    return ens.select(keep + failed, step=step), positions
 
 
 def _finish(ens: Ensemble, positions: dict, method: str, window: float,
