@@ -502,3 +502,15 @@ def main(argv=None) -> int:
         message = " ".join(str(err).split()) or type(err).__name__
         print(f"{_PROG}: error: {message}", file=sys.stderr)
         return 2
+    except KeyboardInterrupt:
+        print(f"{_PROG}: interrupted (finished calculations are kept in the --store file, "
+              "if one was given)", file=sys.stderr)
+        return 130
+    except Exception as err:  # a bug: one line, the traceback only on request
+        import os
+        if os.environ.get("CONFPOP_DEBUG"):
+            raise
+        message = " ".join(str(err).split())[:300]
+        print(f"{_PROG}: internal error: {type(err).__name__}: {message} (please report it; "
+              "set CONFPOP_DEBUG=1 to see the traceback)", file=sys.stderr)
+        return 1

@@ -1531,6 +1531,8 @@ def _check_method_coverage(mol, method, label):
         return
     if family == "mmff":
         variant = "MMFF94s" if method == "mmff94s" else "MMFF94"
+        mol = Chem.Mol(mol)
+        Chem.FastFindRings(mol)  # ring perception is lost when fragments were removed
         with rdBase.BlockLogs():
             ok = rdForceFieldHelpers.MMFFHasAllMoleculeParams(mol)
         if ok:
