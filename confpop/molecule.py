@@ -1048,6 +1048,7 @@ def _handle_fragments(mol, label, keep_largest):
     editable.CommitBatchEdit()
     kept = editable.GetMol()
     kept.UpdatePropertyCache(strict=False)
+    Chem.GetSymmSSSR(kept)  # atom removal clears the ring information that force fields need
     removed = ".".join(_plain_smiles(described[k][0]) for k in range(len(frags)) if k != best)
     logger.info("%s: kept fragment %s, removed %s", label, _plain_smiles(described[best][0]),
                 removed)
