@@ -7,7 +7,7 @@ Examples
 --------
 >>> import confpop as cp
 >>> w = cp.boltzmann_weights([0.0, 1.0], 298.15)
->>> [round(x, 4) for x in w]
+>>> w.round(4).tolist()
 [0.8439, 0.1561]
 """
 

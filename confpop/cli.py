@@ -498,6 +498,9 @@ def main(argv=None) -> int:
             names = ", ".join(name for name, *_ in _COMMANDS)
             raise InputError(f"a command is required: one of {names} (see confpop --help)")
         return int(args._run(args) or 0)
+    except BrokenPipeError:  # output piped into head or similar
+        sys.stderr.close()
+        return 0
     except (ConfpopError, ValueError, OSError) as err:
         message = " ".join(str(err).split()) or type(err).__name__
         print(f"{_PROG}: error: {message}", file=sys.stderr)
