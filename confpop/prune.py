@@ -74,15 +74,22 @@ def automorphisms(mol: Chem.Mol, atoms: np.ndarray, max_count: int = 5000) -> np
     Stereo is ignored (a permutation that would invert a centre cannot be realised by a
     proper rotation of a real conformer, so it never gives a small RMSD).
     """
+    # match on the compared atoms only: hydrogens left out of the RMSD (methyl groups) would
+    # multiply the permutations by 6 per methyl without changing any compared position
+    atoms = np.asarray(atoms, dtype=int)
     sub = Chem.RWMol(mol)
-    matches = mol.GetSubstructMatches(Chem.Mol(sub), uniquify=False, useChirality=False,
+    for idx in sorted(set(range(mol.GetNumAtoms())) - set(atoms.tolist()), reverse=True):
+        sub.RemoveAtom(idx)
+    sub = sub.GetMol()
+    sub.UpdatePropertyCache(strict=False)
+    matches = sub.GetSubstructMatches(sub, uniquify=False, useChirality=False,
                                       maxMatches=max_count)
     if len(matches) >= max_count:
         log.warning("symmetry permutations capped at %d; duplicates may survive", max_count)
     if not matches:
-        matches = (tuple(range(mol.GetNumAtoms())),)
-    perms = np.array(matches, dtype=int)[:, atoms]
-    return np.unique(perms, axis=0)
+        matches = (tuple(range(sub.GetNumAtoms())),)
+    order = np.sort(atoms)
+    return np.unique(order[np.array(matches, dtype=int)], axis=0)
 
 
 def _kabsch_rmsd(ref: np.ndarray, probes: np.ndarray, allow_reflection: bool) -> np.ndarray:
