@@ -20,7 +20,7 @@ import math
 import sys
 
 from . import __version__
-from .errors import ConfpopError, InputError
+from .errors import CalculationFailed, ConfpopError, InputError
 
 __all__ = ["main"]
 
@@ -265,6 +265,9 @@ def _run_ensemble(args: argparse.Namespace) -> int:
                      keep_largest_fragment=args.keep_largest_fragment, progress=progress)
         results.append(ens)
     payloads = [ensemble_json(e, temps, input_text=args.input) for e in results]
+    if args.json and any(len(e) == 0 for e in results):
+        raise CalculationFailed("every conformer failed: " + "; ".join(
+            sorted(set(results[0].raw_table["reason"]))))
     if args.out:
         out = Path(args.out)
         for k, ens in enumerate(results):
@@ -282,6 +285,11 @@ def _run_ensemble(args: argparse.Namespace) -> int:
         summary = next((p for p in ens.provenance if p.get("step") == "summary"), {})
         sample = next((p for p in ens.provenance if p.get("step") == "sample"), {})
         print(f"{ens.name}  method {ens.level}{'  solvent ' + ens.solvent if ens.solvent else ''}")
+        if len(ens) == 0:
+            for cid, row in ens.raw_table.iterrows():
+                print(f"{cid:>4}  failed: {row['reason']}")
+            print(f"{_PROG}: error: every conformer failed (reasons above)", file=sys.stderr)
+            return 1
         print(_ensemble_table_text(ens, temps))
         n_eff = ens.effective_count(temps[0])
         print(f"{len(ens)} conformers within {args.energy_window:g} kcal/mol; sampling "

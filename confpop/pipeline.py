@@ -163,7 +163,9 @@ def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int
     Returns
     -------
     Ensemble
-        Ranked by the final method; failed conformers stay in the table with their reason.
+        Ranked by the final method; failed conformers stay in the table with their reason
+        (when every conformer failed the ensemble has no active conformer, ``len(ens) == 0``,
+        and ``ens.table()`` says why).
 
     Notes
     -----
@@ -235,9 +237,7 @@ def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int
         else:
             table.loc[cid, ["status", "reason"]] = ["failed", f"single point: {out.error_type}: {out.error_message}"]
     ok = table["status"] == "ok"
-    if not ok.any():
-        raise CalculationFailed("every single point failed; first reason: " + table["reason"].iloc[0])
-    e_min = table.loc[ok, sp_col].min()
+    e_min = table.loc[ok, sp_col].min() if ok.any() else 0.0
     drop = ok & (table[sp_col] - e_min > convert(screen_window, "kcal/mol", "hartree"))
     keep_ids = [int(c) for c in table.index[~drop]]
     ens = Ensemble(sampled, table, level=ff, charge=charge, multiplicity=multiplicity,
@@ -345,12 +345,21 @@ def _finish(ens: Ensemble, positions: dict, method: str, window: float,
     """Final duplicate removal, mirror images, energy window; failures kept as rows."""
     t0 = time.perf_counter()
     ids = ens.ids()
-    if not ids:
-        raise CalculationFailed("no conformer survived; reasons: " +
-                                "; ".join(sorted(set(ens.raw_table["reason"]))))
+    if not ids:  # every conformer failed: the rows and their reasons are the result
+        log.warning("no conformer survived; reasons: %s",
+                    "; ".join(sorted(set(ens.raw_table["reason"]))))
+        ens = _renumber(ens)
+        ens.provenance.append({"step": "summary", "seconds": round(time.perf_counter() - t_start, 3),
+                               "conformers": 0, "completeness": round(sampling.completeness, 4),
+                               "unseen_share": round(sampling.unseen_share, 4)})
+        return ens
     table = ens.raw_table
     energies = table.loc[ids, f"energy_{method}"].to_numpy(dtype=float)
-    rep = find_duplicates(ens.mol, [positions[c] for c in ids], energies, settings, achiral=achiral)
+    # mirror images are always merged here; with merge_mirror_images=False each chiral
+    # conformer gets its mirror image back as a row of its own below (one path, no doubles)
+    merging = PruneSettings(rmsd=settings.rmsd, energy_tolerance=settings.energy_tolerance,
+                            merge_mirror_images=True, max_automorphisms=settings.max_automorphisms)
+    rep = find_duplicates(ens.mol, [positions[c] for c in ids], energies, merging, achiral=achiral)
     e_min = energies.min()
     keep, n_window = [], 0
     for u in rep.unique:
