@@ -25,8 +25,8 @@ How the work is spread
 
 Files (``out_dir``)
 -------------------
-One folder per molecule that succeeded (``ensemble.sdf``, ``table.csv``, ``run.json``, as
-the ``ensemble`` command writes them) and, at the top, ``summary.csv`` and
+One folder per molecule whose search returned an ensemble (``ensemble.sdf``, ``table.csv``,
+``run.json``, as the ``ensemble`` command writes them) and, at the top, ``summary.csv`` and
 ``failures.csv``. Each molecule's folder is written as soon as that molecule finishes (in a
 hidden ``.NAME.partial`` folder renamed when complete) and the two tables are rewritten
 after every molecule, so an interrupted batch keeps everything that finished.
@@ -83,7 +83,9 @@ class BatchResult:
         conformers), ``seconds`` (wall time of the molecule's search), ``reason`` (the
         error of a failed molecule, else ""), ``folder`` (its folder under ``out_dir``).
     ensembles : dict of str to Ensemble
-        The ensembles of the molecules that succeeded, by name, in input order.
+        Every ensemble a search returned, by name, in input order: those of the molecules
+        that succeeded, and of those whose conformers all failed (no active conformer;
+        their tables give each conformer's reason, and they count as failed).
     failures : pandas.DataFrame
         One row per failed molecule: ``name``, ``input``, ``error_type``, ``message``.
     temperatures : tuple of float, K
@@ -650,6 +652,11 @@ def _run_conformers(entries, settings, executor, workers, store, progress, write
 
 
 # ------------------------------------------------------------------------------ collecting
+def _no_survivor_message(ens: Ensemble) -> str:
+    reasons = sorted({str(r) for r in ens.raw_table["reason"] if str(r)})
+    return "no conformer survived; reasons: " + ("; ".join(reasons) or "none recorded")
+
+
 def _summary_columns(temps) -> list[str]:
     return (["name", "smiles", "status", "conformers", "lowest_conformer", "effective_count"]
             + [f"population_top{rank}_{t:g}K" for t in temps for rank in (1, 2, 3)]
@@ -671,8 +678,11 @@ def _summary_row(entry: dict, value: dict, temps) -> dict:
         return row
     row["smiles"] = next((p.get("smiles", "") for p in ens.provenance if p.get("step") == "input"),
                          "")
-    row["status"] = "ok"
     row["conformers"] = len(ens)
+    if not len(ens):
+        row["reason"] = f"CalculationFailed: {_no_survivor_message(ens)}"
+        return row
+    row["status"] = "ok"
     if len(ens):
         row["lowest_conformer"] = int(ens.energies().idxmin())
         pops = ens.populations(list(temps))
@@ -710,18 +720,21 @@ class _Writer:
         if value.get("ok") and isinstance(value.get("ensemble"), dict):
             value = {**value, "ensemble": _unpack(value["ensemble"])}
         self.rows[k] = _summary_row(entry, value, self.temps)
-        if value.get("ok"):
-            self.ensembles[k] = value["ensemble"]
-            log.info("molecule %s: %d conformers (%.1f s)", entry["name"],
-                     len(value["ensemble"]), value.get("seconds") or 0.0)
+        ens = value["ensemble"] if value.get("ok") else None
+        if ens is not None:
+            self.ensembles[k] = ens
+        if ens is not None and len(ens):
+            log.info("molecule %s: %d conformers (%.1f s)", entry["name"], len(ens),
+                     value.get("seconds") or 0.0)
         else:
+            error_type, message = ((value["error_type"], value["message"]) if ens is None
+                                   else ("CalculationFailed", _no_survivor_message(ens)))
             self.failures[k] = {"name": entry["name"], "input": entry["input"],
-                                "error_type": value["error_type"], "message": value["message"]}
-            log.info("molecule %s failed: %s: %s", entry["name"], value["error_type"],
-                     value["message"])
+                                "error_type": error_type, "message": message}
+            log.info("molecule %s failed: %s: %s", entry["name"], error_type, message)
         if self.out is not None:
-            if value.get("ok"):
-                self._write_molecule(entry, value["ensemble"])
+            if ens is not None:
+                self._write_molecule(entry, ens)
             self.write_tables()
 
     def _write_molecule(self, entry: dict, ens: Ensemble) -> None:

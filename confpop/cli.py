@@ -457,9 +457,164 @@ def _run_couplings(args: argparse.Namespace) -> int:
     return 0
 
 
+# --------------------------------------------------------------------------- batch
+
+_BATCH_EPILOG = (
+    "Exit status: 0 when every molecule succeeded; 1 when some (or all) molecules failed "
+    "but the batch ran to the end (the others' files are written; failures.csv and the "
+    "printed failure list say why); 2 on an input error that stops the batch before any "
+    "search (unreadable batch file, no SMILES column, unknown method, unusable --store, "
+    "unreachable --scheduler); 130 when interrupted (finished molecules keep their files)."
+)
+
+
+def _add_batch(parser: argparse.ArgumentParser) -> None:
+    parser.epilog = _BATCH_EPILOG
+    parser.add_argument("input", metavar="FILE",
+                        help="molecules to search: .smi (SMILES [name] per line, # comments), "
+                             ".csv/.tsv (a 'smiles' column, optional 'name' or 'id' column) or "
+                             ".sdf (one molecule per record, named by its title)")
+    parser.add_argument("--out", required=True, metavar="DIR",
+                        help="folder for one subfolder per molecule (ensemble.sdf, table.csv, "
+                             "run.json) plus summary.csv and failures.csv")
+    parser.add_argument("--method", default="gfn2",
+                        help="final level: gfn2 (default), gfn1, gfnff, tblite-gfn2, mmff94s, mmff94, uff")
+    parser.add_argument("--solvent", default=None,
+                        help="implicit solvent for tight-binding methods, e.g. water, chloroform")
+    parser.add_argument("--temperature", "-T", nargs="+", type=_finite_float, default=[298.15],
+                        metavar="K", help="temperatures in kelvin (default 298.15); the "
+                                          "effective number of conformers is at the first")
+    parser.add_argument("--seed", type=int, default=0, help="sampling seed (default 0)")
+    parser.add_argument("--energy-window", type=_finite_float, default=5.0, metavar="KCAL",
+                        help="final energy window in kcal/mol (default 5)")
+    parser.add_argument("--workers", type=int, default=None,
+                        help="local worker processes (default: all cores; 1 = serial)")
+    parser.add_argument("--scheduler", default=None, metavar="ADDRESS",
+                        help="run on a dask.distributed cluster, e.g. tcp://10.0.0.5:8786 "
+                             "(start its workers with OMP_NUM_THREADS=1)")
+    parser.add_argument("--scheduler-timeout", type=_finite_float, default=10.0, metavar="SECONDS",
+                        help="how long to wait for the scheduler to answer (default 10 s)")
+    parser.add_argument("--parallel", choices=("auto", "molecules", "conformers"), default="auto",
+                        help="spread whole molecules (best for many small ones) or each "
+                             "molecule's conformers over the workers; auto (default): "
+                             "molecules when there are at least as many as workers")
+    parser.add_argument("--store", default=None, metavar="FILE",
+                        help="SQLite result store: a batch run again or resumed recomputes nothing finished")
+    parser.add_argument("--json", action="store_true", help="print machine-readable JSON only")
+    parser.add_argument("--quiet", action="store_true", help="no progress bars")
+    parser.add_argument("--progress", action="store_true",
+                        help="progress bars on stderr even when it is not a terminal")
+
+
+def _dask_client(address: str, timeout: float):
+    """A dask.distributed Client connected to ``address``, or a one-line error."""
+    from .errors import BackendUnavailable
+
+    if timeout <= 0:
+        raise InputError(f"--scheduler-timeout must be > 0 s, got {timeout:g}")
+    try:
+        from distributed import Client
+    except ImportError as exc:
+        raise BackendUnavailable("--scheduler needs dask.distributed (pip install "
+                                 f"'confpop[dask]' or 'dask[distributed]'): {exc}") from None
+    try:
+        return Client(address, timeout=timeout)
+    except Exception as exc:  # OSError/TimeoutError when nobody answers, ValueError for a bad address
+        raise InputError(f"cannot connect to the dask scheduler at {address!r} within "
+                         f"{timeout:g} s: {type(exc).__name__}: {exc}") from None
+
+
+def _batch_table_text(summary, temps) -> str:
+    import pandas as pd
+
+    width = max([4] + [len(str(n)) for n in summary["name"]])
+    head = (f"{'name':<{width}}  {'status':<6}  {'conf':>4}  {'lowest':>6}  "
+            f"{'n_eff(' + format(temps[0], 'g') + ' K)':>14}  "
+            + "  ".join(f"{'top-3 p(' + format(t, 'g') + ' K)':>17}" for t in temps)
+            + f"  {'seconds':>8}")
+    lines = [head]
+    for _, row in summary.iterrows():
+        def cell(value, fmt):
+            return "-" if pd.isna(value) else format(value, fmt)
+        tops = []
+        for t in temps:
+            values = [row[f"population_top{r}_{t:g}K"] for r in (1, 2, 3)]
+            tops.append("/".join(cell(v, ".2f") for v in values))
+        lines.append(f"{str(row['name']):<{width}}  {row['status']:<6}  {int(row['conformers']):>4}  "
+                     f"{cell(row['lowest_conformer'], 'd'):>6}  {cell(row['effective_count'], '.2f'):>14}  "
+                     + "  ".join(f"{t:>17}" for t in tops) + f"  {row['seconds']:>8.1f}")
+    return "\n".join(lines)
+
+
+def _batch_records(frame) -> list[dict]:
+    """DataFrame rows as JSON-ready dicts (NaN and <NA> as null)."""
+    import pandas as pd
+
+    rows = []
+    for record in frame.to_dict(orient="records"):
+        rows.append({k: (None if (not isinstance(v, str) and pd.isna(v)) else _plain(v))
+                     for k, v in record.items()})
+    return rows
+
+
+def _run_batch(args: argparse.Namespace) -> int:
+    import os
+    import time
+
+    from .batch import read_batch_input, search_many
+
+    temps = list(args.temperature)
+    for t in temps:
+        if t <= 0:
+            raise InputError(f"temperature must be > 0 K, got {t}")
+    if args.scheduler is not None and args.workers is not None:
+        raise InputError("give either --scheduler or --workers, not both")
+    molecules = read_batch_input(args.input)
+    progress = not args.quiet and (args.progress or (sys.stderr.isatty() and not args.json))
+    client = _dask_client(args.scheduler, args.scheduler_timeout) if args.scheduler else None
+    start = time.perf_counter()
+    try:
+        result = search_many(molecules, method=args.method, solvent=args.solvent, seed=args.seed,
+                             temperatures=temps, executor=client, workers=args.workers,
+                             store=args.store, progress=progress, out_dir=args.out,
+                             parallel=args.parallel, energy_window=args.energy_window)
+    finally:
+        if client is not None:
+            client.close()
+    seconds = time.perf_counter() - start
+    status = 0 if result.n_failed == 0 else 1
+    out = os.path.abspath(args.out)
+    if args.json:
+        payload = {"input": args.input, "method": args.method.lower(), "solvent": args.solvent,
+                   "seed": args.seed, "temperatures": temps, "parallel": result.parallel,
+                   "out": out, "seconds": round(seconds, 3), "ok": result.n_ok,
+                   "failed": result.n_failed, "molecules": _batch_records(result.summary),
+                   "failures": _batch_records(result.failures), "caution": _ENSEMBLE_CAUTION}
+        print(json.dumps(payload, indent=2, ensure_ascii=False))
+        return status
+    where = (f"dask scheduler {args.scheduler}" if args.scheduler else
+             "1 process" if args.workers == 1 else
+             f"{args.workers or 'all'} local worker{'' if args.workers == 1 else 's'}")
+    print(f"{len(result.summary)} molecules from {args.input}: {result.n_ok} ok, "
+          f"{result.n_failed} failed; method {args.method.lower()}"
+          f"{'  solvent ' + args.solvent if args.solvent else ''}; parallel over "
+          f"{result.parallel} on {where}; {seconds:.1f} s")
+    print(_batch_table_text(result.summary, temps))
+    if result.n_failed:
+        print("failures:")
+        for _, row in result.failures.iterrows():
+            message = " ".join(str(row["message"]).split())
+            print(f"  {row['name']}: {row['error_type']}: {message}")
+    print(f"wrote summary.csv, failures.csv and one folder per molecule to {out}")
+    print(_ENSEMBLE_CAUTION)
+    return status
+
+
 # --------------------------------------------------------------------------- registry
 
 _COMMANDS: list[tuple] = [
+    ("batch", _add_batch, _run_batch,
+     "search many molecules from a .smi/.csv/.sdf file: one folder each, a summary and a failure list"),
     ("couplings", _add_couplings, _run_couplings,
      "population-averaged vicinal couplings; fit populations to measured couplings"),
     ("ensemble", _add_ensemble, _run_ensemble,
