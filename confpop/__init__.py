@@ -33,6 +33,7 @@ _PUBLIC: dict[str, str] = {
     "Ensemble": "ensemble",
     "read_ensemble": "io",
     "search": "pipeline",
+    "search_many": "batch",
     "run_units": "execution",
     "stereoisomers": "molecule",
     "boltzmann_weights": "thermo",
