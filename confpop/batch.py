@@ -601,7 +601,9 @@ class _Arrivals:
 def _run_molecules(entries, settings, executor, workers, store, progress, writer) -> None:
     from .execution import run_units
 
-    order = sorted(range(len(entries)), key=lambda k: -_size_estimate(entries[k]["molecule"]))
+    order = list(range(len(entries)))
+    if executor is not None or workers != 1:  # parallel: the largest first, for a short tail
+        order.sort(key=lambda k: -_size_estimate(entries[k]["molecule"]))
     items = [{"molecule": _encode(entries[k]["molecule"]), "store": store, **settings}
              for k in order]
     arrivals = _Arrivals(lambda position, value: writer.finished(order[position], value))
