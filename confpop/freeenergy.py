@@ -344,7 +344,7 @@ def rescore(ens, method: str = "dft", functional: str | None = None, basis: str 
     method : str
         Backend name (default "dft"; any registered name works, e.g. "gfn2").
     functional, basis, dispersion
-        DFT settings (see :class:`confpop.backends.dft.DFT`; defaults B3LYP, def2-SVP,
+        DFT settings (see :class:`confpop.backends.dft.DFT`; defaults B3LYP, def2-SVPD,
         D3(BJ)); ignored for other methods.
     solvent : str, optional
         Default: the ensemble's solvent if ``method`` has a solvent model; ``"gas"`` forces

@@ -1,13 +1,16 @@
 """Kohn-Sham DFT single points (and gradients) through PySCF, with D3(BJ) from the dftd3 package.
 
-The default level, B3LYP-D3(BJ)/def2-SVP with density fitting (RI-J/K) and a level-2
-integration grid, was chosen for cost on two CPU cores: one energy of 1,2-difluoroethane
-(8 atoms, 76 basis functions) takes a few seconds and one of a 22-atom aromatic ether
-(200 basis functions) about one to two minutes [measured here, see the module
-:mod:`confpop.freeenergy` notes]; B3LYP-D3(BJ) reproduces conformer energies of small
-organic molecules to a few tenths of a kcal/mol in benchmarks with larger basis sets, and
-def2-SVP loses some of that (common practice: prefer def2-TZVP for final numbers when
-time allows; pass ``basis="def2-tzvp"``).
+The default level is B3LYP-D3(BJ)/def2-SVPD with density fitting (RI-J/K) and a level-2
+integration grid, chosen for cost and accuracy on two CPU cores. Measured here (one OpenMP
+thread, the machine shared with other work, load 5-8 on 2 cores, so unloaded times are
+roughly 2-3x shorter), energy of a 22-atom aromatic ether (isopropoxybenzene):
+def2-SVP 201 s, def2-SVPD 344 s, def2-TZVP 487 s; 1,2-difluoroethane (8 atoms) 10-20 s
+with def2-SVPD. The gauche - anti gap of 1,2-difluoroethane at GFN2 geometries decides
+the basis: def2-SVP (no diffuse functions) puts anti 0.29 kcal/mol lower, against
+experiment, while def2-SVPD (-0.36), def2-TZVP (-0.35) and 6-311+G** (-0.36) put gauche
+lower as experiment does (about -0.6 to -0.8 kcal/mol [from memory]). The ethane
+rotational barrier is 2.92 kcal/mol with def2-SVP (experiment 2.9). Common practice for
+final numbers: ``basis="def2-tzvp"`` when time allows.
 
 Implicit solvent: PySCF's polarizable continuum (IEF-PCM by default, or ddCOSMO) with a
 dielectric constant looked up from the solvent's name (:data:`DIELECTRIC_CONSTANTS`) or
@@ -129,7 +132,7 @@ class DFT(Backend):
     -------
     functional : str (default "b3lyp")
         Any exchange-correlation functional name PySCF (libxc) knows.
-    basis : str (default "def2-svp")
+    basis : str (default "def2-svpd")
     dispersion : {"d3bj", "d3zero", None} (default "d3bj")
         Grimme's D3 with Becke-Johnson (or zero) damping from the dftd3 package, parameters
         for ``functional``; None for none.
@@ -151,7 +154,7 @@ class DFT(Backend):
     name = "dft"
     capabilities = frozenset({"energy", "gradient", "dipole", "charges", "solvent"})
 
-    _DEFAULTS = {"functional": "b3lyp", "basis": "def2-svp", "dispersion": "d3bj",
+    _DEFAULTS = {"functional": "b3lyp", "basis": "def2-svpd", "dispersion": "d3bj",
                  "grid_level": 2, "density_fit": True, "solvent_model": "pcm",
                  "conv_tol": 1e-9, "max_cycle": 100}
 
@@ -245,7 +248,11 @@ class DFT(Backend):
                     f"converge in {self.options['max_cycle']} cycles, also with second-order SCF")
             grad = None
             if gradient:
-                grad = np.asarray(mf.nuc_grad_method().kernel()) * ANGSTROM_BOHR
+                grad_method = mf.nuc_grad_method()
+                # include the motion of the integration grid, so that the gradient is the
+                # slope of the energy returned also on coarse grids (costs little)
+                grad_method.grid_response = True
+                grad = np.asarray(grad_method.kernel()) * ANGSTROM_BOHR
             dipole = np.asarray(mf.dip_moment(unit="AU", verbose=0))
             charges = np.asarray(mf.mulliken_pop(verbose=0)[1])
         if self._damping is not None:
