@@ -599,14 +599,14 @@ def frequencies(mol, method: str = "gfn2", solvent: str | None = None, conf_id: 
 
 
 # ------------------------------------------------------------------------------ symmetry number
-def _rotation_from_pairs(a, b, a2, b2):
-    """The proper rotation taking vectors a -> a2 and b -> b2 (frames built from each pair)."""
-    def frame(u, v):
-        e1 = u / np.linalg.norm(u)
-        w = v - (v @ e1) * e1
-        e2 = w / np.linalg.norm(w)
-        return np.column_stack([e1, e2, np.cross(e1, e2)])
-    return frame(a2, b2) @ frame(a, b).T
+def _frame(u, v):
+    """Right-handed orthonormal frame with e1 along u and e2 in the (u, v) plane (columns)."""
+    e1 = u / np.sqrt(u @ u)
+    w = v - (v @ e1) * e1
+    e2 = w / np.sqrt(w @ w)
+    e3 = np.array([e1[1] * e2[2] - e1[2] * e2[1], e1[2] * e2[0] - e1[0] * e2[2],
+                   e1[0] * e2[1] - e1[1] * e2[0]])
+    return np.column_stack([e1, e2, e3])
 
 
 def _kabsch_rmsd(p, q):
@@ -657,11 +657,12 @@ def _symmetry_number(mol, pos, tolerance):
     dist = np.linalg.norm(r[:, None, :] - r[None, :, :], axis=2)
     count = 0
     seen = set()
+    frame_ab = _frame(r[a], r[b]).T
     for a2 in classes[a]:
         for b2 in classes[b]:
             if a2 == b2 or abs(dist[a2, b2] - d_ab) > 2 * tolerance:
                 continue
-            rot = _rotation_from_pairs(r[a], r[b], r[a2], r[b2])
+            rot = _frame(r[a2], r[b2]) @ frame_ab  # the proper rotation a -> a2, b -> b2
             moved = r @ rot.T
             # nearest same-element atom for every rotated atom
             d2 = np.linalg.norm(moved[:, None, :] - r[None, :, :], axis=2)
@@ -709,7 +710,10 @@ def symmetry_number(mol, conf_id: int = -1, tolerance: float = 0.1) -> int:
     the centre): every pair of images (a', b') with the same a-b distance fixes one proper
     rotation, which is accepted if it maps the molecule onto itself. The cost grows as
     k_a k_b N² for class sizes k, so it stays in milliseconds for small molecules and does not
-    enumerate the (possibly huge) automorphism group of the bond graph.
+    enumerate the automorphism group of the bond graph, which can be huge: measured here,
+    RDKit's substructure self-matches of hexamethylethane number 3,359,232 and take 21 s,
+    while this function takes ~13 ms (CH₄ 6 ms, benzene 8 ms, staggered ethane 5 ms, cubane
+    21 ms, eicosane 21 ms; on a loaded 2-core machine).
 
     References
     ----------
