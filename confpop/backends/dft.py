@@ -63,6 +63,7 @@ DIELECTRIC_CONSTANTS: dict[str, float] = {
     "methanol": 32.613,
     "ethanol": 24.852,
     "acetone": 20.493,
+    "benzaldehyde": 18.22,
     "pyridine": 12.978,
     "1-octanol": 9.8629,
     "dichloromethane": 8.93,
@@ -70,10 +71,14 @@ DIELECTRIC_CONSTANTS: dict[str, float] = {
     "ethyl acetate": 5.9867,
     "chloroform": 4.7113,
     "diethyl ether": 4.24,
+    "aniline": 6.8882,
+    "furan": 2.9,
+    "carbon disulfide": 2.6105,
     "toluene": 2.3741,
     "benzene": 2.2706,
     "carbon tetrachloride": 2.228,
     "1,4-dioxane": 2.2099,
+    "n-hexadecane": 2.0402,
     "cyclohexane": 2.0165,
     "n-hexane": 1.8819,
 }
@@ -85,7 +90,8 @@ _SOLVENT_ALIASES = {
     "ch2cl2": "dichloromethane", "thf": "tetrahydrofuran", "ethylacetate": "ethyl acetate",
     "etoac": "ethyl acetate", "chcl3": "chloroform", "ether": "diethyl ether",
     "diethylether": "diethyl ether", "et2o": "diethyl ether", "ccl4": "carbon tetrachloride",
-    "dioxane": "1,4-dioxane", "hexane": "n-hexane",
+    "dioxane": "1,4-dioxane", "hexane": "n-hexane", "hexadecane": "n-hexadecane",
+    "cs2": "carbon disulfide", "n-octanol": "1-octanol", "furane": "furan",
 }
 
 
