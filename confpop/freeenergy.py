@@ -128,8 +128,6 @@ def free_energy_unit(task: dict) -> dict:
         displaced += 1
         new_positions, new_energy = np.array(opt.positions), float(opt.energy)
         res = harmonic_analysis(mol, method, step=task["step"], **settings)
-    grad = get_backend(method, mol, **settings).compute(res.positions, gradient=True).gradient
-
     freqs = np.array(res.frequencies)
     n_bad = int(np.sum(freqs < threshold))
     # small imaginary modes above the threshold are taken as numerical noise of a minimum and
@@ -153,7 +151,7 @@ def free_energy_unit(task: dict) -> dict:
             "entropy": entropy.tolist(), "zpe": float(th.zpe),
             "symmetry_number": int(res.symmetry_number), "imaginary_modes": n_bad,
             "lowest_frequency": float(freqs.min()) if freqs.size else float("nan"),
-            "max_gradient": float(np.max(np.abs(grad))), "energy": float(res.energy),
+            "max_gradient": float(np.max(np.abs(res.gradient))), "energy": float(res.energy),
             "displaced": displaced, "positions": new_positions, "new_energy": new_energy}
 
 
@@ -179,6 +177,14 @@ def _rebuild(ens, mol, table, step, level=None):
     return Ensemble(mol, table, level=level or ens.level, charge=ens.charge,
                     multiplicity=ens.multiplicity, solvent=ens.solvent,
                     provenance=list(ens.provenance) + [step], name=ens.name)
+
+
+def _active_ids(ens) -> list[int]:
+    ids = ens.ids()
+    if not ids:
+        raise InputError("ensemble has no active conformers (all failed or were removed); "
+                         "see ens.table() for the reasons")
+    return ids
 
 
 def _fail(table, cid, what, outcome):
@@ -276,7 +282,7 @@ def add_free_energies(ens, method: str = "gfn2", temperatures=(298.15,), low_mod
     backend_class(method)  # unknown method -> InputError now, not in every unit
 
     mol = ens.mol
-    ids = ens.ids()
+    ids = _active_ids(ens)
     tasks = [{"mol": _conformer_binary(mol, cid), "method": method, "settings": settings,
               "temperatures": temps, "low_mode": low_mode, "cutoff": float(cutoff),
               "imaginary_threshold": float(imaginary_threshold),
@@ -392,7 +398,7 @@ def rescore(ens, method: str = "dft", functional: str | None = None, basis: str 
     if solvent is not None:
         settings["solvent"] = solvent
     mol = ens.mol
-    ids = ens.ids()
+    ids = _active_ids(ens)
     tasks = [{"mol": _conformer_binary(mol, cid), "method": method, "settings": settings}
              for cid in ids]
     outcomes = _run(single_point_unit, tasks, executor, workers, progress, f"{method} single points")

@@ -446,6 +446,8 @@ class HarmonicAnalysis:
     linear : bool
     energy : float, hartree
         Energy at ``positions``.
+    gradient : (n_atoms, 3) array, hartree/angstrom
+        Gradient at ``positions`` (near zero at a stationary point).
     method : str
     solvent : str or None
     multiplicity : int
@@ -462,6 +464,7 @@ class HarmonicAnalysis:
     symmetry_number: int
     linear: bool
     energy: float
+    gradient: np.ndarray
     method: str
     solvent: str | None = None
     multiplicity: int = 1
@@ -573,7 +576,7 @@ def harmonic_analysis(mol, method: str = "gfn2", solvent: str | None = None, con
     pos = _mol_positions(mol, conf_id)
     settings = _settings(solvent, charge, multiplicity, backend_options)
     backend = _make_backend(method, _single_conformer(mol, pos), settings)
-    energy = backend.compute(pos, gradient=False).energy
+    reference = backend.compute(pos, gradient=True)
     hess = hessian(mol, method, solvent, conf_id=conf_id, step=step, executor=executor,
                    workers=workers, charge=charge, multiplicity=multiplicity, **backend_options)
     masses = atomic_masses(mol)
@@ -584,7 +587,7 @@ def harmonic_analysis(mol, method: str = "gfn2", solvent: str | None = None, con
         positions=pos, masses=masses, mass=float(masses.sum()),
         rotational_constants=_rotational_constants(pos, masses, linear),
         symmetry_number=_symmetry_number(mol, pos, symmetry_tolerance), linear=linear,
-        energy=energy, method=backend.name, solvent=backend.solvent,
+        energy=reference.energy, gradient=reference.gradient, method=backend.name, solvent=backend.solvent,
         multiplicity=backend.multiplicity)
 
 

@@ -167,6 +167,8 @@ def test_rescore_records_failures_and_keeps_rows(water):
     assert np.isnan(table.loc[1, "energy_gfn2"])
     assert table.loc[0, "energy_gfn2"] == pytest.approx(water.column("energy_gfn2")[0], abs=1e-8)
     assert out.level == "gfn2" and out.ids() == [0]
+    with pytest.raises(InputError, match="no active conformers"):
+        add_free_energies(out.select([1]), workers=1)
 
 
 def test_errors(water):
