@@ -327,7 +327,7 @@ def hessian(mol, method: str = "gfn2", solvent: str | None = None, *, conf_id: i
         chunks = n_chunks or min(6 * n, 4 * n_workers)
         parts = np.array_split(np.arange(6 * n), chunks)
         binary = single.ToBinary()
-        tasks = [(binary, displaced[idx], backend.name, settings) for idx in parts if len(idx)]
+        tasks = [(binary, displaced[idx], method, settings) for idx in parts if len(idx)]
         grads = np.concatenate(_run_units(tasks, executor, workers), axis=0)
     grads = grads.reshape(3 * n, 2, 3 * n) * BOHR_ANGSTROM  # hartree/bohr
     jac = (grads[:, 0, :] - grads[:, 1, :]) / (2.0 * step)  # row k: d g / d x_k
