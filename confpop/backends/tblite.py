@@ -5,6 +5,9 @@ xtb-python; gas-phase GFN2 energies of the two agree to ~1e-8 hartree. Solvent: 
 ALPB (the default here) and GBSA; its GBSA equals xtb-python's to ~1e-8 hartree, while ALPB
 and GBSA differ by up to a few kcal/mol for polar molecules (they are different models).
 
+A backend object reuses one engine object between calls (a fresh SCF guess each time),
+so it is not safe to share between threads; pickling drops the engine object.
+
 ``OMP_NUM_THREADS`` defaults to 1 before the engine loads (parallelism comes from processes).
 """
 

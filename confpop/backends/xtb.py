@@ -9,6 +9,9 @@ Implicit solvent: xtb-python 22.1 (libxtb 6.5.1) exposes only the GBSA model thr
 API (``Calculator.set_solvent``); its energies agree with tblite's GBSA to ~1e-8 hartree.
 For ALPB use the ``"tblite-gfn2"`` / ``"tblite-gfn1"`` backends.
 
+A backend object reuses one engine object between calls (a fresh SCF guess each time),
+so it is not safe to share between threads; pickling drops the engine object.
+
 This module also holds the solvent-name table shared with :mod:`confpop.backends.tblite`.
 
 Examples
