@@ -191,10 +191,30 @@ def _add_ensemble(parser: argparse.ArgumentParser) -> None:
                         help="worker processes (default: all cores; 1 = serial)")
     parser.add_argument("--store", default=None, metavar="FILE",
                         help="SQLite result store: reuse finished calculations, resume interrupted runs")
+    parser.add_argument("--free-energy", action="store_true",
+                        help="add harmonic free energies (numerical Hessians at the final level) and "
+                             "print populations from E and from G(T) side by side")
+    parser.add_argument("--low-mode", default="qrrho", choices=["qrrho", "rrho", "quasi-harmonic"],
+                        help="treatment of low-frequency modes with --free-energy (default qrrho)")
+    parser.add_argument("--rescore", default=None, choices=["dft"],
+                        help="single points at a higher level (dft: B3LYP-D3(BJ)/def2-SVPD through "
+                             "PySCF) and populations from them")
     parser.add_argument("--out", default=None, metavar="DIR",
                         help="write ensemble.sdf, table.csv and run.json into DIR")
     parser.add_argument("--json", action="store_true", help="print machine-readable JSON only")
     parser.add_argument("--quiet", action="store_true", help="no progress bars")
+
+
+def _population_views(ens, temps, free: bool, dft: bool) -> dict:
+    """Populations from each kind of energy asked for: {label: DataFrame (conformer x T)}."""
+    views = {"E": ens.populations(temps, energy=ens.level)}
+    if free:
+        views["G"] = ens.populations(temps, energy="free")
+    if dft:
+        views["DFT"] = ens.populations(temps, energy="dft")
+        if free:
+            views["DFT+G"] = ens.populations(temps, energy="dft+free")
+    return views
 
 
 def _key_torsions(ens, count: int = 2):
@@ -215,20 +235,21 @@ def _key_torsions(ens, count: int = 2):
     return [(label, atoms) for _, label, atoms in scored[:count]]
 
 
-def _ensemble_table_text(ens, temps) -> str:
+def _ensemble_table_text(ens, temps, views=None) -> str:
     from rdkit.Chem import rdMolTransforms
 
     rel = ens.energies("kcal/mol")
-    pops = ens.populations(temps)
+    views = views or {"": ens.populations(temps)}
     torsions = _key_torsions(ens)
+    labels = [(name, t) for t in temps for name in views]
     head = f"{'conf':>4}  {'dE kcal/mol':>11}  {'deg':>3}  " + "  ".join(
-        f"{'p(' + format(t, 'g') + ' K)':>10}" for t in temps)
+        f"{'p' + ('_' + name if name else '') + '(' + format(t, 'g') + ' K)':>12}" for name, t in labels)
     head += "".join(f"  {label + ' (deg)':>18}" for label, _ in torsions)
     lines = [head]
     mol = ens.mol
     for cid in ens.ids():
         line = f"{cid:>4}  {rel[cid]:>11.2f}  {int(ens.degeneracy[cid]):>3}  " + "  ".join(
-            f"{pops.loc[cid, t]:>10.3f}" for t in temps)
+            f"{views[name].loc[cid, t]:>12.3f}" for name, t in labels)
         line += "".join(f"  {rdMolTransforms.GetDihedralDeg(mol.GetConformer(cid), *atoms):>18.0f}"
                         for _, atoms in torsions)
         lines.append(line)
@@ -263,8 +284,19 @@ def _run_ensemble(args: argparse.Namespace) -> int:
                      merge_mirror_images=not args.keep_mirror_images, charge=args.charge,
                      multiplicity=args.multiplicity, workers=args.workers, store=args.store,
                      keep_largest_fragment=args.keep_largest_fragment, progress=progress)
+        if args.free_energy:
+            ens = ens.add_free_energies(method=ens.level, temperatures=temps,
+                                        low_mode=args.low_mode, workers=args.workers,
+                                        progress=progress)
+        if args.rescore:
+            ens = ens.rescore(args.rescore, workers=args.workers, progress=progress, rank=False)
         results.append(ens)
     payloads = [ensemble_json(e, temps, input_text=args.input) for e in results]
+    for payload, ens in zip(payloads, results):
+        if len(ens) and (args.free_energy or args.rescore):
+            views = _population_views(ens, temps, args.free_energy, bool(args.rescore))
+            payload["populations"] = {name: {format(t, "g"): [float(df.loc[c, t]) for c in ens.ids()]
+                                             for t in temps} for name, df in views.items()}
     if args.json and any(len(e) == 0 for e in results):
         raise CalculationFailed("every conformer failed: " + "; ".join(
             sorted(set(results[0].raw_table["reason"]))))
@@ -290,7 +322,17 @@ def _run_ensemble(args: argparse.Namespace) -> int:
                 print(f"{cid:>4}  failed: {row['reason']}")
             print(f"{_PROG}: error: every conformer failed (reasons above)", file=sys.stderr)
             return 1
-        print(_ensemble_table_text(ens, temps))
+        views = (_population_views(ens, temps, args.free_energy, bool(args.rescore))
+                 if (args.free_energy or args.rescore) else None)
+        print(_ensemble_table_text(ens, temps, views))
+        if views:
+            print("p_E: from electronic energies at " + ens.level + "; "
+                  + ("p_G: from G(T) = E + harmonic free-energy correction (" + args.low_mode
+                     + ", standard state " + ("1 M" if ens.solvent else "1 bar") + "); "
+                     if args.free_energy else "")
+                  + ("p_DFT: from B3LYP-D3(BJ)/def2-SVPD single points at the same geometries"
+                     + ("; p_DFT+G: DFT energy + the free-energy correction" if args.free_energy else "")
+                     if args.rescore else ""))
         n_eff = ens.effective_count(temps[0])
         print(f"{len(ens)} conformers within {args.energy_window:g} kcal/mol; sampling "
               f"completeness {100 * summary.get('completeness', float('nan')):.1f} % "

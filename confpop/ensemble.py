@@ -201,13 +201,17 @@ class Ensemble:
 
         Every ``energy_<level>`` column is shown relative to the lowest active conformer at
         that level (absolute hartree values stay in :attr:`raw_table`); ``gcorr_``/``hcorr_``
-        corrections are converted but not shifted. Rows are sorted by relative energy; failed
+        corrections and ``zpe`` are converted but not shifted, ``entropy_`` columns are in
+        ``unit``/K. Rows are sorted by relative energy; failed
         conformers come last with their reason.
         """
         unit = normalize_unit(unit)
         out = self._table.copy()
         active = out["status"] == _STATUS_OK
-        for c in [c for c in out.columns if c.startswith(("energy_", "gcorr_", "hcorr_"))]:
+        for c in [c for c in out.columns if c.startswith("entropy_")]:  # hartree/K -> unit/K
+            out[c] = convert(out[c].to_numpy(dtype=float), "hartree", unit)
+        for c in [c for c in out.columns if c.startswith(("energy_", "gcorr_", "hcorr_"))
+                  or c == "zpe"]:
             values = convert(out[c].to_numpy(dtype=float), "hartree", unit)
             if c.startswith("energy_") and active.any():
                 values = values - np.nanmin(np.where(active, values, np.nan)) \

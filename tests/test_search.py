@@ -172,3 +172,14 @@ def test_cli_ensemble_bad_input_one_line(capsys):
     assert len(err) == 1 and err[0].startswith("confpop: error:")
     assert main(["ensemble", "CC(O)CC", "--method", "mmff94s"]) == 2
     assert "unassigned" in capsys.readouterr().err
+
+
+def test_cli_free_energy_populations_side_by_side(capsys):
+    assert main(["ensemble", "CCCC", "--method", "mmff94s", "--free-energy", "-T", "200",
+                 "400"]) == 0
+    text = capsys.readouterr().out
+    assert "p_E(200 K)" in text and "p_G(400 K)" in text
+    assert main(["ensemble", "CCCC", "--method", "mmff94s", "--free-energy", "--json"]) == 0
+    data = json.loads(capsys.readouterr().out)
+    p_e, p_g = data["populations"]["E"]["298.15"], data["populations"]["G"]["298.15"]
+    assert sum(p_g) == pytest.approx(1.0) and p_g != pytest.approx(p_e, abs=1e-4)
