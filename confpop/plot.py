@@ -119,3 +119,92 @@ def coupling_temperature_plot(averages: pd.DataFrame, path=None, ax=None, label_
         ax.legend(fontsize=6, loc="best")
     _save(fig, path)
     return fig
+
+
+__all__ += ["plot_torsion_profile"]
+
+
+def plot_torsion_profile(profile, path=None, ax=None, show_walks: bool = True,
+                         annotate: bool = True):
+    """A torsion profile: scan points, the periodic fit, minima, maxima and barriers.
+
+    Parameters
+    ----------
+    profile : confpop.torsion.TorsionProfile
+        From :func:`confpop.scan_torsion` or :meth:`TorsionProfile.from_energies`.
+    path : str or path-like, optional
+        Write the figure here.
+    ax : matplotlib Axes, optional
+    show_walks : bool
+        Also draw the up and down walks where they differ (hysteresis).
+    annotate : bool
+        Label each barrier (forward value, in the profile's unit) at its maximum.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+
+    Notes
+    -----
+    Filled circles are converged scan points, open red circles points that did not converge,
+    diamonds points added at fitted extrema; the line is the Fourier fit. Downward triangles
+    mark minima, upward triangles maxima; a vertical arrow at each maximum spans the forward
+    barrier from the preceding minimum.
+    """
+    if not all(hasattr(profile, a) for a in ("angles", "energies", "energy_at", "barriers")):
+        raise InputError(f"plot_torsion_profile needs a TorsionProfile, got "
+                         f"{type(profile).__name__}")
+    fig, ax = _figure(ax, size=(6.0, 4.5))
+    unit = profile.unit
+    phi = np.asarray(profile.angles, float)
+    e = np.asarray(profile.energies, float)
+    if profile.periodic:
+        lo = float(profile.start)
+        grid = np.linspace(lo, lo + 360.0, 721)
+    else:
+        grid = np.linspace(float(np.nanmin(phi)), float(np.nanmax(phi)), 361)
+    ax.plot(grid, profile.energy_at(grid), "-", color="C0", lw=1.2, label="fit")
+    conv = np.asarray(profile.converged, bool)
+    refined = np.asarray(getattr(profile, "refined", np.zeros_like(conv)), bool)
+    grid_pts = conv & ~refined
+    ax.plot(phi[grid_pts], e[grid_pts], "o", color="C0", ms=4, label="scan points")
+    if refined.any():
+        ax.plot(phi[refined & conv], e[refined & conv], "D", color="C2", ms=4,
+                label="added at extrema")
+    if (~conv).any():
+        ax.plot(phi[~conv], e[~conv], "o", mfc="none", color="C3", ms=6, label="not converged")
+    if show_walks and profile.hysteresis:
+        up = np.asarray(profile.energies_up, float)
+        down = np.asarray(profile.energies_down, float)
+        ax.plot(phi[~refined], up[~refined], ":", color="C1", lw=0.8, label="walk up")
+        ax.plot(phi[~refined], down[~refined], "--", color="C4", lw=0.8, label="walk down")
+        for angle, _ in profile.hysteresis:
+            ax.axvline(angle, color="C3", lw=0.5, alpha=0.5)
+    minima, maxima = profile.minima(), profile.maxima()
+    if profile.periodic:  # an extremum at the left edge is also at the right edge
+        minima = pd.concat([minima, minima[minima["angle"] < grid[0] + 1e-6].assign(
+            angle=lambda d: d["angle"] + 360.0)])
+        maxima = pd.concat([maxima, maxima[maxima["angle"] < grid[0] + 1e-6].assign(
+            angle=lambda d: d["angle"] + 360.0)])
+    if len(minima):
+        ax.plot(minima["angle"], minima["energy"], "v", color="k", ms=7, label="minima")
+    if len(maxima):
+        ax.plot(maxima["angle"], maxima["energy"], "^", color="k", ms=7, label="maxima")
+    if annotate:
+        for _, row in profile.barriers().iterrows():
+            x = float(row["via_max"])
+            ax.annotate("", xy=(x, row["max_energy"]), xytext=(x, row["from_energy"]),
+                        arrowprops={"arrowstyle": "<->", "color": "0.4", "lw": 0.8})
+            ax.annotate(f"{row['barrier_forward']:.2f}", (x, row["max_energy"]),
+                        xytext=(0, 5), textcoords="offset points", ha="center", fontsize=7)
+    if profile.periodic:
+        ax.set_xlim(grid[0], grid[-1])
+        ax.set_xticks(np.arange(grid[0], grid[-1] + 1e-9, 60.0))
+    kind = "relaxed" if profile.relaxed else "rigid"
+    title = f"{profile.label or tuple(profile.atoms)}  ({kind}, {profile.method or 'unstated method'})"
+    ax.set_title(title, fontsize=9)
+    ax.set_xlabel("dihedral angle / degree")
+    ax.set_ylabel(f"relative energy / {unit}")
+    ax.legend(fontsize=7, loc="best")
+    _save(fig, path)
+    return fig
