@@ -652,6 +652,163 @@ def _run_batch(args: argparse.Namespace) -> int:
     return status
 
 
+# --------------------------------------------------------------------------- scan
+
+_SCAN_CAUTION = (
+    "Caution: barriers are scan energies standing in for ΔG‡ (no zero-point, thermal or "
+    "entropy terms); that typically errs by about ±1 kcal/mol at room temperature, a factor of "
+    "about 5 in k and t1/2, on top of the method's own error."
+)
+
+
+def _add_scan(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("input", metavar="INPUT",
+                        help="a SMILES, or a MOL/SDF/XYZ file (its first structure is the start)")
+    which = parser.add_mutually_exclusive_group(required=True)
+    which.add_argument("--torsion", nargs=4, type=int, metavar=("I", "J", "K", "L"),
+                       help="the dihedral I-J-K-L to scan; 0-based atom indices as in RDKit "
+                            "(hydrogens included; for SMILES input they follow the heavy atoms)")
+    which.add_argument("--bond", nargs=2, type=int, metavar=("J", "K"),
+                       help="the bond J-K to turn (0-based indices); I and L are chosen, heavy "
+                            "atoms preferred")
+    parser.add_argument("--method", default="gfn2",
+                        help="energy method: gfn2 (default), gfn1, gfnff, tblite-gfn2, mmff94s, "
+                             "mmff94, uff, model")
+    parser.add_argument("--solvent", default=None,
+                        help="implicit solvent for tight-binding methods, e.g. water, chloroform")
+    parser.add_argument("--step", type=_finite_float, default=15.0, metavar="DEG",
+                        help="grid step in degrees; must divide 360 (default 15)")
+    parser.add_argument("--rigid", action="store_true",
+                        help="rigid scan: turn one fragment, optimize nothing (fast; barriers too high)")
+    parser.add_argument("--convergence", default="tight",
+                        choices=["loose", "normal", "tight", "verytight"],
+                        help="optimizer convergence at each point (default tight)")
+    parser.add_argument("--temperature", "-T", nargs="+", type=_finite_float, default=[298.15],
+                        metavar="K", help="temperatures in kelvin for the rates (default 298.15)")
+    parser.add_argument("--delta-nu", metavar="HZ", type=_finite_float, default=100.0,
+                        help="NMR signal separation in Hz for the exchange regime (default 100)")
+    parser.add_argument("--unit", default="kcal/mol",
+                        help='energy unit: "kcal/mol" (default), "kJ/mol", "hartree", "eV", "cm-1"')
+    parser.add_argument("--charge", type=int, default=None, help="total charge (default: from the input)")
+    parser.add_argument("--multiplicity", type=int, default=None,
+                        help="spin multiplicity 2S+1 (default: from the input's radicals)")
+    parser.add_argument("--workers", type=int, default=None,
+                        help="processes for the two walks of a relaxed scan (default 2 when two "
+                             "cores are free to use, else 1)")
+    parser.add_argument("--plot", default=None, metavar="FILE.png",
+                        help="draw the profile (minima, maxima, barriers) to this file")
+    parser.add_argument("--json", action="store_true", help="print machine-readable JSON only")
+
+
+def _angle_text(value: float) -> str:
+    """Degrees to one decimal, without a "-0.0"."""
+    value = round(float(value), 1)
+    return f"{value + 0.0:.1f}"
+
+
+def _run_scan(args: argparse.Namespace) -> int:
+    import time
+
+    from . import kinetics
+    from .execution import default_workers, local_executor
+    from .molecule import load_molecule
+    from .torsion import _check_dihedral_atoms, scan_torsion, torsion_for_bond
+    from .units import normalize_unit
+
+    unit = normalize_unit(args.unit)
+    temps = list(args.temperature)
+    bad = [t for t in temps if t <= 0.0]
+    if bad:
+        raise InputError(f"--temperature must be > 0 K, got {bad[0]:g}")
+    if args.delta_nu <= 0.0:
+        raise InputError(f"--delta-nu must be > 0 Hz, got {args.delta_nu:g}")
+    workers = args.workers
+    if workers is None:
+        workers = 2 if default_workers() >= 2 else 1
+    if isinstance(workers, bool) or workers < 1:
+        raise InputError(f"--workers must be >= 1, got {workers}")
+    mol = load_molecule(args.input, charge=args.charge, multiplicity=args.multiplicity)
+    if args.bond is not None:
+        atoms = torsion_for_bond(mol, *args.bond).atoms
+    else:
+        atoms = _check_dihedral_atoms(mol, args.torsion)
+    labels = [f"{mol.GetAtomWithIdx(a).GetSymbol()}{a}" for a in atoms]
+
+    started = time.perf_counter()
+    executor = local_executor(workers) if (workers > 1 and not args.rigid) else None
+    try:
+        profile = scan_torsion(mol, atoms, method=args.method, solvent=args.solvent,
+                               step=args.step, relaxed=not args.rigid,
+                               convergence=args.convergence, executor=executor, unit=unit,
+                               charge=args.charge, multiplicity=args.multiplicity)
+    finally:
+        if executor is not None:
+            executor.shutdown()
+    seconds = time.perf_counter() - started
+    if args.plot:
+        from .plot import plot_torsion_profile
+        plot_torsion_profile(profile, path=args.plot)
+
+    rates = profile.rates(temps, delta_nu_hz=args.delta_nu)
+    if args.json:
+        payload = profile.to_dict(temps, delta_nu_hz=args.delta_nu)
+        payload.update({"input": args.input, "atom_labels": labels, "index_base": 0,
+                        "delta_nu_hz": args.delta_nu, "temperatures": temps,
+                        "seconds": seconds, "plot": args.plot,
+                        "atropisomer_class_37C": profile.atropisomer_class(),
+                        "caution": _SCAN_CAUTION})
+        print(json.dumps(payload, indent=2, ensure_ascii=False, default=_json_number))
+        return 0
+
+    kind = "rigid" if args.rigid else f"relaxed ({args.convergence})"
+    n_extra = int(profile.refined.sum())
+    lines = [
+        f"Torsion {'-'.join(labels)}  (0-based atom indices {' '.join(map(str, atoms))}; "
+        f"bond {labels[1]}-{labels[2]} turns)",
+        f"{kind} scan, {args.method.lower()}{'  solvent ' + args.solvent if args.solvent else ''}, "
+        f"step {args.step:g} deg: {len(profile.angles) - n_extra} points"
+        f"{f' + {n_extra} at fitted extrema' if n_extra else ''}, "
+        f"{int((~profile.converged).sum())} not converged, {profile.gradient_calls} gradient "
+        f"calls, {seconds:.1f} s",
+        f"fit: Fourier series to order {profile.fit_order}, rms deviation "
+        f"{profile.fit_rmsd():.3f} {unit}",
+        "",
+        f"{'minima':<8} {'angle/deg':>10} {'E/' + unit:>12}",
+    ]
+    for _, r in profile.minima().iterrows():
+        lines.append(f"{'':<8} {_angle_text(r['angle']):>10} {r['energy']:>12.2f}")
+    lines.append(f"{'maxima':<8} {'angle/deg':>10} {'E/' + unit:>12}")
+    for _, r in profile.maxima().iterrows():
+        lines.append(f"{'':<8} {_angle_text(r['angle']):>10} {r['energy']:>12.2f}")
+    lines += ["", f"barriers between neighbouring minima ({unit}) and rates "
+                  f"(NMR regime for Δν = {args.delta_nu:g} Hz):",
+              f"{'from':>7} {'to':>7} {'via':>7} {'forward':>8} {'reverse':>8} {'T/K':>7} "
+              f"{'k_fwd/s^-1':>11} {'t1/2 fwd':>10} {'t1/2 rev':>10}  NMR"]
+    for _, r in rates.iterrows():
+        lines.append(
+            f"{_angle_text(r['from_min']):>7} {_angle_text(r['to_min']):>7} "
+            f"{_angle_text(r['via_max']):>7} "
+            f"{r['barrier_forward']:>8.2f} {r['barrier_reverse']:>8.2f} {r['temperature']:>7.2f} "
+            f"{r['k_forward']:>11.3e} {kinetics.format_duration(r['half_life_forward']):>10} "
+            f"{kinetics.format_duration(r['half_life_reverse']):>10}  {r['exchange_regime']}")
+    inter = profile.interconversion_barrier()
+    lines += ["", f"all minima interconvert over {inter:.2f} {unit} (atropisomer class "
+                  f"{profile.atropisomer_class()} at 37 °C); a full turn needs "
+                  f"{profile.full_rotation_barrier():.2f} {unit}"]
+    if profile.hysteresis:
+        lines.append("hysteresis: the up and down walks differ at "
+                     + ", ".join(f"{a:g} deg ({d:.2f} {unit})" for a, d in profile.hysteresis)
+                     + " (a neighbouring group changed during the scan; the lower energy is kept)")
+    else:
+        lines.append(f"hysteresis: none (up and down walks agree within "
+                     f"{profile.hysteresis_threshold:.2f} {unit})")
+    if args.plot:
+        lines.append(f"profile drawn to {args.plot}")
+    lines.append(_SCAN_CAUTION)
+    print("\n".join(lines))
+    return 0
+
+
 # --------------------------------------------------------------------------- registry
 
 _COMMANDS: list[tuple] = [
@@ -663,6 +820,8 @@ _COMMANDS: list[tuple] = [
      "find, rank and weight the conformers of a molecule at several temperatures"),
     ("rates", _add_rates, _run_rates,
      "rates, half-lives, atropisomer classes and NMR exchange regimes from barriers"),
+    ("scan", _add_scan, _run_scan,
+     "torsion scan: minima, maxima, barriers and interconversion rates about one bond"),
 ]
 
 
