@@ -308,7 +308,9 @@ def search_many(molecules, *, names=None, method: str = "gfn2", solvent: str | N
         this process). Not with ``executor``.
     store : str, pathlib.Path or ResultStore, optional
         SQLite result store shared by all molecules: a batch run again (or resumed after an
-        interruption) recomputes no finished calculation.
+        interruption) recomputes no finished calculation. With a distributed executor the
+        workers open it by path, so it must be on a local file system they all see (SQLite's
+        write-ahead log does not work over NFS).
     progress : bool
         Progress bars on stderr (one bar over the molecules, or the stage bars of each
         search when the conformers are spread).
@@ -648,9 +650,17 @@ def _run_conformers(entries, settings, executor, workers, store, progress, write
             else:
                 value = {"ok": True, "ensemble": ens, "seconds": time.perf_counter() - start}
             writer.finished(k, value)
+    except BaseException:
+        if pool is not None:  # do not wait for running calculations after an interrupt
+            processes = list((getattr(pool, "_processes", None) or {}).values())
+            pool.shutdown(wait=False, cancel_futures=True)
+            for process in processes:
+                process.terminate()
+            pool = None
+        raise
     finally:
         if pool is not None:
-            pool.shutdown(wait=True, cancel_futures=True)
+            pool.shutdown(wait=True)
 
 
 # ------------------------------------------------------------------------------ collecting
