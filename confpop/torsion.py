@@ -8,6 +8,9 @@ angle, and where the two directions disagree (a neighbouring group flipped durin
 but not the other: hysteresis) the angles and the differences are reported. A *rigid* scan
 only rotates the moving fragment about the j-k bond.
 
+Fitted extrema that fall between grid points are computed explicitly (from the computed
+neighbours on both sides), so minimum and maximum energies are computed, not interpolated.
+
 The profile is fitted with a Fourier series
 
     V(φ) = c + Σₙ Vₙ/2 [1 − cos(nφ − γₙ)],   n = 1 … N (N ≤ 6, limited by the point count),
@@ -53,7 +56,8 @@ MIN_DEPTH_KCAL = 0.1
 #: a fitted extremum farther than this (degrees) from every scan point is computed explicitly
 REFINE_DEG = 1.0
 
-#: a computed point this close (degrees) to a fitted extremum gives the extremum its energy
+#: a computed point this close (degrees) to a fitted extremum anchors the extremum's energy:
+#: E = E(point) + fit(extremum) - fit(point), which cancels the fit's local offset
 SNAP_DEG = 2.0
 
 BARRIER_NOTE = (
@@ -704,8 +708,8 @@ class TorsionProfile:
         return float(min_depth)
 
     def _extrema(self, min_depth=None, snap=True):
-        """Fitted extrema [(angle, energy, is_min)]; with ``snap`` a computed point within
-        SNAP_DEG gives the energy (the fit can ripple between coarse grid points)."""
+        """Fitted extrema [(angle, energy, is_min)]; with ``snap`` the energy is anchored to a
+        computed point within SNAP_DEG (the fit can ripple between coarse grid points)."""
         lo = float(self.start) if self.periodic else float(np.nanmin(self.angles[self._fit_mask]))
         hi = lo + 360.0 if self.periodic else float(np.nanmax(self.angles[self._fit_mask]))
         ext = _extrema_sequence(self.energy_at, lo, hi, self.periodic, self._depth(min_depth))
@@ -717,8 +721,10 @@ class TorsionProfile:
         for x, fit_e, is_min in ext:
             dist = _circular_difference(phi, x) if self.periodic else np.abs(phi - x)
             near = int(np.argmin(dist)) if len(dist) else -1
-            out.append((x, float(e[near]) if near >= 0 and dist[near] <= SNAP_DEG else fit_e,
-                        is_min))
+            if near >= 0 and dist[near] <= SNAP_DEG:
+                # the fit's local shape, anchored to the computed point next to the extremum
+                fit_e = float(e[near]) + fit_e - float(self.energy_at(phi[near]))
+            out.append((x, fit_e, is_min))
         return out
 
     def minima(self, min_depth: float | None = None) -> pd.DataFrame:
@@ -917,6 +923,7 @@ class TorsionProfile:
             "angles": floats(self.angles), "energies": floats(self.energies),
             "energies_up": floats(self.energies_up), "energies_down": floats(self.energies_down),
             "converged": [bool(c) for c in self.converged],
+            "refined": [bool(c) for c in self.refined], "gradient_calls": self.gradient_calls,
             "hysteresis": [{"angle": a, "difference": d} for a, d in self.hysteresis],
             "fit_order": self.fit_order, "fit_rmsd": self.fit_rmsd(),
             "minima": records(self.minima()), "maxima": records(self.maxima()),
@@ -1081,7 +1088,14 @@ def _walk(mol, method, backend_kw, positions, atoms, targets, convergence, movin
             pos = trial
             continue
         final = np.array(res.positions, dtype=float)
-        angle = dihedral_angle(final, atoms)
+        try:
+            angle = dihedral_angle(final, atoms)
+        except InputError as exc:  # the optimizer made a bond angle of the dihedral linear
+            out.append({"energy": float("nan"), "converged": False, "message": str(exc),
+                        "positions": None, "angle": float("nan"),
+                        "gradient_calls": int(res.gradient_calls)})
+            pos = trial
+            continue
         converged = bool(res.converged)
         message = res.message
         if _circular_difference(angle, target) > 1.0:
@@ -1127,8 +1141,9 @@ def scan_torsion(molecule, atoms, method="gfn2", solvent=None, start: float = -1
     convergence : str
         Optimizer preset ("loose", "normal", "tight", "verytight").
     executor : concurrent.futures.Executor, optional
-        If given, the up and down walks of a relaxed scan run as two tasks on it (set
-        ``OMP_NUM_THREADS=1`` in its workers). Default: both in this process.
+        If given, the up and down walks of a relaxed scan run as two tasks on it, and the
+        points added at extrema one task each (set ``OMP_NUM_THREADS=1`` in its workers, as
+        :func:`confpop.execution.local_executor` does). Default: all in this process.
     unit : str
         Energy unit of the profile.
     charge, multiplicity : int, optional
@@ -1136,8 +1151,9 @@ def scan_torsion(molecule, atoms, method="gfn2", solvent=None, start: float = -1
         Up/down differences above this (``unit``; default 0.5 kcal/mol) are reported.
     refine : bool
         Compute extra points at the fitted minima and maxima that fall between grid points
-        (up to two rounds), so extremum energies are computed, not interpolated; coarse grids
-        otherwise under- or overshoot near sharp features.
+        (up to two rounds; each started from the computed points on both sides, keeping the
+        lower), so extremum energies are computed, not interpolated; coarse grids otherwise
+        under- or overshoot near sharp features.
     **backend_options
         Passed to the backend (e.g. ``barrier=`` for the model backend).
 
@@ -1182,7 +1198,14 @@ def scan_torsion(molecule, atoms, method="gfn2", solvent=None, start: float = -1
                     _label(mol, atoms[1]), _label(mol, atoms[2]))
     backend_kw = {"solvent": solvent, "charge": charge, "multiplicity": multiplicity,
                   "options": backend_options}
-    backend = _make_backend(method, mol, **backend_kw)
+    # every backend sees the starting conformer alone, as conformer 0 (the model backend
+    # takes its reference bond lengths and angles from it)
+    mol_walk = Chem.Mol(mol)
+    mol_walk.RemoveAllConformers()
+    start_conf = Chem.Conformer(mol.GetConformer(conf_id))
+    start_conf.SetId(0)
+    mol_walk.AddConformer(start_conf, assignId=False)
+    backend = _make_backend(method, mol_walk, **backend_kw)
     pos0 = np.array(mol.GetConformer(conf_id).GetPositions())
     calls = 0
     if relaxed or embedded:
@@ -1193,9 +1216,6 @@ def scan_torsion(molecule, atoms, method="gfn2", solvent=None, start: float = -1
             log.warning("the starting structure did not converge: %s", res.message)
         pos0 = np.array(res.positions, dtype=float)
     phi0 = dihedral_angle(pos0, atoms)
-    # the walks' backends see the starting conformer (the model backend takes its reference
-    # bond lengths and angles from it)
-    mol_walk = Chem.Mol(mol, False, conf_id)
 
     n = len(angles)
     if not relaxed:
@@ -1237,11 +1257,24 @@ def scan_torsion(molecule, atoms, method="gfn2", solvent=None, start: float = -1
             extra = _refinement(records, periodic, float(start), unit)
             if not extra:
                 break
-            starts = [_nearest_geometry(records, x, periodic) for x in extra]
-            done = _walk(mol_walk, method, backend_kw, None, atoms, extra, convergence, moving,
-                         relaxed, starts=starts)
+            # start from the computed neighbours on both sides and keep the lower result:
+            # after hysteresis the two sides can sit in different basins
+            jobs = [(x, pos) for x in extra for pos in _neighbour_geometries(records, x, periodic)]
+            if executor is None:
+                done = _walk(mol_walk, method, backend_kw, None, atoms, [x for x, _ in jobs],
+                             convergence, moving, relaxed, starts=[pos for _, pos in jobs])
+            else:
+                futures = [executor.submit(_walk, mol_walk, method, backend_kw, None, atoms, [x],
+                                           convergence, moving, relaxed, starts=[pos])
+                           for x, pos in jobs]
+                done = [f.result()[0] for f in futures]
             calls += sum(p.get("gradient_calls", 0) for p in done)
-            for x, p in zip(extra, done):
+            best: dict = {}
+            for (x, _), p in zip(jobs, done):
+                old = best.get(x)
+                if old is None or _better(p, old):
+                    best[x] = p
+            for x, p in best.items():
                 records.append({"angle": float(x), "energy": p["energy"],
                                 "converged": p["converged"], "message": p["message"],
                                 "positions": p["positions"], "achieved": p["angle"],
@@ -1304,15 +1337,30 @@ def _refinement(records, periodic, start, unit) -> list[float]:
     return out
 
 
-def _nearest_geometry(records, x, periodic):
-    best, pos = None, None
+def _neighbour_geometries(records, x, periodic):
+    """Geometries of the nearest computed points below and above the angle x (one or two)."""
+    below = above = None
     for r in records:
         if r["positions"] is None:
             continue
-        d = float(_circular_difference(r["angle"], x)) if periodic else abs(r["angle"] - x)
-        if best is None or d < best:
-            best, pos = d, r["positions"]
-    return pos
+        off = float(_wrap(r["angle"] - x)) if periodic else r["angle"] - x
+        if off <= 0 and (below is None or off > below[0]):
+            below = (off, r["positions"])
+        if off >= 0 and (above is None or off < above[0]):
+            above = (off, r["positions"])
+    out = [p for _, p in (below, above) if p is not None] if below or above else []
+    if len(out) == 2 and out[0] is out[1]:
+        out = out[:1]
+    return out
+
+
+def _better(new, old) -> bool:
+    """Is scan point ``new`` preferable to ``old`` (converged first, then lower energy)?"""
+    if bool(new["converged"]) != bool(old["converged"]):
+        return bool(new["converged"]) and np.isfinite(new["energy"])
+    if not np.isfinite(old["energy"]):
+        return bool(np.isfinite(new["energy"]))
+    return bool(np.isfinite(new["energy"]) and new["energy"] < old["energy"])
 
 
 def _walk_orders(angles, phi0, periodic):
