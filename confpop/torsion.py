@@ -656,7 +656,11 @@ class TorsionProfile:
             if use.sum() < 4:
                 raise InputError(f"a partial-range profile needs at least 4 finite points, "
                                  f"got {int(use.sum())}")
-            object.__setattr__(self, "_spline", CubicSpline(self.angles[use], self.energies[use]))
+            x, y = self.angles[use], self.energies[use]
+            order = np.argsort(x, kind="stable")
+            if np.any(np.diff(x[order]) <= 0):
+                raise InputError("a partial-range profile needs distinct angles")
+            object.__setattr__(self, "_spline", CubicSpline(x[order], y[order]))
 
     # --------------------------------------------------------------- the fit
     def energy_at(self, angles) -> np.ndarray:
