@@ -20,7 +20,7 @@ from scipy.optimize import minimize_scalar
 import confpop
 from confpop import kinetics
 from confpop.backends.base import Backend, BackendResult
-from confpop.backends.model import ModelTorsion
+from confpop.backends.model import ModelTorsion, rotor_dihedrals
 from confpop.cli import main
 from confpop.ensemble import Ensemble
 from confpop.errors import CalculationFailed, InputError
@@ -36,6 +36,15 @@ from confpop.torsion import (
 from confpop.units import convert
 
 BUTANE = (0, 1, 2, 3)
+ETHANE_HCCH = (2, 0, 1, 5)  # the dihedral that carries the model backend's ethane rotor term
+
+
+def with_conformer(smiles, seed=11):
+    """The molecule with explicit H and one embedded conformer (rigid scans then start there,
+    with no optimization)."""
+    mol = Chem.AddHs(Chem.MolFromSmiles(smiles))
+    AllChem.EmbedMolecule(mol, randomSeed=seed)
+    return mol
 
 
 def model_energy(phi, barrier=3.0, n=3, gamma=180.0):
@@ -46,7 +55,8 @@ def model_energy(phi, barrier=3.0, n=3, gamma=180.0):
 # ----------------------------------------------------------------------------- model backend
 def test_rigid_model_scan_is_the_analytic_threefold_profile():
     # analytic: the model's only torsion term on C0-C1-C2-C3 is 3.0/2 [1 - cos(3 phi - 180)]
-    prof = scan_torsion("CCCC", BUTANE, method="model", step=30, relaxed=False)
+    assert BUTANE in rotor_dihedrals(with_conformer("CCCC"))
+    prof = scan_torsion(with_conformer("CCCC"), BUTANE, method="model", step=30, relaxed=False)
     np.testing.assert_allclose(prof.energies, model_energy(prof.angles), atol=1e-9)
     np.testing.assert_allclose(prof.barriers()["barrier_forward"], [3.0, 3.0, 3.0], atol=1e-9)
     assert prof.converged.all()
@@ -55,8 +65,10 @@ def test_rigid_model_scan_is_the_analytic_threefold_profile():
 
 def test_relaxed_model_scan_gives_exact_barrier_and_threefold_fit():
     # analytic: relaxing bonds and angles cannot lower the pure torsion term, so the relaxed
-    # profile equals V/2 [1 - cos(3 phi - 180)] with V = 3.0 kcal/mol
-    prof = scan_torsion("CCCC", BUTANE, method="model", step=30)
+    # profile equals V/2 [1 - cos(3 phi - 180)] with V = 3.0 kcal/mol (ethane: the smallest
+    # molecule with a model rotor term, on H2-C0-C1-H5)
+    assert rotor_dihedrals(Chem.AddHs(Chem.MolFromSmiles("CC"))) == [ETHANE_HCCH]
+    prof = scan_torsion("CC", ETHANE_HCCH, method="model", step=30)
     assert prof.relaxed and prof.converged.all() and prof.hysteresis == ()
     np.testing.assert_allclose(prof.energies, model_energy(prof.angles), atol=1e-4)
     minima, maxima = prof.minima(), prof.maxima()
@@ -78,7 +90,7 @@ def test_relaxed_model_scan_gives_exact_barrier_and_threefold_fit():
 
 def test_model_barrier_option_scales_the_profile_and_units_convert():
     # analytic: V = 7 kcal/mol = 29.288 kJ/mol (1 kcal = 4.184 kJ by definition)
-    prof = scan_torsion("CCCC", BUTANE, method="model", step=30, relaxed=False,
+    prof = scan_torsion(with_conformer("CCCC"), BUTANE, method="model", step=30, relaxed=False,
                         unit="kJ/mol", barrier=7.0)
     assert prof.unit == "kJ/mol"
     assert prof.full_rotation_barrier() == pytest.approx(7.0 * 4.184, rel=1e-9)
@@ -261,14 +273,16 @@ class FailsNear90(ModelTorsion):
     name = "fails-near-90"
 
     def _compute(self, positions, gradient):
-        if 80.0 < abs(dihedral_angle(positions, BUTANE)) < 100.0:
+        if 80.0 < abs(dihedral_angle(positions, ETHANE_HCCH)) < 100.0:
             raise CalculationFailed("SCF did not converge (test)")
         return super()._compute(positions, gradient)
 
 
 @pytest.mark.parametrize("relaxed", [False, True])
 def test_failed_points_are_recorded_not_dropped(relaxed):
-    prof = scan_torsion("CCCC", BUTANE, method=FailsNear90, step=45, relaxed=relaxed,
+    start = with_conformer("CC")
+    rdMolTransforms.SetDihedralDeg(start.GetConformer(), *ETHANE_HCCH, 180.0)
+    prof = scan_torsion(start, ETHANE_HCCH, method=FailsNear90, step=45, relaxed=relaxed,
                         refine=False)
     table = prof.table()
     assert len(table) == 8
@@ -324,6 +338,7 @@ def test_butane_gfn2_minima_and_barriers():
     assert side["energy"] - anti["energy"] == pytest.approx(3.31, abs=1.0)
 
 
+@pytest.mark.slow  # ~70 CPU-s (geomeTRIC steps), ~35 s on two free cores
 def test_ortho_substituents_raise_the_biphenyl_barrier_and_class():
     # MMFF94s instead of GFN2 and a 45 degree grid with loose convergence, for run time: the
     # point is the tool's consequence (ortho groups block the planar transition states, the
@@ -463,9 +478,16 @@ def test_exchange_summary_slow_and_fast_regimes():
 
 
 # ----------------------------------------------------------------------------- CLI, plot, API
-def test_cli_scan_prints_table_and_draws(tmp_path, capsys):
+@pytest.fixture
+def butane_molfile(tmp_path):
+    path = tmp_path / "butane.mol"
+    Chem.MolToMolFile(with_conformer("CCCC"), str(path))
+    return str(path)
+
+
+def test_cli_scan_prints_table_and_draws(tmp_path, butane_molfile, capsys):
     png = tmp_path / "profile.png"
-    status = main(["scan", "CCCC", "--bond", "1", "2", "--method", "model", "--rigid",
+    status = main(["scan", butane_molfile, "--bond", "1", "2", "--method", "model", "--rigid",
                    "--step", "30", "--plot", str(png)])
     out = capsys.readouterr().out
     assert status == 0
@@ -474,8 +496,8 @@ def test_cli_scan_prints_table_and_draws(tmp_path, capsys):
     assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
 
 
-def test_cli_scan_json_and_errors(capsys):
-    assert main(["scan", "CCCC", "--torsion", "0", "1", "2", "3", "--method", "model",
+def test_cli_scan_json_and_errors(butane_molfile, capsys):
+    assert main(["scan", butane_molfile, "--torsion", "0", "1", "2", "3", "--method", "model",
                  "--rigid", "--step", "30", "--json"]) == 0
     payload = json.loads(capsys.readouterr().out)
     assert payload["atoms"] == list(BUTANE) and payload["index_base"] == 0
