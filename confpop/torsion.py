@@ -273,7 +273,10 @@ def rotatable_torsions(mol: Chem.Mol, include_terminal: bool = False) -> list[To
     Parameters
     ----------
     mol : rdkit.Chem.Mol
-        Hydrogens may be implicit or explicit; atom indices refer to ``mol`` as given.
+        Hydrogens may be implicit or explicit. Heavy-atom indices refer to ``mol`` as given;
+        where a hydrogen must serve as i or l (an OH, an NH2) and ``mol`` has implicit
+        hydrogens, its index refers to ``Chem.AddHs(mol)`` (hydrogens appended after the heavy
+        atoms, as :func:`confpop.molecule.load_molecule` does).
     include_terminal : bool
         Also list terminal symmetric tops.
 

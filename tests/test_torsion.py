@@ -304,7 +304,9 @@ def test_ethane_gfn2_barrier_and_threefold_fit():
     assert prof.converged.all() and prof.hysteresis == ()
     barriers = prof.barriers()
     assert len(barriers) == 3 and len(prof.minima()) == 3  # three staggered minima
-    # Weiss & Leroi, J. Chem. Phys. 1968, 48, 962: 2.9 kcal/mol [S]; GFN2 error allowance ±0.6
+    # Weiss & Leroi, J. Chem. Phys. 1968, 48, 962: 2.9 kcal/mol [S]; allowance ±0.6 for the
+    # method (GFN2 torsion barriers of small molecules fall within ~0.5 kcal/mol of reference
+    # values, common practice; measured here 2.59)
     np.testing.assert_allclose(barriers["barrier_forward"], 2.9, atol=0.6)
     # the three barriers are equal by symmetry
     assert np.ptp(barriers["barrier_forward"]) == pytest.approx(0.0, abs=0.01)
@@ -319,14 +321,15 @@ def test_butane_gfn2_minima_and_barriers():
     assert prof.converged.all() and prof.hysteresis == ()
     minima = prof.minima()
     angles = np.sort(np.asarray(minima["angle"]) % 360.0)
-    # anti at 180; gauche near ±65 (spec tolerance ±10): Smith & Jaffe 1996 place them at ±65°
+    # anti at 180; gauche near ±65 ± 10 (high-level calculations put the gauche minimum at
+    # 65-68 degrees [from memory]; measured here ±67.6)
     assert len(angles) == 3
     np.testing.assert_allclose(angles, [65.0, 180.0, 295.0], atol=10.0)
     anti = minima.loc[(minima["angle"].abs() - 180.0).abs().idxmin()]
     gauche = minima.drop(index=anti.name)["energy"]
     assert anti["angle"] % 360.0 == pytest.approx(180.0, abs=1.0)
     # gauche - anti: CCSD(T) 0.59 kcal/mol (Smith & Jaffe, J. Phys. Chem. 1996, 100, 18718 [S]);
-    # allowance ±0.4 (GFN2 conformer energies of alkanes, common practice)
+    # allowance ±0.4 (GFN2 conformer energies of alkanes, common practice; measured here 0.60)
     np.testing.assert_allclose(gauche - anti["energy"], 0.59, atol=0.4)
     # syn barrier: CCSD(T) 5.48 kcal/mol (same source); allowance ±1.0: GFN2 eclipsing barriers
     # run low by up to ~1 kcal/mol (measured here 4.95)
