@@ -1174,6 +1174,8 @@ def scan_torsion(molecule, atoms, method="gfn2", solvent=None, start: float = -1
         Bad atoms (not a bonded chain, out of range), a bad grid, or a rigid scan of a ring bond.
     BackendUnavailable
         The method's engine is not installed.
+    CalculationFailed
+        The starting structure could not be computed, or every scan point failed.
 
     Notes
     -----
@@ -1182,7 +1184,12 @@ def scan_torsion(molecule, atoms, method="gfn2", solvent=None, start: float = -1
     and keeps the lower energy at each angle. A neighbouring group that flips during one walk
     shows up as a difference between the walks (hysteresis) and is reported in
     ``profile.hysteresis``. A point whose optimization fails is kept with
-    ``converged=False`` (energy NaN if the engine failed) and the walk goes on.
+    ``converged=False`` (energy NaN if the engine failed) and the walk goes on. Over a
+    partial range (stop − start < 360) the scan first walks down from the minimum to
+    ``start``, then sweeps up to ``stop`` and back down, and the profile is a cubic spline.
+
+    The cost is about (2 × points + extrema) constrained optimizations; their optimizer
+    steps, not the energy method, dominate for force fields and small molecules.
 
     Examples
     --------
