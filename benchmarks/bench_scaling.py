@@ -17,13 +17,13 @@ Run: OMP_NUM_THREADS=1 /work/venv/bin/python benchmarks/bench_scaling.py [--part
     conformers as units, and a local dask cluster of 2 single-threaded worker processes; the
     summaries must agree.
 
-The machine is shared: every figure is printed with the 1-minute load average beside it, and
-(a) also reports the CPU time this process got per second of wall time (its "CPU share"): on
-2 cores with other jobs running a serial run gets less than one core and two workers get less
-than two, so the measured speed-up understates what free cores would give. The estimate
-"idle" divides the serial run's CPU time by the CPU time on the busiest path of the parallel
-run (this process + the busiest worker, from the timing backend's log): what the speed-up
-would be if every process had a core of its own.
+The machine is shared: every figure is printed with the 1-minute load average beside it and
+with the CPU time the run's whole process tree got (this process, the forkserver, pool
+workers, dask nannies and workers; sampled from /proc). On 2 cores with other jobs running a
+serial run gets less than one core and two workers get less than two, so the measured
+speed-up understates what free cores would give. The "idle-core estimate" divides the serial
+run's CPU time by the CPU time on the busiest path of the parallel run (this process + the
+busiest worker): the speed-up if every process had a core of its own and nothing waited.
 """
 
 from __future__ import annotations
@@ -31,14 +31,13 @@ from __future__ import annotations
 import argparse
 import os
 import sys
-import tempfile
 import time
 
 os.environ.setdefault("OMP_NUM_THREADS", "1")  # before any engine loads
 
 HERE = os.path.dirname(os.path.abspath(__file__))
 sys.path.insert(0, os.path.dirname(HERE))
-sys.path.insert(0, HERE)  # worker processes import the timing backend from this file
+sys.path.insert(0, HERE)  # the registry imports the timing backend from this file
 
 #: (a), (b): an ether-ester with 5 rotatable bonds (RDKit count), invented for this benchmark
 FLEXIBLE = "CCOC(=O)CCOC(C)C"
@@ -53,11 +52,87 @@ SMALL = {
     "propyl formate": "CCCOC=O",
 }
 TIMED = "timed-gfn2"
-LOG_ENV = "CONFPOP_BENCH_ENGINE_LOG"
 
 
 def load() -> str:
     return f"load {os.getloadavg()[0]:.1f}"
+
+
+class TreeCPU:
+    """CPU seconds used by this process and all its descendants during a ``with`` block.
+
+    A thread reads /proc/<pid>/stat (Linux) of the process tree every ``interval`` seconds
+    and keeps the last value seen per process; pool workers, the forkserver and dask's
+    nannies and workers are all descendants. A process that ends loses at most its last
+    ``interval`` of CPU time; the sampler's own CPU time is taken off this process's.
+    """
+
+    def __init__(self, interval: float = 0.5):
+        import threading
+
+        self.interval = interval
+        self.tick = os.sysconf("SC_CLK_TCK")
+        self._stop = threading.Event()
+        self._thread = threading.Thread(target=self._loop, daemon=True)
+        self.seen: dict[int, float] = {}
+        self.base: dict[int, float] = {}
+        self.own = 0.0
+
+    def _snapshot(self) -> dict[int, float]:
+        parent_of, cpu = {}, {}
+        for entry in os.listdir("/proc"):
+            if not entry.isdigit():
+                continue
+            try:
+                with open(f"/proc/{entry}/stat") as handle:
+                    text = handle.read()
+            except OSError:
+                continue
+            fields = text[text.rindex(")") + 2:].split()  # fields 3.. of proc(5)
+            parent_of[int(entry)] = int(fields[1])
+            cpu[int(entry)] = (int(fields[11]) + int(fields[12])) / self.tick  # utime + stime
+        tree, grew = {os.getpid()}, True
+        while grew:
+            grew = False
+            for pid, parent in parent_of.items():
+                if parent in tree and pid not in tree:
+                    tree.add(pid)
+                    grew = True
+        return {pid: cpu[pid] for pid in tree if pid in cpu}
+
+    def _loop(self) -> None:
+        start = time.thread_time()
+        while not self._stop.wait(self.interval):
+            self.seen.update(self._snapshot())
+        self.own = time.thread_time() - start
+
+    def __enter__(self):
+        self.base = self._snapshot()
+        self.seen = dict(self.base)
+        self._thread.start()
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self._stop.set()
+        self._thread.join()
+        self.seen.update(self._snapshot())
+
+    def used(self) -> dict[int, float]:
+        return {pid: max(0.0, value - self.base.get(pid, 0.0)) for pid, value in self.seen.items()}
+
+    @property
+    def total(self) -> float:
+        return sum(self.used().values()) - self.own
+
+    @property
+    def parent(self) -> float:
+        return self.used().get(os.getpid(), 0.0) - self.own
+
+    def critical(self, workers: int = 2) -> float:
+        """CPU time on the busiest path: this process + the busiest worker (or an even share
+        of all the others' CPU when that is more: several short-lived pools)."""
+        others = [v for pid, v in self.used().items() if pid != os.getpid()]
+        return self.parent + max(max(others, default=0.0), sum(others) / workers)
 
 
 # ------------------------------------------------------------------------- timing backend
@@ -83,10 +158,6 @@ def _timed_class():
                 cls.cpu += dc
                 cls.calls += 1
                 cls.events.append((t0, dt))
-                path = os.environ.get(LOG_ENV)
-                if path:  # workers: pid and this process's CPU time so far
-                    with open(path, "a") as handle:
-                        handle.write(f"{os.getpid()} {time.process_time():.6f}\n")
 
     return TimedGFN2
 
@@ -100,33 +171,15 @@ def __getattr__(name):  # the class is made on first use, so that importing this
     raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
 
 
-def register_timed(log_path=None):
-    """Register the timing backend (in this process, or in a worker as its initializer).
-
-    Returns the class the registry hands out (its counters are the ones that count).
-    """
+def register_timed():
+    """Register the timing backend; return the class the registry hands out (its counters
+    are the ones that count)."""
     from confpop.backends import available_backends, backend_class, register_backend
 
-    os.environ["OMP_NUM_THREADS"] = "1"
-    if log_path is not None:
-        os.environ[LOG_ENV] = log_path
     if TIMED not in available_backends():
-        # by module name, not "__main__": worker processes import this file as a module
+        # by module name: the class is made on first use (module __getattr__ above)
         register_backend(TIMED, "bench_scaling:TimedGFN2")
     return backend_class(TIMED)
-
-
-def busiest_worker_cpu(log_path) -> float:
-    """The largest CPU time any worker had reached at its last engine call (seconds)."""
-    last: dict[str, float] = {}
-    try:
-        with open(log_path) as handle:
-            for line in handle:
-                pid, cpu = line.split()
-                last[pid] = max(last.get(pid, 0.0), float(cpu))
-    except FileNotFoundError:
-        return float("nan")
-    return max(last.values()) if last else float("nan")
 
 
 # ------------------------------------------------------------------------- (a) and (b)
@@ -141,42 +194,41 @@ def same_ensemble(a, b) -> bool:
 
 
 def part_a_b(smiles: str, rows: list) -> None:
-    import multiprocessing
-    from concurrent.futures import ProcessPoolExecutor
-
     from confpop import search
+    from confpop.execution import local_executor
 
     timed = register_timed()
     # serial, with engine calls timed
-    t0, c0 = time.perf_counter(), time.process_time()
-    serial = search(smiles, method=TIMED, seed=0, workers=1)
-    wall1, cpu1 = time.perf_counter() - t0, time.process_time() - c0
-    rows.append(("a", "serial (workers=1)", wall1, 1.0, f"{len(serial)} conformers; CPU share "
-                 f"{cpu1 / wall1:.2f} core; {load()}"))
+    t0 = time.perf_counter()
+    with TreeCPU() as cpu:
+        serial = search(smiles, method=TIMED, seed=0, workers=1)
+    wall1, cpu1 = time.perf_counter() - t0, cpu.total
+    rows.append(("a", "serial (workers=1)", wall1, 1.0,
+                 f"{len(serial)} conformers; CPU {cpu1:.0f} s, share {cpu1 / wall1:.2f} core; "
+                 f"{load()}"))
     print(f"  serial: {wall1:.1f} s, {len(serial)} conformers, {load()}", flush=True)
 
     # workers=2: run_units makes a pool per stage (what `confpop ensemble --workers 2` does)
     t0 = time.perf_counter()
-    two = search(smiles, method="gfn2", seed=0, workers=2)
+    with TreeCPU() as cpu:
+        two = search(smiles, method="gfn2", seed=0, workers=2)
     wall2 = time.perf_counter() - t0
     rows.append(("a", "search(workers=2)", wall2, wall1 / wall2,
-                 f"same ensemble: {same_ensemble(two, serial)}; {load()}"))
+                 f"same ensemble: {same_ensemble(two, serial)}; CPU {cpu.total:.0f} s, share "
+                 f"{cpu.total / wall2:.2f}; idle-core estimate {cpu1 / cpu.critical():.2f}x; "
+                 f"{load()}"))
     print(f"  workers=2: {wall2:.1f} s, {load()}", flush=True)
 
-    # one pool for the whole search, workers know the timing backend (for the estimate)
-    with tempfile.TemporaryDirectory() as folder:
-        log_path = os.path.join(folder, "engine.log")
-        with ProcessPoolExecutor(max_workers=2, mp_context=multiprocessing.get_context("forkserver"),
-                                 initializer=register_timed, initargs=(log_path,)) as pool:
-            list(pool.map(abs, [1, 2]))  # start the workers before the clock
-            t0, c0 = time.perf_counter(), time.process_time()
-            kept = search(smiles, method=TIMED, seed=0, executor=pool)
-            wall3, cpu3 = time.perf_counter() - t0, time.process_time() - c0
-            busiest = busiest_worker_cpu(log_path)
-    idle = cpu1 / (cpu3 + busiest)
+    # one pool kept for the whole search
+    t0 = time.perf_counter()
+    with TreeCPU() as cpu:
+        with local_executor(2) as pool:
+            kept = search(smiles, method="gfn2", seed=0, executor=pool)
+    wall3 = time.perf_counter() - t0
     rows.append(("a", "search(executor=one 2-worker pool)", wall3, wall1 / wall3,
-                 f"same ensemble: {same_ensemble(kept, serial)}; idle-core estimate "
-                 f"{idle:.2f}x; {load()}"))
+                 f"same ensemble: {same_ensemble(kept, serial)}; CPU {cpu.total:.0f} s, share "
+                 f"{cpu.total / wall3:.2f}; idle-core estimate {cpu1 / cpu.critical():.2f}x; "
+                 f"{load()}"))
     print(f"  one pool: {wall3:.1f} s, {load()}", flush=True)
 
     # (b) overhead of the serial run: wall minus time inside engine calls
@@ -222,13 +274,17 @@ def part_c(method: str, rows: list) -> None:
                           ("2 workers, molecules as units", {"workers": 2, "parallel": "molecules"}),
                           ("2 workers, conformers as units", {"workers": 2, "parallel": "conformers"})):
         t0 = time.perf_counter()
-        result = search_many(SMALL, method=method, **kwargs)
+        with TreeCPU() as cpu:
+            result = search_many(SMALL, method=method, **kwargs)
         wall = time.perf_counter() - t0
-        runs.append((label, wall, result))
+        runs.append((label, wall, result, cpu.total))
         print(f"  {label}: {wall:.1f} s, {result.n_ok} ok, {load()}", flush=True)
+        estimate = "" if len(runs) == 1 else \
+            f"; idle-core estimate {runs[0][3] / cpu.critical():.2f}x"
         rows.append(("c", f"batch of 20, {label}", wall, runs[0][1] / wall,
                      f"{result.n_ok} ok; same summary as 1 worker: "
-                     f"{agree(summary_of(result), summary_of(runs[0][2]))}; {load()}"))
+                     f"{agree(summary_of(result), summary_of(runs[0][2]))}; CPU {cpu.total:.0f} s, "
+                     f"share {cpu.total / wall:.2f}{estimate}; {load()}"))
     try:
         import distributed
     except ImportError:
@@ -240,12 +296,14 @@ def part_c(method: str, rows: list) -> None:
             distributed.Client(cluster) as client:
         started = time.perf_counter() - t0
         t0 = time.perf_counter()
-        result = search_many(SMALL, method=method, executor=client, parallel="molecules")
+        with TreeCPU() as cpu:
+            result = search_many(SMALL, method=method, executor=client, parallel="molecules")
         wall = time.perf_counter() - t0
     print(f"  dask: {wall:.1f} s (+{started:.1f} s cluster start), {load()}", flush=True)
     rows.append(("c", "batch of 20, dask LocalCluster 2x1", wall, runs[0][1] / wall,
                  f"cluster start {started:.1f} s not included; same summary: "
-                 f"{agree(summary_of(result), summary_of(runs[0][2]))}; {load()}"))
+                 f"{agree(summary_of(result), summary_of(runs[0][2]))}; CPU {cpu.total:.0f} s "
+                 f"(with the scheduler's), share {cpu.total / wall:.2f}; {load()}"))
 
 
 def main() -> None:

@@ -13,12 +13,14 @@ How the work is spread
     process pool or the executor runs whole molecules side by side, and each molecule's
     search runs serially inside its worker (``search(..., workers=1)``). Nothing waits at the
     end of a stage for the slowest conformer of one molecule, and sampling, pruning and
-    checks (serial within a search) run in parallel too. Measured here
-    (``benchmarks/bench_scaling.py``) this is the faster way for a batch of small molecules.
+    checks (serial within a search) run in parallel too. For 20 small molecules on 2
+    workers (``benchmarks/bench_scaling.py``) it was the faster of the two ways.
 ``parallel="conformers"``
     The molecules run one after the other in the calling process, each search spreading
-    its conformers over the workers or the executor. Better for a few large molecules: a
-    batch of 3 molecules on 16 workers would otherwise leave 13 idle.
+    its conformers over the workers or the executor (one local pool is kept for the whole
+    batch: a new pool per stage would import the engines again in every worker). Better for
+    a few large molecules: a batch of 3 molecules on 16 workers would otherwise leave 13
+    idle.
 ``parallel="auto"`` (default)
     "molecules" when there are at least as many molecules as worker slots (local workers,
     the ``max_workers`` of a pool, or the threads of a dask cluster), else "conformers".
