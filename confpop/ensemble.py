@@ -25,16 +25,6 @@ __all__ = ["Ensemble"]
 _STATUS_OK = "ok"
 
 
-def _temperatures(temperatures) -> list[float]:
-    temps = np.atleast_1d(np.asarray(temperatures, dtype=float)).ravel()
-    if temps.size == 0:
-        raise InputError("temperatures must contain at least one value, got an empty list")
-    bad = temps[~np.isfinite(temps) | (temps <= 0)]
-    if bad.size:
-        raise InputError(f"temperature must be > 0 K and finite, got {bad[0]}")
-    return [float(t) for t in temps]
-
-
 def temperature_key(temperature: float) -> str:
     """The suffix of per-temperature columns, e.g. ``gcorr_298.15``."""
     return f"{float(temperature):.2f}"
@@ -263,7 +253,7 @@ class Ensemble:
                  temperature: float = 298.15) -> pd.Series:
         """Relative energies of the active conformers (the minimum is 0), in ``unit``."""
         self._check_active()
-        e = self._energy_matrix(_temperatures(temperature), energy)[0]
+        e = self._energy_matrix(thermo.check_temperatures(temperature), energy)[0]
         return pd.Series(convert(e - e.min(), "hartree", unit), index=pd.Index(self.ids(), name="conformer"),
                          name="relative_energy")
 
@@ -283,7 +273,7 @@ class Ensemble:
             Index: conformer id; one column per temperature (float key); columns sum to 1.
         """
         self._check_active()
-        temps = _temperatures(temperatures)
+        temps = thermo.check_temperatures(temperatures)
         e = self._energy_matrix(temps, energy)
         g = self.degeneracy.to_numpy()
         weights = np.vstack([thermo.boltzmann_weights(e[k], temps[k], unit="hartree", degeneracy=g)

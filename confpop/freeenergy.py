@@ -47,6 +47,7 @@ import pandas as pd
 from rdkit import Chem
 
 from .errors import InputError
+from .thermo import check_temperatures
 from .units import convert
 
 __all__ = ["add_free_energies", "rescore", "free_energy_unit", "single_point_unit",
@@ -80,16 +81,6 @@ def _resolve_solvent(ens, solvent, method):
                  "is in %s", method, ens.solvent)
         return None
     return ens.solvent
-
-
-def _check_temperatures(temperatures):
-    temps = np.atleast_1d(np.asarray(temperatures, dtype=float)).ravel()
-    if temps.size == 0:
-        raise InputError("temperatures must hold at least one value, got an empty list")
-    bad = temps[~np.isfinite(temps) | (temps <= 0)]
-    if bad.size:
-        raise InputError(f"temperature must be > 0 K and finite, got {bad[0]}")
-    return [float(t) for t in temps]
 
 
 # ---------------------------------------------------------------------------------- units
@@ -263,7 +254,7 @@ def add_free_energies(ens, method: str = "gfn2", temperatures=(298.15,), low_mod
     from .ensemble import step_record, temperature_key
 
     started = time.perf_counter()
-    temps = _check_temperatures(temperatures)
+    temps = check_temperatures(temperatures)
     if low_mode not in ("qrrho", "rrho", "quasi-harmonic"):
         raise InputError(f"low_mode must be 'qrrho', 'rrho' or 'quasi-harmonic', got {low_mode!r}")
     if not (isinstance(imaginary_threshold, (int, float)) and imaginary_threshold <= 0):

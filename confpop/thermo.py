@@ -96,6 +96,18 @@ def _temperatures(temperature, name: str = "temperature") -> tuple[np.ndarray, b
     return np.atleast_1d(t), t.ndim == 0
 
 
+def check_temperatures(temperatures, name: str = "temperature") -> list[float]:
+    """Temperatures (a number or a 1-D sequence, K) as a list of floats, each finite and > 0.
+
+    Raises
+    ------
+    InputError
+        Empty, not 1-D, not finite or not positive; the message names the bad value.
+    """
+    t, _ = _temperatures(temperatures, name)
+    return [float(x) for x in t]
+
+
 def _check_positive(value, name: str, what: str = "> 0") -> float:
     v = _float_array(value, name)
     if v.ndim != 0:

@@ -36,6 +36,7 @@ import pandas as pd
 from rdkit import Chem
 
 from .errors import CalculationFailed, InputError
+from .thermo import check_temperatures
 from .units import convert, normalize_unit
 
 __all__ = ["Torsion", "TorsionProfile", "Interconversion", "scan_torsion", "rotatable_torsions",
@@ -849,7 +850,7 @@ class TorsionProfile:
         k = κ k_B T / h · exp(−ΔE‡ / RT) with the scan barrier ΔE‡ standing in for ΔG‡: see
         :attr:`note` (typically ±1 kcal/mol at room temperature, a factor ~5 in k).
         """
-        temps = _temperatures(temperatures)
+        temps = check_temperatures(temperatures)
         table = self.barriers(min_depth)
         rows = []
         for _, b in table.iterrows():
@@ -946,16 +947,6 @@ class TorsionProfile:
         return (f"<TorsionProfile {self.label or self.atoms} {kind} {self.method} "
                 f"{len(self.angles)} points, {len(self.minima())} minima, "
                 f"full rotation {self.full_rotation_barrier():.2f} {self.unit}>")
-
-
-def _temperatures(temperatures) -> list[float]:
-    temps = np.atleast_1d(np.asarray(temperatures, dtype=float)).ravel()
-    if temps.size == 0:
-        raise InputError("temperatures must contain at least one value, got an empty list")
-    bad = temps[~np.isfinite(temps) | (temps <= 0)]
-    if bad.size:
-        raise InputError(f"temperature must be > 0 K and finite, got {bad[0]}")
-    return [float(t) for t in temps]
 
 
 def _rate_row(b, t, unit, delta_nu_hz, transmission):
@@ -1576,7 +1567,7 @@ def interconversion(ens, i: int, j: int, method=None, temperatures=(298.15,), *,
     temperature, a factor ~5 in k).
     """
     unit = normalize_unit(unit)
-    temps = _temperatures(temperatures)
+    temps = check_temperatures(temperatures)
     ids = ens.ids(active=False)
     for name, c in (("i", i), ("j", j)):
         if c not in ids:
@@ -1650,7 +1641,7 @@ def exchange_summary(ens, temperatures, *, delta_nu_hz: float, method=None,
     """
     from . import kinetics
     unit = normalize_unit(unit)
-    temps = _temperatures(temperatures)
+    temps = check_temperatures(temperatures)
     method = _default_method(ens, method)
     ids = ens.ids()
     try:

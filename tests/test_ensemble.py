@@ -72,7 +72,7 @@ def test_steps_return_new_ensembles(three):
 
 
 def test_bad_input_named(three):
-    with pytest.raises(InputError, match="temperature must be > 0 K"):
+    with pytest.raises(InputError, match="temperature must be finite and > 0 K"):
         three.populations([-5.0])
     with pytest.raises(InputError, match="one value per conformer"):
         Ensemble.from_mol(three.mol, [0.0])

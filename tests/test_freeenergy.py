@@ -172,7 +172,7 @@ def test_rescore_records_failures_and_keeps_rows(water):
 
 
 def test_errors(water):
-    with pytest.raises(InputError, match="temperature must be > 0"):
+    with pytest.raises(InputError, match="temperature must be finite and > 0 K"):
         add_free_energies(water, temperatures=[-5.0], workers=1)
     with pytest.raises(InputError, match="low_mode must be"):
         add_free_energies(water, low_mode="cheap", workers=1)

@@ -417,7 +417,7 @@ def test_bad_scan_input_raises_clear_errors():
         scan_torsion("CCCC", BUTANE, method="nonsense", relaxed=False)
     with pytest.raises(InputError, match="at least 4 points"):
         TorsionProfile.from_energies([0, 90, 180], [0, 1, 0])
-    with pytest.raises(InputError, match="temperature must be > 0"):
+    with pytest.raises(InputError, match="temperature must be finite and > 0 K"):
         TorsionProfile.from_energies(np.arange(0, 360, 30.0), np.arange(12.0)).rates(-5.0)
 
 
