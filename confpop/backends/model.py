@@ -40,11 +40,12 @@ def rotor_dihedrals(mol: Chem.Mol) -> list[tuple[int, int, int, int]]:
 
 
 def _dihedral(p, i, j, k, l):
-    b0, b1, b2 = p[i] - p[j], p[k] - p[j], p[l] - p[k]
-    b1n = b1 / np.linalg.norm(b1)
-    v = b0 - np.dot(b0, b1n) * b1n
-    w = b2 - np.dot(b2, b1n) * b1n
-    return np.arctan2(np.dot(np.cross(b1n, v), w), np.dot(v, w))
+    """Dihedral angles (radians) for a batch of geometries p of shape (B, n, 3)."""
+    b0, b1, b2 = p[:, i] - p[:, j], p[:, k] - p[:, j], p[:, l] - p[:, k]
+    b1n = b1 / np.linalg.norm(b1, axis=1, keepdims=True)
+    v = b0 - np.sum(b0 * b1n, axis=1, keepdims=True) * b1n
+    w = b2 - np.sum(b2 * b1n, axis=1, keepdims=True) * b1n
+    return np.arctan2(np.sum(np.cross(b1n, v) * w, axis=1), np.sum(v * w, axis=1))
 
 
 class ModelTorsion(Backend):
@@ -70,7 +71,7 @@ class ModelTorsion(Backend):
         if ref.GetNumConformers() == 0:
             if AllChem.EmbedMolecule(ref, randomSeed=7) != 0:
                 raise InputError("model backend could not make a reference geometry")
-        pos = ref.GetConformer(0).GetPositions()
+        pos = next(iter(ref.GetConformers())).GetPositions()
         self._bonds = np.array([(b.GetBeginAtomIdx(), b.GetEndAtomIdx()) for b in ref.GetBonds()],
                                dtype=int).reshape(-1, 2)
         self._r0 = np.linalg.norm(pos[self._bonds[:, 0]] - pos[self._bonds[:, 1]], axis=1)
@@ -90,34 +91,37 @@ class ModelTorsion(Backend):
         self._gamma = np.radians(float(self.options["phase"]))
 
     def _angle_values(self, p):
+        """Bend angles (radians) for p of shape (n, 3) or (B, n, 3)."""
+        p = np.asarray(p)
+        batch = p[None] if p.ndim == 2 else p
         if len(self._angles) == 0:
-            return np.zeros(0)
-        a = p[self._angles[:, 0]] - p[self._angles[:, 1]]
-        c = p[self._angles[:, 2]] - p[self._angles[:, 1]]
-        cos = np.sum(a * c, axis=1) / (np.linalg.norm(a, axis=1) * np.linalg.norm(c, axis=1))
-        return np.arccos(np.clip(cos, -1.0, 1.0))
+            out = np.zeros((batch.shape[0], 0))
+        else:
+            a = batch[:, self._angles[:, 0]] - batch[:, self._angles[:, 1]]
+            c = batch[:, self._angles[:, 2]] - batch[:, self._angles[:, 1]]
+            cos = np.sum(a * c, axis=2) / (np.linalg.norm(a, axis=2) * np.linalg.norm(c, axis=2))
+            out = np.arccos(np.clip(cos, -1.0, 1.0))
+        return out[0] if p.ndim == 2 else out
 
-    def _energy(self, p):
-        r = np.linalg.norm(p[self._bonds[:, 0]] - p[self._bonds[:, 1]], axis=1)
-        e = self._kb * np.sum((r - self._r0) ** 2)
-        e += self._ka * np.sum((self._angle_values(p) - self._theta0) ** 2)
+    def _energies(self, batch):
+        """Energies (hartree) of a batch of geometries, shape (B, n, 3) -> (B,)."""
+        r = np.linalg.norm(batch[:, self._bonds[:, 0]] - batch[:, self._bonds[:, 1]], axis=2)
+        e = self._kb * np.sum((r - self._r0) ** 2, axis=1)
+        e = e + self._ka * np.sum((self._angle_values(batch) - self._theta0) ** 2, axis=1)
         for d in self._rotors:
-            phi = _dihedral(p, *d)
-            e += 0.5 * self._v * (1.0 - np.cos(self._n * phi - self._gamma))
-        return float(e)
+            phi = _dihedral(batch, *d)
+            e = e + 0.5 * self._v * (1.0 - np.cos(self._n * phi - self._gamma))
+        return e
 
     def _compute(self, positions, gradient):
-        energy = self._energy(positions)
+        energy = float(self._energies(positions[None])[0])
         grad = None
         if gradient:
+            # central differences, all 6N displaced geometries in one vectorized call
             h = 1e-5
-            grad = np.zeros_like(positions)
-            work = positions.copy()
-            for idx in np.ndindex(*positions.shape):
-                work[idx] += h
-                ep = self._energy(work)
-                work[idx] -= 2 * h
-                em = self._energy(work)
-                work[idx] += h
-                grad[idx] = (ep - em) / (2 * h)
+            n3 = positions.size
+            steps = np.eye(n3).reshape(n3, *positions.shape) * h
+            batch = np.concatenate([positions[None] + steps, positions[None] - steps])
+            e = self._energies(batch)
+            grad = ((e[:n3] - e[n3:]) / (2 * h)).reshape(positions.shape)
         return BackendResult(energy=energy, gradient=grad)
