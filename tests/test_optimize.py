@@ -248,3 +248,103 @@ def test_runs_in_a_fresh_worker_process(anti_start):
         remote = pool.submit(_optimize_in_worker, backend, x).result(timeout=300)
     assert remote.energy == pytest.approx(local.energy, abs=1e-8)
     assert remote.gradient_calls == local.gradient_calls
+
+
+# --- vectorized geomeTRIC coordinates -------------------------------------------------
+# confpop evaluates geomeTRIC's distances, angles, dihedrals and out-of-plane angles with
+# numpy instead of one Python call per primitive. The reference for each check is
+# geomeTRIC's own per-primitive code (geometric 1.1.1) on the same coordinates.
+
+# invented test molecule: nitrile (linear angle), amide (out-of-plane), ether chain
+NITRILE_AMIDE = "N#CCC(=O)N(C)CCOC"
+
+
+def _geometric_coordinates(mol, connect):
+    from geometric.internal import DelocalizedInternalCoordinates
+    from geometric.molecule import Molecule
+
+    from confpop.optimize import _geometric_classes
+
+    molecule = Molecule()
+    molecule.elem = [a.GetSymbol() for a in mol.GetAtoms()]
+    molecule.xyzs = [mol.GetConformer().GetPositions()]
+    molecule.build_topology()
+    plain = DelocalizedInternalCoordinates(molecule, build=True, connect=connect)
+    fast = _geometric_classes()[2](molecule, build=True, connect=connect)
+    return plain, fast
+
+
+@pytest.mark.parametrize("connect", [False, True], ids=["tric", "dlc"])
+def test_vectorized_primitives_equal_geometric_own(connect):
+    mol = Chem.AddHs(Chem.MolFromSmiles(NITRILE_AMIDE))
+    assert AllChem.EmbedMolecule(mol, randomSeed=11) == 0
+    plain, fast = _geometric_coordinates(mol, connect)
+    kinds = {type(p).__name__ for p in fast.Prims.Internals}
+    assert {"Distance", "Angle", "Dihedral", "OutOfPlane", "LinearAngle"} <= kinds
+    assert ("RotationA" in kinds) is not connect  # TRIC adds rotations, DLC does not
+    rng = np.random.default_rng(5)
+    x = mol.GetConformer().GetPositions().ravel() * 1.8897261  # bohr (any scale will do)
+    # a large random displacement: many dihedrals cross +-180 degrees
+    y = x + rng.normal(scale=0.4, size=x.shape)
+    np.testing.assert_allclose(fast.Prims.calculate(y), plain.Prims.calculate(y),
+                               rtol=0, atol=1e-12)
+    np.testing.assert_allclose(fast.Prims.derivatives(y), plain.Prims.derivatives(y),
+                               rtol=0, atol=1e-12)
+    np.testing.assert_allclose(fast.Prims.calcDiff(y, x), plain.Prims.calcDiff(y, x),
+                               rtol=0, atol=1e-12)
+    # the delocalized coordinates built from them span the same space (the vectors
+    # themselves are arbitrary within degenerate eigenvalues), and the G pseudo-inverse
+    # (symmetric eigendecomposition here, SVD in geomeTRIC) is the same matrix
+    np.testing.assert_allclose(fast.Vecs @ fast.Vecs.T, plain.Vecs @ plain.Vecs.T,
+                               rtol=0, atol=1e-8)
+    np.testing.assert_allclose(fast.GInverse(y), fast.GInverse_SVD(y), rtol=0, atol=1e-9)
+
+
+def test_vectorized_primitives_edge_cases():
+    # geomeTRIC special-cases exactly linear angles (its own reference axis) and zeroes
+    # the dihedral terms of a nearly linear angle; both must match its code.
+    from geometric.internal import Angle, Dihedral, Distance, OutOfPlane
+
+    from confpop.optimize import _geometric_classes
+
+    fast_class = _geometric_classes()[1]
+    x = np.array([[0.0, 0.0, 0.0], [1.5, 0.0, 0.0], [3.0, 0.0, 0.0],    # a straight line
+                  [3.0, 1.4, 0.3], [-0.2, 1.3, -0.4], [1.5, 1e-4, 1.0]]).ravel()
+    prims = fast_class.__new__(fast_class)
+    prims.Internals = [Angle(0, 1, 2), Angle(2, 1, 0), Angle(3, 2, 1), Dihedral(0, 1, 2, 3),
+                       Dihedral(4, 0, 1, 2), Dihedral(4, 0, 2, 3), Dihedral(3, 2, 1, 4),
+                       OutOfPlane(1, 0, 2, 5), Distance(5, 1)]
+    values = np.array([p.value(x) for p in prims.Internals])
+    derivatives = np.array([p.derivative(x) for p in prims.Internals])
+    np.testing.assert_allclose(prims.calculate(x), values, rtol=0, atol=1e-12)
+    np.testing.assert_allclose(prims.derivatives(x), derivatives, rtol=0, atol=1e-12)
+    assert np.isfinite(prims.derivatives(x)).all()
+    # periodic differences: -179 deg minus +179 deg is +2 deg, as geomeTRIC wraps it
+    y = x.reshape(-1, 3).copy()
+    y[3] = [3.0, -1.4, 0.3]
+    diffs = [p.calcDiff(y.ravel(), x) for p in prims.Internals]
+    np.testing.assert_allclose(prims.calcDiff(y.ravel(), x), diffs, rtol=0, atol=1e-12)
+
+
+@pytest.mark.parametrize("engine", ["geometric", "geometric-dlc"])
+def test_vectorized_geometric_takes_geometric_own_steps(engine, monkeypatch):
+    # Same algorithm, faster arithmetic: the optimization must follow geomeTRIC's own
+    # coordinate classes step for step (MMFF94 keeps this cheap; constraints included).
+    import confpop.optimize as optimize_module
+
+    mol = Chem.AddHs(Chem.MolFromSmiles("N#CCC(=O)NC"))  # invented: nitrile + amide
+    assert AllChem.EmbedMolecule(mol, randomSeed=3) == 0
+    start = mol.GetConformer().GetPositions()
+    runs = []
+    for accelerate in (False, True):
+        monkeypatch.setattr(optimize_module, "_ACCELERATE_GEOMETRIC", accelerate)
+        backend = get_backend("mmff94", mol)
+        runs.append((optimize_positions(backend, start, engine=engine, convergence="normal"),
+                     optimize_positions(backend, start, engine=engine, convergence="normal",
+                                        frozen_atoms=[0],
+                                        dihedral_constraints=[((1, 2, 3, 5), None)])))
+    for own, fast in zip(*runs):
+        assert own.converged and fast.converged
+        assert fast.gradient_calls == own.gradient_calls
+        assert fast.energy == pytest.approx(own.energy, abs=1e-10)
+        np.testing.assert_allclose(fast.positions, own.positions, rtol=0, atol=1e-6)
