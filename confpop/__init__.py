@@ -33,6 +33,8 @@ _PUBLIC: dict[str, str] = {
     "Ensemble": "ensemble",
     "read_ensemble": "io",
     "search": "pipeline",
+    "read_batch_input": "batch",
+    "BatchResult": "batch",
     "search_many": "batch",
     "run_units": "execution",
     "stereoisomers": "molecule",

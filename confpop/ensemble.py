@@ -85,6 +85,12 @@ class Ensemble:
         self.provenance = copy.deepcopy(list(provenance or []))
         self.name = name
 
+    def __reduce__(self):
+        # RDKit pickles coordinates in single precision and drops properties by default
+        flags = Chem.PropertyPickleOptions.AllProps | Chem.PropertyPickleOptions.CoordsAsDouble
+        return (_rebuild, (self._mol.ToBinary(flags), self._table, self.level, self.charge,
+                           self.multiplicity, self.solvent, self.provenance, self.name))
+
     # ----------------------------------------------------------------- construction
     @classmethod
     def from_mol(cls, mol: Chem.Mol, energies=None, *, level: str = "input",
@@ -384,6 +390,11 @@ class Ensemble:
     def _repr_html_(self) -> str:
         title = html.escape(f"Ensemble {self.name}: {len(self)} conformers, level {self.level}")
         return f"<p><b>{title}</b></p>" + self._summary_frame().to_html(float_format=lambda x: f"{x:.3f}")
+
+
+def _rebuild(binary, table, level, charge, multiplicity, solvent, provenance, name) -> Ensemble:
+    return Ensemble(Chem.Mol(binary), table, level=level, charge=charge, multiplicity=multiplicity,
+                    solvent=solvent, provenance=provenance, name=name)
 
 
 def thermo_rt(temperature: float, unit: str = "kcal/mol") -> float:

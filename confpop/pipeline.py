@@ -327,6 +327,8 @@ def _intermediate_prune(ens, positions, method, window, settings, achiral):
     conformers above ``window`` kcal/mol after the pre-optimization."""
     t0 = time.perf_counter()
     ids = ens.ids()
+    if not ids:
+        return ens, positions
     energies = ens.raw_table.loc[ids, f"energy_{method}"].to_numpy(dtype=float)
     loose = PruneSettings(rmsd=2 * settings.rmsd, energy_tolerance=2.5 * settings.energy_tolerance,
                           merge_mirror_images=True, max_automorphisms=settings.max_automorphisms)
