@@ -336,8 +336,9 @@ def _geometric_classes():
                 atoms[kind].append((prim.a, prim.b) if kind == "distance" else
                                    (prim.a, prim.b, prim.c) if kind == "angle" else
                                    (prim.a, prim.b, prim.c, prim.d))
+            width = {"distance": 2, "angle": 3, "torsion": 4}
             groups = {kind: (np.array(rows[kind], dtype=int),
-                             np.array(atoms[kind], dtype=int).reshape(len(rows[kind]), -1))
+                             np.array(atoms[kind], dtype=int).reshape(len(rows[kind]), width[kind]))
                       for kind in rows}
             groups["other"] = other
             self._confpop_groups = (key, groups)
