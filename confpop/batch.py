@@ -626,7 +626,7 @@ def _run_molecules(entries, settings, executor, workers, store, progress, writer
 
 
 def _run_conformers(entries, settings, executor, workers, store, progress, writer) -> None:
-    from .execution import default_workers, local_executor
+    from .execution import default_workers, local_executor, terminate_pool
     from .pipeline import search
 
     # One local pool for the whole batch: a search given workers= makes a new pool for each
@@ -654,10 +654,7 @@ def _run_conformers(entries, settings, executor, workers, store, progress, write
             writer.finished(k, value)
     except BaseException:
         if pool is not None:  # do not wait for running calculations after an interrupt
-            processes = list((getattr(pool, "_processes", None) or {}).values())
-            pool.shutdown(wait=False, cancel_futures=True)
-            for process in processes:
-                process.terminate()
+            terminate_pool(pool)
             pool = None
         raise
     finally:

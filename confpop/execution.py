@@ -195,6 +195,19 @@ def _run_pooled_unit(function_blob: bytes, item_blob: bytes, index: int, attempt
 # --------------------------------------------------------------------------------------------
 # parent side
 # --------------------------------------------------------------------------------------------
+def terminate_pool(pool) -> None:
+    """Stop a local process pool without waiting for running units (after an interrupt).
+
+    The interpreter would otherwise wait for long calculations at exit. Python 3.14 has
+    ``terminate_workers()``; before it only the private process dict, which ``shutdown()``
+    clears, so it is taken first.
+    """
+    processes = list((getattr(pool, "_processes", None) or {}).values())
+    pool.shutdown(wait=False, cancel_futures=True)
+    for process in processes:
+        process.terminate()
+
+
 def default_workers() -> int:
     """Number of CPUs this process may run on (its affinity mask), at least 1."""
     try:
@@ -420,13 +433,7 @@ class _Run:
                     quarantine.clear()
         except BaseException:
             if pool is not None:
-                # Do not leave long calculations running after an interrupt (the interpreter
-                # would wait for them at exit). Python 3.14 has terminate_workers(); before it,
-                # only the private dict, which shutdown() clears: take it first.
-                processes = list((getattr(pool, "_processes", None) or {}).values())
-                pool.shutdown(wait=False, cancel_futures=True)
-                for process in processes:
-                    process.terminate()
+                terminate_pool(pool)
                 pool = None
             raise
         finally:

@@ -12,6 +12,8 @@ from rdkit.Chem import AllChem
 from rdkit.Chem import rdForceFieldHelpers as FF
 from rdkit.Chem import rdMolTransforms
 
+from nmr_molecules import rotamers
+
 from confpop.ensemble import Ensemble
 from confpop.errors import InputError
 from confpop.nmr import (average_couplings, average_dipole, coupling_spread, couplings,
@@ -26,29 +28,6 @@ def lowest_mmff(smiles, n=8, seed=11):
     energies = [e for _, e in AllChem.MMFFOptimizeMoleculeConfs(mol, maxIters=2000)]
     best = ids[int(np.argmin(energies))]
     return Chem.Mol(mol, confId=best)
-
-
-def rotamers(smiles, torsion, angles, seed=7):
-    """One MMFF94 minimum per start angle of ``torsion`` (constrained, then released)."""
-    mol = Chem.AddHs(Chem.MolFromSmiles(smiles))
-    AllChem.EmbedMolecule(mol, randomSeed=seed)
-    props = FF.MMFFGetMoleculeProperties(mol)
-    out = Chem.Mol(mol)
-    out.RemoveAllConformers()
-    energies = []
-    for k, angle in enumerate(angles):
-        m = Chem.Mol(mol)
-        rdMolTransforms.SetDihedralDeg(m.GetConformer(), *torsion, float(angle))
-        ff = FF.MMFFGetMoleculeForceField(m, props)
-        ff.MMFFAddTorsionConstraint(*torsion, False, float(angle), float(angle), 200.0)
-        ff.Minimize(maxIts=2000)
-        ff = FF.MMFFGetMoleculeForceField(m, props)
-        ff.Minimize(maxIts=2000)
-        energies.append(ff.CalcEnergy())
-        conf = Chem.Conformer(m.GetConformer())
-        conf.SetId(k)
-        out.AddConformer(conf, assignId=False)
-    return out, np.array(energies)
 
 
 def _j(table, a, b, conf=None):
