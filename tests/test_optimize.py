@@ -348,3 +348,42 @@ def test_vectorized_geometric_takes_geometric_own_steps(engine, monkeypatch):
         assert fast.gradient_calls == own.gradient_calls
         assert fast.energy == pytest.approx(own.energy, abs=1e-10)
         np.testing.assert_allclose(fast.positions, own.positions, rtol=0, atol=1e-6)
+
+
+def _two_waters():
+    # invented test system: two water molecules 3 angstrom apart (two fragments)
+    mol = Chem.AddHs(Chem.MolFromSmiles("O.O"))
+    assert AllChem.EmbedMolecule(mol, randomSeed=2) == 0
+    x = mol.GetConformer().GetPositions()
+    second = list(Chem.GetMolFrags(mol)[1])
+    x[second] += np.array([3.0, 0.0, 0.0]) - x[second[0]] + x[0]
+    return mol, x
+
+
+def test_default_engine_dlc_for_one_fragment_tric_for_several():
+    # The default picks geomeTRIC's coordinates by fragment count; it must take exactly
+    # the steps of the engine it picked (MMFF94 keeps this cheap).
+    mol = butane_at(-60.0)
+    start = mol.GetConformer().GetPositions()
+    backend = get_backend("mmff94", mol)
+    default = optimize_positions(backend, start)
+    dlc = optimize_positions(backend, start, engine="geometric-dlc")
+    assert default.gradient_calls == dlc.gradient_calls
+    assert default.energy == pytest.approx(dlc.energy, abs=1e-12)
+    waters, x = _two_waters()
+    backend = get_backend("mmff94", waters)
+    default = optimize_positions(backend, x)
+    tric = optimize_positions(backend, x, engine="GEOMETRIC-TRIC")  # names ignore case
+    assert default.converged and tric.converged
+    assert default.gradient_calls == tric.gradient_calls
+    assert default.energy == pytest.approx(tric.energy, abs=1e-12)
+
+
+def test_tric_engine_reaches_the_same_butane_minimum(anti_start, anti_tight):
+    # TRIC (the default before) and the default engine (DLC here) agree on the minimum;
+    # design requirement: within 0.05 kcal/mol of each other.
+    backend = get_backend("gfn2", anti_start)
+    tric = optimize_positions(backend, anti_start.GetConformer().GetPositions(),
+                              engine="geometric-tric")
+    assert tric.converged
+    assert kcal(tric.energy - anti_tight.energy) == pytest.approx(0.0, abs=0.05)
