@@ -402,7 +402,7 @@ def _geometric_classes():
                                    (prim.a, prim.b, prim.c, prim.d))
             width = {"distance": 2, "angle": 3, "torsion": 4}
             groups = {kind: (np.array(rows[kind], dtype=int),
-                             np.array(atoms[kind], dtype=int).reshape(len(rows[kind]), width[kind]))
+                             np.array(atoms[kind], dtype=int).reshape(-1, width[kind]))
                       for kind in rows}
             groups["other"] = other
             self._confpop_groups = (key, groups)

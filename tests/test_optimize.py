@@ -387,3 +387,27 @@ def test_tric_engine_reaches_the_same_butane_minimum(anti_start, anti_tight):
                               engine="geometric-tric")
     assert tric.converged
     assert kcal(tric.energy - anti_tight.energy) == pytest.approx(0.0, abs=0.05)
+
+
+@pytest.mark.parametrize("smiles", ["O", "[H][H]", "C#C"])
+def test_small_molecules_without_some_primitive_kinds(smiles):
+    # water has no dihedrals, H2 no angles, acetylene only linear angles: the vectorized
+    # coordinates must cope with empty groups and give geomeTRIC's own result.
+    mol = Chem.AddHs(Chem.MolFromSmiles(smiles))
+    assert AllChem.EmbedMolecule(mol, randomSeed=1) == 0
+    start = mol.GetConformer().GetPositions()
+    backend = get_backend("gfn2", mol)
+    default = optimize_positions(backend, start)
+    tric = optimize_positions(backend, start, engine="geometric-tric")
+    assert default.converged and tric.converged
+    assert kcal(default.energy - tric.energy) == pytest.approx(0.0, abs=1e-4)
+    if smiles == "C#C":  # linear by symmetry
+        angle = rdMolTransforms.GetAngleDeg(_conformer(default.positions), 2, 0, 1)
+        assert angle == pytest.approx(180.0, abs=0.5)
+
+
+def _conformer(positions):
+    conf = Chem.Conformer(len(positions))
+    for i, xyz in enumerate(positions):
+        conf.SetAtomPosition(i, xyz.tolist())
+    return conf
