@@ -53,6 +53,7 @@ from rdkit import Chem, rdBase
 
 from .ensemble import Ensemble
 from .errors import InputError
+from .thermo import check_temperatures
 
 __all__ = ["search_many", "BatchResult", "read_batch_input", "BATCH_SUFFIXES"]
 
@@ -481,16 +482,7 @@ def _folders(names: list[str]) -> list[str]:
 
 
 def _check_temperatures(temperatures) -> tuple[float, ...]:
-    try:
-        temps = np.atleast_1d(np.asarray(temperatures, dtype=float)).ravel()
-    except (TypeError, ValueError):
-        raise InputError(f"temperatures must be numbers in K, got {temperatures!r}") from None
-    if temps.size == 0:
-        raise InputError("temperatures must hold at least one value, got none")
-    bad = temps[~np.isfinite(temps) | (temps <= 0)]
-    if bad.size:
-        raise InputError(f"temperature must be > 0 K and finite, got {bad[0]}")
-    return tuple(float(t) for t in temps)
+    return tuple(check_temperatures(temperatures, "temperatures"))
 
 
 def _slots(executor, workers) -> int:

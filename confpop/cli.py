@@ -267,10 +267,8 @@ def _run_ensemble(args: argparse.Namespace) -> int:
     from .io import ensemble_json
     from .pipeline import search
 
-    temps = list(args.temperature)
-    for t in temps:
-        if t <= 0:
-            raise InputError(f"temperature must be > 0 K, got {t}")
+    from .thermo import check_temperatures
+    temps = check_temperatures(args.temperature, "--temperature")
     progress = not (args.quiet or args.json) and sys.stderr.isatty()
     sources = [args.input]
     if args.enumerate_stereo:
@@ -408,10 +406,8 @@ def _run_couplings(args: argparse.Namespace) -> int:
 
     from . import nmr
 
-    temps = [float(t) for t in args.temperature]
-    for t in temps:
-        if t <= 0:
-            raise InputError(f"temperature must be > 0 K, got {t}")
+    from .thermo import check_temperatures
+    temps = check_temperatures(args.temperature, "--temperature")
     ens = _couplings_ensemble(args)
     table = nmr.average_couplings(ens, temps, parameters=args.parameters, by=args.by)
     id_cols = [c for c in table.columns if not isinstance(c, float)]
@@ -605,10 +601,8 @@ def _run_batch(args: argparse.Namespace) -> int:
 
     from .batch import read_batch_input, search_many
 
-    temps = list(args.temperature)
-    for t in temps:
-        if t <= 0:
-            raise InputError(f"temperature must be > 0 K, got {t}")
+    from .thermo import check_temperatures
+    temps = check_temperatures(args.temperature, "--temperature")
     if args.scheduler is not None and args.workers is not None:
         raise InputError("give either --scheduler or --workers, not both")
     molecules = read_batch_input(args.input)
