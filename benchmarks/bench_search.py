@@ -3,20 +3,31 @@
 For three invented flexible molecules (5-8 rotatable bonds, 30-50 atoms; invented for this
 benchmark, not taken from any data set) this prints, side by side and measured in one run:
 
-* wall time of ``confpop.search`` (sample, MMFF94s relax, GFN2 screen, loose + tight GFN2
-  optimization of the survivors, prune);
-* wall time of a baseline that optimizes *every* sampled trial structure (the same ETKDG
-  trials the search drew) at GFN2 with the same optimizer and settings, no screening, then
-  removes duplicates;
+* wall time of ``confpop.search`` (sample, MMFF94s relax, GFN2 single-point screen, tight
+  GFN2 optimization of the survivors, prune);
+* wall time of a baseline that optimizes *every* sampled trial structure at GFN2 with the
+  same optimizer and settings and no screening, then removes duplicates and applies the same
+  final window. Its starts are the search's own trial structures: the same ETKDG seeds and
+  rounds, each relaxed with MMFF94s exactly as the search's sampling stage does, before any
+  duplicate removal or window (``--baseline-starts raw`` starts from the unrelaxed ETKDG
+  structures instead). The baseline's time includes drawing and relaxing the structures;
 * the lowest energy each found, and the population overlap sum_i min(p_i, q_i) at 298.15 K
-  (conformers matched by symmetry-aware RMSD);
+  (conformers matched by symmetry-aware RMSD < 0.25 A, mirror images included): this
+  measures what the screening lost;
+* the same two figures between the search and a second search with another seed (seed + 1):
+  the reproducibility of the sampling itself, which bounds any comparison of two ensembles;
 * median gradient calls per optimization for geomeTRIC (ours) and for scipy's L-BFGS-B in
   Cartesian coordinates, from the same starting structures (a sample of them).
 
 Targets: search >= 5x faster than the baseline, the same global minimum within 0.1
 kcal/mol, overlap >= 0.9; median gradient calls <= 60 at 48 atoms.
 
-    python benchmarks/bench_search.py [--trials 30] [--rounds 3] [--workers 2] [--only NAME]
+    python benchmarks/bench_search.py [--trials N] [--rounds R] [--workers 2] [--only NAME]
+                                      [--baseline-starts relaxed|raw] [--no-reseed]
+
+Without ``--trials``/``--rounds`` the search runs with its defaults (trials per round by
+flexibility, rounds until the completeness target); the baseline then optimizes as many
+structures as the search drew, which takes 10-30 minutes per molecule on 2 cores.
 """
 
 from __future__ import annotations
@@ -33,12 +44,12 @@ from rdkit import Chem  # noqa: E402
 
 import confpop as cp  # noqa: E402
 from confpop.backends import get_backend  # noqa: E402
+from confpop.backends.forcefield import minimize_conformers  # noqa: E402
 from confpop.molecule import load_molecule  # noqa: E402
 from confpop.optimize import optimize_positions  # noqa: E402
 from confpop.pipeline import optimize_unit  # noqa: E402
 from confpop.prune import PruneSettings, automorphisms, best_rmsd, find_duplicates, rmsd_atoms  # noqa: E402
 from confpop.sampling import embed  # noqa: E402
-from confpop.thermo import boltzmann_weights  # noqa: E402
 from confpop.units import convert  # noqa: E402
 
 # invented molecules (names are descriptions, not real compounds of any project)
@@ -67,16 +78,27 @@ def _overlap(ens_a, ens_b, mol) -> float:
     return total
 
 
-def _baseline(smiles, trials, rounds, seed, workers):
-    """Optimize every sampled trial structure at GFN2 (same optimizer), prune, return ensemble."""
-    mol = load_molecule(smiles)
+def _e_min(ens) -> float:
+    return float(ens.raw_table.loc[ens.ids(), f"energy_{ens.level}"].min())
+
+
+def _trial_structures(mol, trials, rounds, seed, starts):
+    """The search's trial structures: same seeds and rounds; MMFF94s-relaxed or raw."""
     structures = []
     for rnd in range(rounds):
         trial, _ = embed(mol, trials, seed=seed + 7919 * rnd)
+        if starts == "relaxed":
+            trial, _ = minimize_conformers(trial, method="mmff94s", max_iterations=2000)
         structures += [c.GetPositions() for c in trial.GetConformers()]
+    return structures
+
+
+def _baseline(mol, trials, rounds, seed, workers, starts):
+    """Optimize every sampled trial structure at GFN2 (same optimizer), prune, window."""
+    t0 = time.perf_counter()
+    structures = _trial_structures(mol, trials, rounds, seed, starts)
     item = {"mol": Chem.Mol(mol).ToBinary(), "method": "gfn2", "charge": 0, "multiplicity": 1,
             "solvent": None, "options": {}, "convergence": "tight", "engine": "geometric"}
-    t0 = time.perf_counter()
     outcomes = cp.run_units(optimize_unit, [{**item, "positions": p} for p in structures],
                             workers=workers)
     ok = [o.value for o in outcomes if o.ok]
@@ -93,57 +115,89 @@ def _baseline(smiles, trials, rounds, seed, workers):
     deg = [2 if rep.chiral_conformer[u] else 1 for u in keep]
     ens = cp.Ensemble.from_mol(out, [e[u] for u in keep], level="gfn2", degeneracy=deg)
     calls = [v["gradient_calls"] for v in ok]
-    return ens, time.perf_counter() - t0, len(structures), statistics.median(calls), structures, mol
+    return (ens, time.perf_counter() - t0, len(structures), statistics.median(calls),
+            structures, len(outcomes) - len(ok))
 
 
 def _lbfgs_calls(mol, structures, n):
     backend = get_backend("gfn2", mol)
     calls_g, calls_l = [], []
-    for pos in structures[:n]:
+    step = max(1, len(structures) // max(n, 1))
+    for pos in structures[::step][:n]:
         calls_g.append(optimize_positions(backend, pos, convergence="tight").gradient_calls)
         calls_l.append(optimize_positions(backend, pos, convergence="tight", engine="lbfgs").gradient_calls)
     return statistics.median(calls_g), statistics.median(calls_l)
 
 
+def _stage_counts(ens) -> str:
+    steps = {p["step"]: p for p in ens.provenance}
+    return " -> ".join(f"{name} {steps[name]['n_out']}" for name in ("sample", "screen", "optimize", "prune")
+                       if name in steps)
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--trials", type=int, default=30, help="trial structures per round")
-    ap.add_argument("--rounds", type=int, default=3)
+    ap.add_argument("--trials", type=int, default=None, help="trial structures per round (default: the search's)")
+    ap.add_argument("--rounds", type=int, default=None, help="largest number of rounds (default: the search's)")
     ap.add_argument("--workers", type=int, default=2)
     ap.add_argument("--seed", type=int, default=1)
     ap.add_argument("--calls-sample", type=int, default=4,
                     help="structures per molecule for the geomeTRIC vs L-BFGS-B call count")
-    ap.add_argument("--only", default=None, help="run only molecules whose name contains this")
+    ap.add_argument("--only", default=None,
+                    help="run only molecules whose name contains this (several: comma-separated)")
+    ap.add_argument("--baseline-starts", choices=("relaxed", "raw"), default="relaxed",
+                    help="baseline starts: MMFF94s-relaxed trial structures (the search's) or raw ETKDG")
+    ap.add_argument("--no-reseed", action="store_true", help="skip the second search (seed + 1)")
     args = ap.parse_args()
-    print(f"load average at start: {os.getloadavg()[0]:.2f} (2-core machine)")
+    print(f"load average at start: {os.getloadavg()[0]:.2f} ({os.cpu_count()} cores)", flush=True)
+    search_kw = {"method": "gfn2", "workers": args.workers}
+    if args.trials is not None:
+        search_kw["n_trials"] = args.trials
+    if args.rounds is not None:
+        search_kw["max_rounds"] = args.rounds
     rows = []
     for name, smiles in MOLECULES.items():
-        if args.only and args.only not in name:
+        if args.only and not any(part.strip() in name for part in args.only.split(",")):
             continue
+        mol = load_molecule(smiles)
         t0 = time.perf_counter()
-        ens = cp.search(smiles, method="gfn2", seed=args.seed, n_trials=args.trials,
-                        max_rounds=args.rounds, workers=args.workers)
+        ens = cp.search(smiles, seed=args.seed, **search_kw)
         t_search = time.perf_counter() - t0
-        trials_used = next(p for p in ens.provenance if p["step"] == "sample")
-        base, t_base, n_struct, base_calls, structures, mol = _baseline(
-            smiles, args.trials, trials_used["rounds"], args.seed, args.workers)
-        e_ours = float(ens.raw_table.loc[ens.ids(), "energy_gfn2"].min())
-        e_base = float(base.raw_table["energy_gfn2"].min())
+        sample = next(p for p in ens.provenance if p["step"] == "sample")
+        trials = sample["trials"] // sample["rounds"]
+        base, t_base, n_struct, base_calls, structures, base_failed = _baseline(
+            mol, trials, sample["rounds"], args.seed, args.workers, args.baseline_starts)
+        d_e = convert(_e_min(ens) - _e_min(base), "hartree", "kcal/mol")
         overlap = _overlap(ens, base, mol)
+        if args.no_reseed:
+            t_again, overlap_seed, d_e_seed = float("nan"), float("nan"), float("nan")
+        else:
+            t0 = time.perf_counter()
+            again = cp.search(smiles, seed=args.seed + 1, **search_kw)
+            t_again = time.perf_counter() - t0
+            overlap_seed = _overlap(ens, again, mol)
+            d_e_seed = convert(_e_min(again) - _e_min(ens), "hartree", "kcal/mol")
         med_geo, med_lbfgs = _lbfgs_calls(mol, structures, args.calls_sample)
-        rows.append((name, mol.GetNumAtoms(), t_search, t_base, n_struct,
-                     convert(e_ours - e_base, "hartree", "kcal/mol"), overlap, len(ens), len(base),
-                     med_geo, med_lbfgs, cp.molecule.molecule_summary(mol)["rotatable_bonds"]))
-        print(f"{name}: search {t_search:.1f} s ({len(ens)} conformers) | baseline {t_base:.1f} s "
-              f"({n_struct} optimizations, {len(base)} conformers) | speed-up {t_base / t_search:.1f}x | "
-              f"E_min(ours) - E_min(baseline) {rows[-1][5]:+.3f} kcal/mol | overlap {overlap:.3f} | "
-              f"median gradient calls geomeTRIC {med_geo:.0f}, L-BFGS-B {med_lbfgs:.0f}", flush=True)
+        rot = cp.molecule.molecule_summary(mol)["rotatable_bonds"]
+        rows.append((name, mol.GetNumAtoms(), rot, t_search, t_base, n_struct, d_e, overlap,
+                     overlap_seed, d_e_seed, med_geo, med_lbfgs))
+        print(f"{name}: search {t_search:.1f} s ({_stage_counts(ens)}; {len(ens)} conformers, "
+              f"completeness {sample['completeness']:.2f}) | baseline {t_base:.1f} s "
+              f"({n_struct} {args.baseline_starts} starts optimized, {base_failed} failed, {len(base)} "
+              f"conformers, median {base_calls:.0f} calls) | speed-up {t_base / t_search:.1f}x | "
+              f"E_min(search) - E_min(baseline) {d_e:+.3f} kcal/mol | overlap {overlap:.3f} | "
+              f"second search (seed {args.seed + 1}) {t_again:.1f} s: overlap {overlap_seed:.3f}, "
+              f"E_min difference {d_e_seed:+.3f} kcal/mol | median gradient calls geomeTRIC "
+              f"{med_geo:.0f}, L-BFGS-B {med_lbfgs:.0f}", flush=True)
     print()
-    print(f"{'molecule':24s} {'atoms':>5} {'rot':>3} {'search s':>9} {'baseline s':>10} {'speed-up':>8} "
-          f"{'dEmin kcal':>10} {'overlap':>7} {'calls TRIC':>10} {'calls LBFGS':>11}")
+    print(f"{'molecule':24s} {'atoms':>5} {'rot':>3} {'search s':>9} {'baseline s':>10} {'starts':>6} "
+          f"{'speed-up':>8} {'dEmin':>7} {'overlap':>7} {'seed ovl':>8} {'seed dE':>7} "
+          f"{'calls geo':>9} {'calls LBFGS':>11}")
     for r in rows:
-        print(f"{r[0]:24s} {r[1]:>5d} {r[11]:>3d} {r[2]:>9.1f} {r[3]:>10.1f} {r[3] / r[2]:>7.1f}x "
-              f"{r[5]:>+10.3f} {r[6]:>7.3f} {r[9]:>10.0f} {r[10]:>11.0f}")
+        print(f"{r[0]:24s} {r[1]:>5d} {r[2]:>3d} {r[3]:>9.1f} {r[4]:>10.1f} {r[5]:>6d} {r[4] / r[3]:>7.1f}x "
+              f"{r[6]:>+7.3f} {r[7]:>7.3f} {r[8]:>8.3f} {r[9]:>+7.3f} {r[10]:>9.0f} {r[11]:>11.0f}")
+    print("dEmin, seed dE in kcal/mol; overlap = sum min(p, q) at 298.15 K vs the baseline; "
+          "seed ovl = the same between two searches with different seeds")
     print(f"load average at end: {os.getloadavg()[0]:.2f}")
 
 

@@ -34,6 +34,12 @@ class _Parser(argparse.ArgumentParser):
         raise InputError(message)
 
 
+# the search's sampling defaults (kept equal to confpop.pipeline's by a test; not imported
+# here so that parsing the command line does not load RDKit)
+_MAX_ROUNDS = 20
+_TARGET_COMPLETENESS = 0.85
+
+
 def _finite_float(text: str) -> float:
     try:
         value = float(text)
@@ -176,8 +182,16 @@ def _add_ensemble(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--seed", type=int, default=0, help="sampling seed (default 0)")
     parser.add_argument("--trials", type=int, default=None,
                         help="trial structures per sampling round (default: from flexibility)")
+    parser.add_argument("--rounds", type=int, default=_MAX_ROUNDS,
+                        help=f"most sampling rounds (default {_MAX_ROUNDS})")
+    parser.add_argument("--completeness", type=_finite_float, default=_TARGET_COMPLETENESS,
+                        metavar="FRACTION",
+                        help="stop sampling once the estimated completeness reaches this "
+                             f"(default {_TARGET_COMPLETENESS}; 0 = only when a round finds nothing new)")
     parser.add_argument("--energy-window", type=_finite_float, default=5.0, metavar="KCAL",
                         help="final energy window in kcal/mol (default 5)")
+    parser.add_argument("--screen-window", type=_finite_float, default=6.0, metavar="KCAL",
+                        help="single-point screening window in kcal/mol (default 6)")
     parser.add_argument("--keep-mirror-images", action="store_true",
                         help="keep mirror-image conformers as two rows instead of one row with degeneracy 2")
     parser.add_argument("--charge", type=int, default=None, help="total charge (default: from the input)")
@@ -269,6 +283,10 @@ def _run_ensemble(args: argparse.Namespace) -> int:
 
     from .thermo import check_temperatures
     temps = check_temperatures(args.temperature, "--temperature")
+    if not 0.0 <= args.completeness < 1.0:
+        raise InputError(f"--completeness must be >= 0 and < 1, got {args.completeness}")
+    if args.rounds < 1:
+        raise InputError(f"--rounds must be >= 1, got {args.rounds}")
     progress = not (args.quiet or args.json) and sys.stderr.isatty()
     sources = [args.input]
     if args.enumerate_stereo:
@@ -279,6 +297,8 @@ def _run_ensemble(args: argparse.Namespace) -> int:
     for source in sources:
         ens = search(source, method=args.method, solvent=args.solvent, seed=args.seed,
                      n_trials=args.trials, energy_window=args.energy_window,
+                     max_rounds=args.rounds, screen_window=args.screen_window,
+                     target_completeness=args.completeness or None,
                      merge_mirror_images=not args.keep_mirror_images, charge=args.charge,
                      multiplicity=args.multiplicity, workers=args.workers, store=args.store,
                      keep_largest_fragment=args.keep_largest_fragment, progress=progress)

@@ -3,12 +3,26 @@
 Stages (each records its counts in and out and its wall time in the provenance):
 
 1. **sample**: ETKDGv3 trial structures, relaxed with a force field (MMFF94s), in rounds
-   until a round adds no new conformer (:mod:`confpop.sampling`); duplicates removed and a
-   wide force-field window applied (``ff_window``, default 10 kcal/mol: force fields misrank
-   conformers by several kcal/mol, so a narrow window here would lose the true minimum).
+   until a round adds no new conformer or the Good–Turing completeness estimate reaches
+   ``target_completeness`` (default 0.85), at most ``max_rounds`` (default 20) rounds
+   (:mod:`confpop.sampling`); duplicates removed and a wide force-field window applied
+   (``ff_window``, default 10 kcal/mol: force fields misrank conformers by several kcal/mol;
+   measured on three invented flexible molecules, the GFN2 minimum lay 2.4-4.0 kcal/mol up
+   at MMFF94s and conformers within 1 kcal/mol at GFN2 up to 7.8 kcal/mol up).
+   Why sample this deeply: the GFN2 work grows with the number of *distinct* conformers, not
+   trials, while populations need most of the low-lying conformers. On an invented
+   hydroxy-ester (6 rotatable bonds) two searches with different seeds agreed on the lowest
+   energy to 0.6 kcal/mol and shared 43 % of the 298 K population after 250 trials
+   (completeness 0.56-0.65, 2 min on 2 cores), but to 0.07 kcal/mol and 76 % after 1,000
+   (completeness 0.87-0.88, 5 min).
 2. **screen** (tight-binding methods only): single points at the final method on the
    force-field geometries; conformers more than ``screen_window`` above the lowest dropped
-   (default 6 kcal/mol: optimization lowers single-point gaps by 1-3 kcal/mol, rarely more).
+   (default 6 kcal/mol: optimization lowers single-point gaps by 1-3 kcal/mol, rarely more;
+   on 90 structures each of three invented molecules the largest drop for a conformer that
+   ended within 3 kcal/mol was 2.7 kcal/mol. A 4 kcal/mol window kept 99.3 % of the 298 K
+   population of optimizing everything and 3 kcal/mol 93 %, with 33 % and 55 % fewer
+   optimizations on the hydroxy-ester, but none fewer on a floppy aryl ester whose
+   structures all lay within 3 kcal/mol; the default keeps the whole final window listed).
 3. **optimize**: optionally (``preoptimize=True``) a loose pre-optimization (L-BFGS, few
    gradient calls) of every survivor, duplicates removed with looser criteria (twice the
    RMSD, 2.5 times the energy tolerance) and a window of ``energy_window + preopt_margin``;
@@ -48,6 +62,8 @@ __all__ = ["search", "FORCE_FIELDS"]
 log = logging.getLogger(__name__)
 
 FORCE_FIELDS = ("mmff94", "mmff94s", "uff")
+MAX_ROUNDS = 20
+TARGET_COMPLETENESS = 0.85
 
 
 # ---------------------------------------------------------------- units of work (picklable)
@@ -115,7 +131,8 @@ def _open_store(store):
 def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int = 0, *,
            n_trials: int | None = None, energy_window: float = 5.0, ff_window: float = 10.0,
            screen_window: float = 6.0, rmsd: float = 0.125, energy_tolerance: float = 0.1,
-           merge_mirror_images: bool = True, max_rounds: int = 5, sampling_method: str = "mmff94s",
+           merge_mirror_images: bool = True, max_rounds: int = MAX_ROUNDS,
+           target_completeness: float | None = TARGET_COMPLETENESS, sampling_method: str = "mmff94s",
            convergence: str = "tight", preoptimize: bool = False, preopt_margin: float = 2.0,
            charge: int | None = None, multiplicity: int | None = None,
            stereo: str = "refuse", keep_largest_fragment: bool = False,
@@ -137,6 +154,10 @@ def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int
         Sampling seed; the same seed gives the same ensemble.
     n_trials : int, optional
         Trial structures per sampling round (default from the flexibility).
+    max_rounds, target_completeness : int, float
+        Sampling rounds go on until a round adds no new conformer, the Good–Turing
+        completeness estimate reaches ``target_completeness`` (None: not used), or
+        ``max_rounds`` rounds were drawn (see the module notes for the defaults).
     energy_window, ff_window, screen_window : float, kcal/mol
         Final window, force-field window and single-point screening window (see the module
         notes for the defaults).
@@ -205,7 +226,8 @@ def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int
     ff = sampling_method if method not in FORCE_FIELDS else method
     sampled, ff_e, times_found, chiral, srep = sample_conformers(
         mol, n_trials=n_trials, seed=seed, method=ff, energy_window=ff_window,
-        prune=prune_settings, max_rounds=max_rounds, force_trans_amides=force_trans_amides)
+        prune=prune_settings, max_rounds=max_rounds, force_trans_amides=force_trans_amides,
+        target_completeness=target_completeness)
     provenance.append(step_record("sample", started=t0, n_in=srep.trials, n_out=srep.unique,
                                   method=f"ETKDGv3 + {ff}", window_kcal=ff_window,
                                   rmsd=rmsd, **srep.as_dict()))

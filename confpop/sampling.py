@@ -123,7 +123,8 @@ class SamplingReport:
         conformer; 1 - unseen_share is the completeness estimate.
     new_per_round : list of int
     saturated : bool
-        A round found nothing new (rather than stopping at max_rounds).
+        A round found nothing new or the completeness target was reached (rather than
+        stopping at max_rounds).
     """
 
     rounds: int = 0
@@ -151,8 +152,11 @@ def sample_conformers(mol: Chem.Mol, *, n_trials: int | None = None, seed: int =
                       method: str = "mmff94s", energy_window: float = 15.0,
                       prune: PruneSettings | None = None, max_rounds: int = 5,
                       threads: int = 0, force_trans_amides: bool = True,
-                      max_iterations: int = 2000):
-    """Sample and force-field relax conformers until a round adds nothing new.
+                      max_iterations: int = 2000, target_completeness: float | None = None):
+    """Sample and force-field relax conformers until sampling saturates.
+
+    Rounds stop when a round adds no new conformer, when the Good–Turing completeness
+    estimate reaches ``target_completeness``, or after ``max_rounds``.
 
     Parameters
     ----------
@@ -170,6 +174,9 @@ def sample_conformers(mol: Chem.Mol, *, n_trials: int | None = None, seed: int =
         Duplicate criteria (defaults: :class:`confpop.prune.PruneSettings`).
     max_rounds : int
         Upper bound on rounds when sampling does not saturate.
+    target_completeness : float, optional
+        Stop once 1 - n₁/N reaches this value (e.g. 0.9: a further trial finds a new
+        conformer with probability <= 10 %). None: only the two other rules.
 
     Returns
     -------
@@ -188,6 +195,11 @@ def sample_conformers(mol: Chem.Mol, *, n_trials: int | None = None, seed: int =
         raise InputError(f"n_trials must be >= 1, got {n_trials}")
     if energy_window <= 0:
         raise InputError(f"energy_window must be > 0 kcal/mol, got {energy_window}")
+    if max_rounds < 1:
+        raise InputError(f"max_rounds must be >= 1, got {max_rounds}")
+    if target_completeness is not None and not 0.0 < target_completeness < 1.0:
+        raise InputError("target_completeness must lie between 0 and 1 (exclusive), "
+                         f"got {target_completeness}")
     report = SamplingReport()
     pool_pos: list[np.ndarray] = []
     pool_e: list[float] = []
@@ -241,6 +253,12 @@ def sample_conformers(mol: Chem.Mol, *, n_trials: int | None = None, seed: int =
         if rnd > 0 and n_new == 0:
             report.saturated = True
             break
+        if rnd > 0 and target_completeness is not None and counts:
+            seen = sum(counts.values())
+            once = sum(1 for c in counts.values() if c == 1)
+            if 1.0 - once / seen >= target_completeness:
+                report.saturated = True
+                break
     if not kept_idx:
         raise InputError("no conformer could be embedded for this molecule "
                          f"({report.embedding_failures} of {report.trials} trials failed); "

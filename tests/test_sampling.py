@@ -76,3 +76,21 @@ def test_bad_settings_are_named():
         sample_conformers(_mol("CCCC"), n_trials=0)
     with pytest.raises(InputError, match="energy_window must be > 0"):
         sample_conformers(_mol("CCCC"), energy_window=-1)
+    with pytest.raises(InputError, match="target_completeness must lie between 0 and 1"):
+        sample_conformers(_mol("CCCC"), target_completeness=1.5)
+    with pytest.raises(InputError, match="max_rounds must be >= 1, got 0"):
+        sample_conformers(_mol("CCCC"), max_rounds=0)
+
+
+def test_completeness_target_stops_rounds_early():
+    # without a target, 1-hexanol's chain keeps finding conformers for 7 rounds of 10 trials;
+    # with one, rounds stop at the first round (after the second) whose Good-Turing estimate
+    # (Good 1953) reaches it
+    mol = _mol("CCCCCCO")
+    *_, unlimited = sample_conformers(mol, n_trials=10, seed=2, max_rounds=8)
+    *_, report = sample_conformers(mol, n_trials=10, seed=2, max_rounds=8, target_completeness=0.7)
+    assert unlimited.rounds == 8 and unlimited.completeness < 0.72
+    assert report.completeness >= 0.7 and report.saturated
+    assert 2 <= report.rounds < unlimited.rounds
+    *_, one_less = sample_conformers(mol, n_trials=10, seed=2, max_rounds=report.rounds - 1)
+    assert one_less.completeness < 0.7

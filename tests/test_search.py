@@ -183,3 +183,22 @@ def test_cli_free_energy_populations_side_by_side(capsys):
     data = json.loads(capsys.readouterr().out)
     p_e, p_g = data["populations"]["E"]["298.15"], data["populations"]["G"]["298.15"]
     assert sum(p_g) == pytest.approx(1.0) and p_g != pytest.approx(p_e, abs=1e-4)
+
+
+def test_cli_sampling_defaults_match_search_and_bad_values_are_named(capsys):
+    import inspect
+
+    from confpop import cli
+    params = inspect.signature(cp.search).parameters
+    assert cli._MAX_ROUNDS == params["max_rounds"].default
+    assert cli._TARGET_COMPLETENESS == params["target_completeness"].default
+    assert main(["ensemble", "CCCC", "--method", "mmff94s", "--completeness", "1.2"]) == 2
+    assert "--completeness must be >= 0 and < 1, got 1.2" in capsys.readouterr().err
+    assert main(["ensemble", "CCCC", "--method", "mmff94s", "--rounds", "0"]) == 2
+    assert "--rounds must be >= 1, got 0" in capsys.readouterr().err
+    # the options reach the search: one round of 12 trials, completeness target off
+    assert main(["ensemble", "CCCCO", "--method", "mmff94s", "--trials", "12", "--rounds", "1",
+                 "--completeness", "0", "--json"]) == 0
+    sample = next(p for p in json.loads(capsys.readouterr().out)["provenance"]
+                  if p["step"] == "sample")
+    assert sample["rounds"] == 1 and sample["trials"] == 12
