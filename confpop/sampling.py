@@ -33,7 +33,7 @@ from .errors import InputError
 from .prune import PruneSettings, find_duplicates
 from .units import convert
 
-__all__ = ["SamplingReport", "default_trials", "embed", "sample_conformers", "flexibility"]
+__all__ = ["SamplingReport", "default_trials", "embed", "round_seed", "sample_conformers", "flexibility"]
 
 log = logging.getLogger(__name__)
 
@@ -74,6 +74,17 @@ def _params(mol: Chem.Mol, seed: int, threads: int, force_trans_amides: bool):
         params.useMacrocycleTorsions = True
         params.useMacrocycle14config = True
     return params
+
+
+def round_seed(seed: int, round_index: int) -> int:
+    """ETKDG seed of sampling round ``round_index`` (0-based) of a search with ``seed``."""
+    return int(seed) + 7919 * int(round_index)
+
+
+def _tally(counts) -> tuple[int, int]:
+    """(N, n1): structures inside the window and conformers seen exactly once."""
+    counts = list(counts)
+    return int(sum(counts)), int(sum(1 for c in counts if c == 1))
 
 
 def embed(mol: Chem.Mol, n: int, seed: int = 0, threads: int = 0,
@@ -211,7 +222,7 @@ def sample_conformers(mol: Chem.Mol, *, n_trials: int | None = None, seed: int =
     achiral = is_achiral(mol)
     for rnd in range(max_rounds):
         t0 = time.perf_counter()
-        trial, failed = embed(mol, n_trials, seed=seed + 7919 * rnd, threads=threads,
+        trial, failed = embed(mol, n_trials, seed=round_seed(seed, rnd), threads=threads,
                               force_trans_amides=force_trans_amides)
         report.rounds += 1
         report.trials += n_trials
@@ -254,8 +265,7 @@ def sample_conformers(mol: Chem.Mol, *, n_trials: int | None = None, seed: int =
             report.saturated = True
             break
         if rnd > 0 and target_completeness is not None and counts:
-            seen = sum(counts.values())
-            once = sum(1 for c in counts.values() if c == 1)
+            seen, once = _tally(counts.values())
             if 1.0 - once / seen >= target_completeness:
                 report.saturated = True
                 break
@@ -274,8 +284,7 @@ def sample_conformers(mol: Chem.Mol, *, n_trials: int | None = None, seed: int =
         out.AddConformer(conf, assignId=False)
     times = np.array([counts[i] for i in kept_idx], dtype=int)
     report.unique = len(kept_idx)
-    report.in_window = int(times.sum())
-    report.found_once = int(np.sum(times == 1))
+    report.in_window, report.found_once = _tally(times)
     report.unseen_share = report.found_once / report.in_window if report.in_window else 1.0
     return (out, np.array([pool_e[i] for i in kept_idx]), times,
             np.array([chiral[i] for i in kept_idx], dtype=bool), report)

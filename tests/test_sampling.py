@@ -83,7 +83,7 @@ def test_bad_settings_are_named():
 
 
 def test_completeness_target_stops_rounds_early():
-    # without a target, 1-hexanol's chain keeps finding conformers for 7 rounds of 10 trials;
+    # without a target, 1-hexanol's chain runs all 8 rounds of 10 trials (completeness 0.70);
     # with one, rounds stop at the first round (after the second) whose Good-Turing estimate
     # (Good 1953) reaches it
     mol = _mol("CCCCCCO")
