@@ -54,7 +54,7 @@ from confpop.molecule import load_molecule  # noqa: E402
 from confpop.optimize import optimize_positions  # noqa: E402
 from confpop.pipeline import optimize_unit  # noqa: E402
 from confpop.prune import PruneSettings, automorphisms, best_rmsd, find_duplicates, rmsd_atoms  # noqa: E402
-from confpop.sampling import embed, round_seed  # noqa: E402
+from confpop.sampling import embed  # noqa: E402
 from confpop.units import convert  # noqa: E402
 
 # invented molecules (names are descriptions, not real compounds of any project)
@@ -91,7 +91,7 @@ def _trial_structures(mol, trials, rounds, seed, starts):
     """The search's trial structures: same seeds and rounds; MMFF94s-relaxed or raw."""
     structures = []
     for rnd in range(rounds):
-        trial, _ = embed(mol, trials, seed=round_seed(seed, rnd))
+        trial, _ = embed(mol, trials, seed=seed, round_index=rnd)
         if starts == "relaxed":
             trial, _ = minimize_conformers(trial, method="mmff94s", max_iterations=2000)
         structures += [c.GetPositions() for c in trial.GetConformers()]
