@@ -24,7 +24,7 @@ from rdkit import Chem
 from .errors import InputError
 from .units import convert
 
-__all__ = ["PruneSettings", "rmsd_atoms", "automorphisms", "best_rmsd", "is_achiral",
+__all__ = ["PruneSettings", "rmsd_atoms", "resonance_hybrid", "automorphisms", "best_rmsd", "is_achiral",
            "conformer_is_chiral", "find_duplicates", "integrity_problems"]
 
 log = logging.getLogger(__name__)
@@ -67,17 +67,83 @@ def rmsd_atoms(mol: Chem.Mol) -> np.ndarray:
     return np.array(keep, dtype=int)
 
 
+# central atoms whose terminal oxygens/sulfurs are equivalent by resonance in the usual
+# octet-expanded drawing (sulfonate, sulfate, phosphate, perchlorate, ...): RDKit's resonance
+# enumeration does not move charges onto these, so they are added by rule
+_HYPERVALENT_CENTRES = (15, 16, 17, 33, 34, 35, 53)
+
+
+def resonance_hybrid(mol: Chem.Mol) -> Chem.Mol:
+    """A copy of ``mol`` for symmetry perception: resonance-equivalent atoms look alike.
+
+    Bonds whose order differs between resonance structures (RDKit's
+    :class:`~rdkit.Chem.rdchem.ResonanceMolSupplier`, default flags: carboxylates, amidinium
+    and guanidinium ions, nitro groups, imidazolium, enolates, ...) get one bond type
+    (``ONEANDAHALF``) and atoms whose formal charge moves between structures lose it;
+    terminal oxygens and sulfurs without hydrogens on P, S, Cl, As, Se, Br or I (sulfonate,
+    sulfate, phosphate, perchlorate) are treated the same way. Element, connectivity and
+    every other bond order are kept, so nothing else becomes equivalent. The copy is not
+    sanitized: it is for graph matching only.
+
+    Examples
+    --------
+    >>> from rdkit import Chem
+    >>> hyb = resonance_hybrid(Chem.MolFromSmiles("CC(=O)[O-]"))
+    >>> [str(b.GetBondType()) for b in hyb.GetBonds()], [a.GetFormalCharge() for a in hyb.GetAtoms()]
+    (['SINGLE', 'ONEANDAHALF', 'ONEANDAHALF'], [0, 0, 0, 0])
+    """
+    hybrid = Chem.RWMol(mol)
+    varying_bonds: set[int] = set()
+    varying_atoms: set[int] = set()
+    try:
+        structures = list(Chem.ResonanceMolSupplier(mol, 0))
+    except Exception:  # noqa: BLE001 - RDKit refuses some valences; no resonance then
+        structures = []
+    if len(structures) > 1:
+        for bond in mol.GetBonds():
+            kinds = {r.GetBondWithIdx(bond.GetIdx()).GetBondType() for r in structures}
+            if len(kinds) > 1:
+                varying_bonds.add(bond.GetIdx())
+        for atom in mol.GetAtoms():
+            charges = {r.GetAtomWithIdx(atom.GetIdx()).GetFormalCharge() for r in structures}
+            if len(charges) > 1:
+                varying_atoms.add(atom.GetIdx())
+    for atom in mol.GetAtoms():
+        if atom.GetAtomicNum() not in _HYPERVALENT_CENTRES:
+            continue
+        terminal = [b for b in atom.GetBonds()
+                    if (o := b.GetOtherAtom(atom)).GetAtomicNum() in (8, 16)
+                    and o.GetDegree() == 1 and o.GetTotalNumHs() == 0]
+        if len(terminal) > 1 and len({b.GetBondType() for b in terminal}
+                                     | {b.GetOtherAtom(atom).GetFormalCharge() for b in terminal}) > 1:
+            for b in terminal:
+                varying_bonds.add(b.GetIdx())
+                varying_atoms.add(b.GetOtherAtomIdx(atom.GetIdx()))
+    for idx in varying_bonds:
+        bond = hybrid.GetBondWithIdx(idx)
+        bond.SetIsAromatic(False)
+        bond.SetBondType(Chem.BondType.ONEANDAHALF)
+    for idx in varying_atoms:
+        hybrid.GetAtomWithIdx(idx).SetFormalCharge(0)
+    out = hybrid.GetMol()
+    out.UpdatePropertyCache(strict=False)
+    return out
+
+
 def automorphisms(mol: Chem.Mol, atoms: np.ndarray, max_count: int = 5000) -> np.ndarray:
     """Graph automorphisms of ``mol`` restricted to ``atoms``: (n_perm, n_atoms) index arrays.
 
     Row p maps compared-atom position a to the atom whose coordinates stand in for it.
-    Stereo is ignored (a permutation that would invert a centre cannot be realised by a
-    proper rotation of a real conformer, so it never gives a small RMSD).
+    Resonance-equivalent atoms count as equivalent (the two oxygens of a carboxylate, the
+    NH₂ groups of a guanidinium ion, the three oxygens of a sulfonate; see
+    :func:`resonance_hybrid`). Stereo is ignored (a permutation that would invert a centre
+    cannot be realised by a proper rotation of a real conformer, so it never gives a small
+    RMSD).
     """
     # match on the compared atoms only: hydrogens left out of the RMSD (methyl groups) would
     # multiply the permutations by 6 per methyl without changing any compared position
     atoms = np.asarray(atoms, dtype=int)
-    sub = Chem.RWMol(mol)
+    sub = Chem.RWMol(resonance_hybrid(mol))
     for idx in sorted(set(range(mol.GetNumAtoms())) - set(atoms.tolist()), reverse=True):
         sub.RemoveAtom(idx)
     sub = sub.GetMol()

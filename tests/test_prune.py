@@ -122,3 +122,59 @@ def test_broken_geometry_fails_integrity_with_reason():
     conf.SetAtomPosition(2, (p[2] + 3.0 * direction).tolist())
     problems = integrity_problems(mol, 0)
     assert any("bond broken" in s and "C1-O2" in s for s in problems)
+
+
+# --- resonance-equivalent atoms --------------------------------------------------------
+# Resonance structures are one molecule (IUPAC Gold Book, "resonance"): atoms exchanged
+# between them are equivalent, so swapping their coordinates gives the same structure.
+@pytest.mark.parametrize("smiles, n_perm", [
+    ("CCC(=O)[O-]", 2),              # carboxylate O/O-
+    ("C[N+](=O)[O-]", 2),            # nitro O
+    ("CS(=O)(=O)[O-]", 6),           # sulfonate: 3! orders of the three O
+    ("COP(=O)([O-])[O-]", 6),        # phosphate monoester dianion: 3! orders
+    ("NC(=[NH2+])N", 48),            # guanidinium: 3! NH2 orders x 2^3 H swaps (hand count)
+    ("CC(=[NH2+])N", 8),             # acetamidinium: 2 NH2 orders x 2^2 H swaps
+    ("CC(=O)O", 1),                  # neutral acid: C=O and C-OH are different atoms
+    ("CC(=O)C", 2),                  # acetone: the two methyl carbons (graph symmetry)
+])
+def test_resonance_equivalent_atoms_are_symmetric(smiles, n_perm):
+    mol = Chem.AddHs(Chem.MolFromSmiles(smiles))
+    perms = automorphisms(mol, rmsd_atoms(mol))
+    assert len(perms) == n_perm
+
+
+@pytest.mark.parametrize("smiles, pair", [("CCC(=O)[O-]", (3, 4)), ("[NH3+]CC(=O)[O-]", (3, 4)),
+                                          ("C[N+](=O)[O-]", (2, 3))])
+def test_swapped_resonance_partners_are_one_conformer(smiles, pair):
+    mol = Chem.AddHs(Chem.MolFromSmiles(smiles))
+    AllChem.EmbedMolecule(mol, randomSeed=11)
+    pos = mol.GetConformer().GetPositions()
+    swapped = pos.copy()
+    swapped[list(pair)] = pos[list(pair[::-1])]
+    perms = automorphisms(mol, rmsd_atoms(mol))
+    assert best_rmsd(pos, swapped, perms) == pytest.approx(0.0, abs=1e-6)
+    rep = find_duplicates(mol, [pos, swapped], [0.0, 1e-6], PruneSettings())
+    assert rep.unique == [0] and rep.duplicate_of == {1: 0}
+
+
+def test_symmetry_number_sees_resonance_equivalent_oxygens():
+    # nitrate is D3h: sigma = 6 (point-group rotational symmetry number, any textbook);
+    # the Lewis structure has one N=O and two N-O-, the molecule does not
+    from confpop.vibrations import symmetry_number
+    mol = Chem.AddHs(Chem.MolFromSmiles("[O-][N+](=O)[O-]"))
+    conf = Chem.Conformer(mol.GetNumAtoms())
+    conf.SetAtomPosition(1, (0.0, 0.0, 0.0))
+    for k, idx in enumerate((0, 2, 3)):
+        a = 2 * np.pi * k / 3
+        conf.SetAtomPosition(idx, (1.25 * np.cos(a), 1.25 * np.sin(a), 0.0))
+    mol.AddConformer(conf)
+    assert symmetry_number(mol) == 6
+
+
+@pytest.mark.slow
+def test_glycine_zwitterion_in_water_is_one_conformer():
+    # before resonance-aware symmetry: two rows at 0.501/0.499 (O/O- swapped, one structure)
+    import confpop as cp
+    ens = cp.search("[NH3+]CC(=O)[O-]", solvent="water", seed=1)
+    assert len(ens) == 1
+    assert ens.effective_count(298.15) == pytest.approx(1.0)
