@@ -28,9 +28,14 @@ Stages (each records its counts in and out and its wall time in the provenance):
    RMSD, 2.5 times the energy tolerance) and a window of ``energy_window + preopt_margin``;
    then the survivors optimized at the final method (geomeTRIC, "tight" convergence, final energies within 0.05 kcal/mol
    of a very tight optimization).
-4. **check**: bond graph and stereo of every optimized conformer compared with the input;
+4. **minimum check**: an optimizer started from a symmetric structure keeps the symmetry
+   and can stop on a saddle point (the gradient along symmetry-breaking motions is zero by
+   symmetry). Every optimized conformer with a mirror plane or a symmetry axis is displaced
+   off it and re-optimized; a lower result replaces it, the row says so
+   (:mod:`confpop.minimum`, ``check_minima=True``).
+5. **check**: bond graph and stereo of every optimized conformer compared with the input;
    a conformer that changed is kept in the table with status "failed" and the reason.
-5. **prune**: duplicates removed again (optimization makes distinct force-field minima
+6. **prune**: duplicates removed again (optimization makes distinct force-field minima
    fall into one), mirror images merged or kept, and the final ``energy_window`` applied
    (default 5 kcal/mol: a conformer 5 kcal/mol up holds < 0.05 % at 298 K and < 0.1 % at
    323 K).
@@ -98,6 +103,24 @@ def optimize_unit(item: dict) -> dict:
             "gradient_norm": res.gradient_norm, "message": res.message, "dipole_debye": dip}
 
 
+def minimum_unit(item: dict) -> dict:
+    """Re-optimize one symmetric optimized structure off its symmetry (a saddle check)."""
+    from .minimum import relax_to_minimum
+
+    backend = _backend_for(item)
+    out = relax_to_minimum(backend, np.asarray(item["positions"]), item["energy"],
+                           optimize_options={"convergence": item.get("convergence", "tight"),
+                                             "engine": item.get("engine", "geometric")},
+                           seed=item.get("seed", 0))
+    dip = None
+    if out.saddle:
+        final = backend.compute(out.positions, gradient=False)
+        dip = None if final.dipole is None else float(np.linalg.norm(final.dipole) * EBOHR_DEBYE)
+    return {"positions": np.array(out.positions), "energy": out.energy, "saddle": out.saddle,
+            "symmetry": out.symmetry, "energy_drop": out.energy_drop,
+            "gradient_calls": out.gradient_calls, "note": out.note, "dipole_debye": dip}
+
+
 def _run(function, items, *, executor, workers, progress, store, kind, description):
     """Run units through the execution layer, with the store when one is given."""
     from .execution import run_units
@@ -137,7 +160,7 @@ def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int
            charge: int | None = None, multiplicity: int | None = None,
            stereo: str = "refuse", keep_largest_fragment: bool = False,
            force_trans_amides: bool = True, method_options: dict | None = None,
-           executor=None, workers: int | None = None, store=None,
+           check_minima: bool = True, executor=None, workers: int | None = None, store=None,
            progress: bool = False) -> Ensemble:
     """Find the conformers of a molecule that matter and rank them.
 
@@ -167,6 +190,10 @@ def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int
         One row with degeneracy 2 per mirror-image pair (True) or two rows (False).
     convergence : str
         Optimizer preset ("loose", "normal", "tight", "verytight").
+    check_minima : bool
+        Re-optimize every optimized conformer that has a mirror plane or a symmetry axis
+        from a small symmetry-breaking displacement; a saddle point (the re-optimized
+        structure lies lower) is replaced and its row says so (:mod:`confpop.minimum`).
     preoptimize : bool
         First optimize loosely (L-BFGS), drop duplicates and conformers more than
         ``energy_window + preopt_margin`` above the lowest, then optimize the rest tightly.
@@ -281,9 +308,13 @@ def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int
                                              prune_settings, achiral)
     ens, positions = _optimize_stage(ens, positions, base_item, convergence, "geometric",
                                      "optimize", method, solvent, executor, workers, progress, store)
+    # 4. minimum check: symmetric structures re-optimized off their symmetry (saddles leave)
+    if check_minima:
+        ens, positions = _minimum_stage(ens, positions, base_item, convergence, method, seed,
+                                        executor, workers, progress, store)
     opt_mol = ens.mol
 
-    # 4. integrity checks
+    # 5. integrity checks
     t0 = time.perf_counter()
     table = ens.raw_table
     n_bad = 0
@@ -341,6 +372,54 @@ def _optimize_stage(ens, positions, base_item, convergence, engine, name, method
     out_ens = Ensemble(opt_mol, table, level=method, charge=ens.charge,
                        multiplicity=ens.multiplicity, solvent=solvent,
                        provenance=ens.provenance + [step], name=ens.name)
+    return out_ens, positions
+
+
+def _minimum_stage(ens, positions, base_item, convergence, method, seed, executor, workers,
+                   progress, store):
+    """Send every symmetric optimized conformer through :func:`minimum_unit`."""
+    from .minimum import symmetry_of_conformer
+    from .prune import automorphisms, rmsd_atoms
+
+    t0 = time.perf_counter()
+    table = ens.raw_table
+    table["minimum_check"] = ["" if s == "ok" else "not checked" for s in table["status"]]
+    mol = ens.mol
+    perms = automorphisms(mol, rmsd_atoms(mol))
+    symmetric = [c for c in ens.ids() if symmetry_of_conformer(mol, positions[c], perms=perms)]
+    for c in ens.ids():
+        table.loc[c, "minimum_check"] = "symmetric" if c in symmetric else "not symmetric"
+    items = [{**base_item, "positions": positions[c], "energy": float(table.loc[c, f"energy_{method}"]),
+              "convergence": convergence, "engine": "geometric", "seed": int(seed) % 2**31}
+             for c in symmetric]
+    outcomes = _run(minimum_unit, items, executor=executor, workers=workers, progress=progress,
+                    store=store, kind="minimum-check", description="minimum check")
+    positions = dict(positions)
+    n_saddles, calls = 0, 0
+    for cid, out in zip(symmetric, outcomes):
+        if not out.ok:
+            table.loc[cid, "minimum_check"] = f"failed: {out.error_type}: {out.error_message}"
+            continue
+        v = out.value
+        calls += int(v["gradient_calls"])
+        table.loc[cid, "gradient_calls"] = int(table.loc[cid, "gradient_calls"]) + int(v["gradient_calls"])
+        if not v["saddle"]:
+            table.loc[cid, "minimum_check"] = "symmetric minimum"
+            continue
+        n_saddles += 1
+        table.loc[cid, "minimum_check"] = "saddle point left"
+        table.loc[cid, f"energy_{method}"] = v["energy"]
+        table.loc[cid, "reason"] = "; ".join(x for x in (table.loc[cid, "reason"], v["note"]) if x)
+        if v["dipole_debye"] is not None:
+            table.loc[cid, "dipole_debye"] = v["dipole_debye"]
+        positions[cid] = np.array(v["positions"])
+        conf = mol.GetConformer(cid)
+        for a, (x, y, z) in enumerate(v["positions"]):
+            conf.SetAtomPosition(a, (float(x), float(y), float(z)))
+    step = step_record("minimum-check", started=t0, n_in=len(ens), n_out=len(ens),
+                       symmetric=len(symmetric), saddles=n_saddles, gradient_calls=calls)
+    out_ens = Ensemble(mol, table, level=method, charge=ens.charge, multiplicity=ens.multiplicity,
+                       solvent=ens.solvent, provenance=ens.provenance + [step], name=ens.name)
     return out_ens, positions
 
 
