@@ -233,6 +233,7 @@ def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int
     t_start = time.perf_counter()
     mol = load_molecule(molecule, charge=charge, multiplicity=multiplicity, stereo=stereo,
                         keep_largest_fragment=keep_largest_fragment, method=method)
+    _refuse_open_square_planar(mol)
     charge = mol.GetIntProp("charge") if mol.HasProp("charge") else Chem.GetFormalCharge(mol)
     multiplicity = mol.GetIntProp("multiplicity") if mol.HasProp("multiplicity") else 1
     if solvent is not None and "solvent" not in backend_class(method).capabilities:
@@ -250,13 +251,21 @@ def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int
 
     # 1. sample + force-field relax + prune
     t0 = time.perf_counter()
-    ff = sampling_method if method not in FORCE_FIELDS else method
+    ff, ff_reason = sampling_method, ""
+    if method in FORCE_FIELDS:
+        ff = method
+    else:
+        from .backends.forcefield import sampling_force_field
+        ff, ff_reason = sampling_force_field(mol, sampling_method)
+        if ff_reason:
+            log.info("trial structures relaxed with %s (%s)", ff, ff_reason)
     sampled, ff_e, times_found, chiral, srep = sample_conformers(
         mol, n_trials=n_trials, seed=seed, method=ff, energy_window=ff_window,
         prune=prune_settings, max_rounds=max_rounds, force_trans_amides=force_trans_amides,
         target_completeness=target_completeness)
     provenance.append(step_record("sample", started=t0, n_in=srep.trials, n_out=srep.unique,
                                   method=f"ETKDGv3 + {ff}", window_kcal=ff_window,
+                                  force_field=ff, force_field_reason=ff_reason,
                                   rmsd=rmsd, **srep.as_dict()))
     table = pd.DataFrame({"status": "ok", "reason": "", "degeneracy": 1,
                           f"energy_{ff}": ff_e, "times_found": times_found,
@@ -321,7 +330,8 @@ def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int
     for cid in ens.ids():
         # compare each optimized conformer with its own force-field geometry, whose stereo
         # ETKDG enforced from the input
-        problems = integrity_problems(opt_mol, cid, stereo_signature(sampled, cid))
+        problems = integrity_problems(opt_mol, cid, stereo_signature(sampled, cid),
+                                      reference_positions=sampled.GetConformer(cid).GetPositions())
         if problems:
             n_bad += 1
             table.loc[cid, ["status", "reason"]] = ["failed", "integrity: " + "; ".join(problems)]
@@ -329,6 +339,27 @@ def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int
                                                       n_out=len(ens) - n_bad, changed=n_bad))
     return _finish(ens, positions, method, energy_window, prune_settings, achiral,
                    sampling=srep, t_start=t_start)
+
+
+# d8 centres that are square planar with four ligands (Pt(II), Pd(II), Au(III), Rh(I), Ir(I))
+_SQUARE_PLANAR_METALS = frozenset({78, 46, 79, 45, 77})
+
+
+def _refuse_open_square_planar(mol: Chem.Mol) -> None:
+    """Four-coordinate Pt/Pd/Au/Rh/Ir with unlike ligands and no ``@SP`` tag: cis and trans
+    are different compounds, not conformers; the user must say which."""
+    ranks = list(Chem.CanonicalRankAtoms(mol, breakTies=False))
+    for atom in mol.GetAtoms():
+        if atom.GetAtomicNum() not in _SQUARE_PLANAR_METALS or atom.GetDegree() != 4:
+            continue
+        if atom.GetChiralTag() == Chem.ChiralType.CHI_SQUAREPLANAR:
+            continue
+        if len({ranks[n.GetIdx()] for n in atom.GetNeighbors()}) > 1:
+            raise InputError(
+                f"{atom.GetSymbol()}{atom.GetIdx() + 1} has four unlike ligands and no square-planar "
+                "arrangement: cis and trans isomers are different compounds; write it in the "
+                f"SMILES, e.g. [{atom.GetSymbol()}@SP1] (first and third ligand cis) or "
+                f"[{atom.GetSymbol()}@SP2] (first and third trans)")
 
 
 def _optimize_stage(ens, positions, base_item, convergence, engine, name, method, solvent,

@@ -303,7 +303,29 @@ def find_duplicates(mol: Chem.Mol, positions, energies_hartree, settings: PruneS
     return report
 
 
-def integrity_problems(mol: Chem.Mol, conf_id: int, reference_stereo=None) -> list[str]:
+def square_planar_trans_pairs(mol: Chem.Mol, positions) -> dict[int, set]:
+    """For every atom tagged square planar (SMILES ``@SP1``-``@SP3``): the pairs of its
+    neighbours that stand trans (angle > 135 degrees) in ``positions``."""
+    pos = np.asarray(positions, dtype=float)
+    out = {}
+    for atom in mol.GetAtoms():
+        if atom.GetChiralTag() != Chem.ChiralType.CHI_SQUAREPLANAR:
+            continue
+        c = atom.GetIdx()
+        nbrs = [n.GetIdx() for n in atom.GetNeighbors()]
+        pairs = set()
+        for a in range(len(nbrs)):
+            for b in range(a + 1, len(nbrs)):
+                u, v = pos[nbrs[a]] - pos[c], pos[nbrs[b]] - pos[c]
+                cos = u @ v / (np.linalg.norm(u) * np.linalg.norm(v))
+                if cos < np.cos(np.radians(135.0)):
+                    pairs.add((nbrs[a], nbrs[b]))
+        out[c] = pairs
+    return out
+
+
+def integrity_problems(mol: Chem.Mol, conf_id: int, reference_stereo=None,
+                       reference_positions=None) -> list[str]:
     """Reasons why conformer ``conf_id`` no longer is the input molecule (empty when fine).
 
     Checks that the bonds perceived from interatomic distances are exactly the molecule's
@@ -332,4 +354,11 @@ def integrity_problems(mol: Chem.Mol, conf_id: int, reference_stereo=None) -> li
                    if (now_map := dict(now).get(a)) is not None and now_map != b]
         if changed:
             problems.append("stereo changed: " + "; ".join(str(c) for c in changed))
+    if reference_positions is not None and not broken and not formed:
+        before = square_planar_trans_pairs(mol, reference_positions)
+        after = square_planar_trans_pairs(mol, mol.GetConformer(conf_id).GetPositions())
+        for centre, pairs in before.items():
+            if after.get(centre) != pairs:
+                problems.append(f"square-planar arrangement at {label((centre, centre)).split('-')[0]} "
+                                "changed (cis/trans)")
     return problems

@@ -150,10 +150,12 @@ def embed(mol: Chem.Mol, n: int, seed: int = 0, threads: int = 0,
     work = Chem.Mol(mol)
     work.RemoveAllConformers()
     params = _params(work, round_seed(seed, round_index), threads, force_trans_amides)
-    ids = rdDistGeom.EmbedMultipleConfs(work, numConfs=int(n), params=params)
-    if len(ids) == 0:
-        params.useRandomCoords = True
+    from .backends.forcefield import _QuietRDKit
+    with _QuietRDKit():  # ETKDG's UFF typer logs C++ warnings for metals and SF6-like atoms
         ids = rdDistGeom.EmbedMultipleConfs(work, numConfs=int(n), params=params)
+        if len(ids) == 0:
+            params.useRandomCoords = True
+            ids = rdDistGeom.EmbedMultipleConfs(work, numConfs=int(n), params=params)
     return work, int(n) - len(ids)
 
 
@@ -229,7 +231,7 @@ def sample_conformers(mol: Chem.Mol, *, n_trials: int | None = None, seed: int =
     seed : int
         Any integer; round r uses the RDKit seed :func:`round_seed` (seed, r), so the same
         seed gives the same ensemble and no round repeats another.
-    method : {"mmff94s", "mmff94", "uff"}
+    method : {"mmff94s", "mmff94", "uff", "gfnff"}
         Force field for the relaxation.
     energy_window : float, kcal/mol
         Conformers more than this above the lowest are not kept.
@@ -293,7 +295,12 @@ def sample_conformers(mol: Chem.Mol, *, n_trials: int | None = None, seed: int =
                                                max_iterations=max_iterations)
         report.minimization_unconverged += sum(1 for ok, _ in results if not ok)
         start = len(pool_pos)
+        if not any(np.isfinite(e) for _, e in results):
+            report.new_per_round.append(0)
+            continue
         for conf, (_, energy) in zip(relaxed.GetConformers(), results):
+            if not np.isfinite(energy):  # the relaxation failed (GFN-FF only)
+                continue
             pool_pos.append(np.array(conf.GetPositions()))
             pool_e.append(energy)
         local = kept_idx + list(range(start, len(pool_pos)))

@@ -65,3 +65,39 @@ def test_symmetry_detection_and_soft_directions():
     dirs, labels = soft_directions(mol, conf.GetPositions())
     assert labels == ["C2-C3"]                                      # methyl tops left out
     assert np.linalg.norm(dirs[0], axis=1).max() == pytest.approx(1.0)
+
+
+# --- molecules MMFF94s cannot type ------------------------------------------------------
+def _angle(pos, a, c, b):
+    u, v = pos[a] - pos[c], pos[b] - pos[c]
+    return float(np.degrees(np.arccos(u @ v / np.linalg.norm(u) / np.linalg.norm(v))))
+
+
+@pytest.mark.slow
+def test_cisplatin_stays_cis_square_planar(capfd):
+    # cis-diamminedichloridoplatinum(II): square planar, the two N cis (textbook
+    # coordination chemistry); MMFF94s has no Pt parameters, so the trial structures are
+    # relaxed with GFN-FF and the search says so; RDKit's C++ typer lines stay off stderr
+    ens = cp.search("N[Pt@SP1](N)(Cl)Cl", seed=1)
+    sample = [p for p in ens.provenance if p["step"] == "sample"][0]
+    assert sample["force_field"] == "gfnff" and "Pt2" in sample["force_field_reason"]
+    assert len(ens) >= 1
+    for cid in ens.ids():
+        pos = ens.positions(cid)
+        assert _angle(pos, 0, 1, 2) < 135.0                       # N-Pt-N cis
+        assert _angle(pos, 0, 1, 3) > 135.0 and _angle(pos, 2, 1, 4) > 135.0  # N trans to Cl
+    assert "UFFTYPER" not in capfd.readouterr().err
+
+
+def test_unassigned_square_planar_centre_is_refused():
+    with pytest.raises(cp.InputError, match=r"Pt2 has four unlike ligands.*\[Pt@SP1\]"):
+        cp.search("N[Pt](N)(Cl)Cl")
+
+
+def test_hypervalent_phosphorus_is_sampled_with_uff(capfd):
+    # PCl5: MMFF94s lacks terms for five-coordinate P; UFF types it
+    ens = cp.search("ClP(Cl)(Cl)(Cl)Cl", seed=1)
+    sample = [p for p in ens.provenance if p["step"] == "sample"][0]
+    assert sample["force_field"] == "uff" and "mmff94s" in sample["force_field_reason"]
+    assert len(ens) == 1
+    assert "UFFTYPER" not in capfd.readouterr().err

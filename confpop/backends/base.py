@@ -99,7 +99,7 @@ class Backend:
     def _check_elements(self) -> None:
         if self.elements is None:
             return
-        bad = [f"{a.GetSymbol()}{a.GetIdx()}" for a in self.mol.GetAtoms()
+        bad = [f"{a.GetSymbol()}{a.GetIdx() + 1}" for a in self.mol.GetAtoms()
                if a.GetAtomicNum() not in self.elements]
         if bad:
             raise InputError(f"method {self.name!r} has no parameters for atoms {', '.join(bad)}")

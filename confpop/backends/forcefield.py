@@ -21,7 +21,8 @@ from ..errors import InputError
 from ..units import convert
 from .base import Backend, BackendResult
 
-__all__ = ["MMFF94", "MMFF94s", "UFF", "minimize_conformers"]
+__all__ = ["MMFF94", "MMFF94s", "UFF", "minimize_conformers", "sampling_force_field",
+           "SAMPLING_FALLBACKS"]
 
 _KCAL_TO_HARTREE = convert(1.0, "kcal/mol", "hartree")
 
@@ -37,12 +38,92 @@ def _mmff_missing_atoms(mol: Chem.Mol, variant: str) -> list[str]:
         props = ffh.MMFFGetMoleculeProperties(mol, mmffVariant=variant)
         if props is not None and ffh.MMFFHasAllMoleculeParams(mol):
             return []
-        bad = [f"{a.GetSymbol()}{a.GetIdx()}" for a in mol.GetAtoms()
+        bad = [f"{a.GetSymbol()}{a.GetIdx() + 1}" for a in mol.GetAtoms()
                if a.GetAtomicNum() not in _MMFF_ELEMENTS
                or (props is not None and props.GetMMFFAtomType(a.GetIdx()) == 0)]
-        return bad or ["(no atom type is missing, but a bond, angle or torsion term is)"]
+        return bad or ["a bond, angle or torsion term of this molecule"]
     finally:
         RDLogger.EnableLog("rdApp.*")
+
+
+class _QuietRDKit:
+    """Keep RDKit's C++ log lines (UFFTYPER, MMFF typing) off the user's terminal."""
+
+    def __enter__(self):
+        RDLogger.DisableLog("rdApp.*")
+        return self
+
+    def __exit__(self, *exc):
+        RDLogger.EnableLog("rdApp.*")
+        return False
+
+
+def _uff_types(mol: Chem.Mol) -> bool:
+    with _QuietRDKit():
+        return bool(ffh.UFFHasAllMoleculeParams(mol))
+
+
+#: Force fields tried, in order, when the requested one cannot type a molecule: UFF where
+#: RDKit's UFF typer knows every atom, else GFN-FF (xtb-python: parameters for Z = 1-86).
+#: Molecules with a d- or f-block metal go to GFN-FF directly: UFF typed cis-[Pt(NH3)2Cl2]
+#: (@SP1) but relaxed it to N-Pt-N 84-100 degrees with no trans pair left (measured here),
+#: GFN-FF kept it square planar (88-90 and 177 degrees).
+SAMPLING_FALLBACKS = ("uff", "gfnff")
+
+
+def _has_metal(mol: Chem.Mol) -> bool:
+    return any(21 <= z <= 30 or 39 <= z <= 48 or 57 <= z <= 80 or 89 <= z <= 112
+               for z in (a.GetAtomicNum() for a in mol.GetAtoms()))
+
+
+def sampling_force_field(mol: Chem.Mol, preferred: str = "mmff94s") -> tuple[str, str]:
+    """The force field that relaxes trial structures of ``mol``, and why (empty when it is
+    the preferred one).
+
+    MMFF94s has no parameters for metals and hypervalent main-group atoms (SF6, PCl5);
+    such molecules are relaxed with UFF where it types every atom, else with GFN-FF.
+
+    Raises
+    ------
+    InputError
+        No force field covers the molecule (the message names the atoms).
+    """
+    preferred = preferred.lower()
+    reasons = []
+    if preferred in ("mmff94", "mmff94s"):
+        bad = _mmff_missing_atoms(mol, "MMFF94s" if preferred == "mmff94s" else "MMFF94")
+        if not bad:
+            return preferred, ""
+        reasons.append(f"{preferred} has no parameters for {', '.join(bad)}")
+    elif preferred == "uff":
+        if _uff_types(mol):
+            return preferred, ""
+        reasons.append("uff cannot type every atom")
+    elif preferred == "gfnff":
+        return preferred, ""
+    else:
+        raise InputError(f"sampling force field must be 'mmff94', 'mmff94s', 'uff' or 'gfnff', "
+                         f"got {preferred!r}")
+    for candidate in SAMPLING_FALLBACKS:
+        if candidate == preferred:
+            continue
+        if candidate == "uff":
+            if _has_metal(mol):
+                reasons.append("uff does not hold metal coordination geometries")
+                continue
+            if _uff_types(mol):
+                return "uff", "; ".join(reasons)
+            reasons.append("uff cannot type every atom")
+        else:
+            from . import get_backend
+            try:
+                get_backend("gfnff", mol)
+            except Exception as exc:  # noqa: BLE001 - the engine says why
+                reasons.append(f"gfnff: {exc}")
+                continue
+            return "gfnff", "; ".join(reasons)
+    raise InputError("no force field can relax this molecule's trial structures: "
+                     + "; ".join(reasons))
 
 
 class _RDKitForceField(Backend):
@@ -106,7 +187,7 @@ class UFF(_RDKitForceField):
     name = "uff"
 
     def _check_parameters(self):
-        if not ffh.UFFHasAllMoleculeParams(self._mol):
+        if not _uff_types(self._mol):
             raise InputError("method 'uff' has no parameters for some atom of this molecule "
                              f"({Chem.MolToSmiles(Chem.RemoveHs(self._mol))})")
 
@@ -123,7 +204,9 @@ def minimize_conformers(mol: Chem.Mol, method: str = "mmff94s", max_iterations: 
     ----------
     mol : Chem.Mol
         Molecule with explicit hydrogens and conformers.
-    method : {"mmff94", "mmff94s", "uff"}
+    method : {"mmff94", "mmff94s", "uff", "gfnff"}
+        "gfnff" (xtb-python) relaxes one conformer after another with geomeTRIC at
+        "loose" convergence: for molecules no RDKit force field types (metals).
     max_iterations : int
         Minimizer iterations per conformer; a conformer that hits the limit is reported as
         not converged.
@@ -146,7 +229,24 @@ def minimize_conformers(mol: Chem.Mol, method: str = "mmff94s", max_iterations: 
                                             mmffVariant=cls.variant)
     elif method == "uff":
         UFF(out)
-        raw = ffh.UFFOptimizeMoleculeConfs(out, numThreads=threads, maxIters=max_iterations)
+        with _QuietRDKit():
+            raw = ffh.UFFOptimizeMoleculeConfs(out, numThreads=threads, maxIters=max_iterations)
+    elif method == "gfnff":
+        from ..errors import CalculationFailed
+        from ..optimize import optimize_positions
+        from . import get_backend
+        backend = get_backend("gfnff", out)
+        results = []
+        for conf in out.GetConformers():
+            try:
+                res = optimize_positions(backend, conf.GetPositions(), convergence="loose",
+                                         max_steps=max(50, min(max_iterations, 500)))
+            except CalculationFailed:
+                results.append((False, float("nan")))
+                continue
+            set_positions(out, conf.GetId(), res.positions)
+            results.append((bool(res.converged), float(res.energy)))
+        return out, results
     else:
         raise InputError(f"method for force-field minimization must be 'mmff94', 'mmff94s' "
                          f"or 'uff', got {method!r}")
