@@ -38,6 +38,8 @@ class _Parser(argparse.ArgumentParser):
 # here so that parsing the command line does not load RDKit)
 _MAX_ROUNDS = 20
 _TARGET_COMPLETENESS = 0.85
+_MIN_POPULATION = 1e-3
+_SCREEN_MARGIN = 4.0
 
 
 def _finite_float(text: str) -> float:
@@ -188,10 +190,18 @@ def _add_ensemble(parser: argparse.ArgumentParser) -> None:
                         metavar="FRACTION",
                         help="stop sampling once the estimated completeness reaches this "
                              f"(default {_TARGET_COMPLETENESS}; 0 = only when a round finds nothing new)")
-    parser.add_argument("--energy-window", type=_finite_float, default=5.0, metavar="KCAL",
-                        help="final energy window in kcal/mol (default 5)")
-    parser.add_argument("--screen-window", type=_finite_float, default=6.0, metavar="KCAL",
-                        help="single-point screening window in kcal/mol (default 6)")
+    parser.add_argument("--min-population", type=_finite_float, default=_MIN_POPULATION,
+                        metavar="SHARE",
+                        help="drop a conformer only when its population at the highest "
+                             f"--temperature is below this share (default {_MIN_POPULATION:g})")
+    parser.add_argument("--energy-window", type=_finite_float, default=None, metavar="KCAL",
+                        help="also drop conformers more than this above the lowest, kcal/mol "
+                             "(default: none, the population cut alone)")
+    parser.add_argument("--screen-margin", type=_finite_float, default=_SCREEN_MARGIN, metavar="KCAL",
+                        help="single points kept within the population cut's energy plus this "
+                             f"margin, kcal/mol (default {_SCREEN_MARGIN:g}, measured)")
+    parser.add_argument("--screen-window", type=_finite_float, default=None, metavar="KCAL",
+                        help="a fixed single-point screening window in kcal/mol instead")
     parser.add_argument("--keep-mirror-images", action="store_true",
                         help="keep mirror-image conformers as two rows instead of one row with degeneracy 2")
     parser.add_argument("--charge", type=int, default=None, help="total charge (default: from the input)")
@@ -297,6 +307,8 @@ def _run_ensemble(args: argparse.Namespace) -> int:
     for source in sources:
         ens = search(source, method=args.method, solvent=args.solvent, seed=args.seed,
                      n_trials=args.trials, energy_window=args.energy_window,
+                     temperatures=temps, min_population=args.min_population,
+                     screen_margin=args.screen_margin,
                      max_rounds=args.rounds, screen_window=args.screen_window,
                      target_completeness=args.completeness or None,
                      merge_mirror_images=not args.keep_mirror_images, charge=args.charge,
@@ -352,7 +364,9 @@ def _run_ensemble(args: argparse.Namespace) -> int:
                      + ("; p_DFT+G: DFT energy + the free-energy correction" if args.free_energy else "")
                      if args.rescore else ""))
         n_eff = ens.effective_count(temps[0])
-        print(f"{len(ens)} conformers within {args.energy_window:g} kcal/mol; sampling "
+        cut = (f"at or above {100 * args.min_population:g} % at {max(temps):g} K"
+               + (f" and within {args.energy_window:g} kcal/mol" if args.energy_window else ""))
+        print(f"{len(ens)} conformers {cut}; sampling "
               f"completeness {100 * summary.get('completeness', float('nan')):.1f} % "
               f"(Good-Turing; {sample.get('trials', 0)} trials, {sample.get('rounds', 0)} rounds, "
               f"{sample.get('embedding_failures', 0)} embedding failures); effective number of "

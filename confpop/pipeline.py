@@ -69,6 +69,32 @@ log = logging.getLogger(__name__)
 FORCE_FIELDS = ("mmff94", "mmff94s", "uff")
 MAX_ROUNDS = 20
 TARGET_COMPLETENESS = 0.85
+#: Final cut: a conformer is dropped when its population at the highest temperature asked
+#: for is below this share (see the module notes for the measurement behind it).
+MIN_POPULATION = 1e-3
+#: Screening margin, kcal/mol, added to the population cut's energy (module notes).
+SCREEN_MARGIN = 4.0
+DEFAULT_TEMPERATURES = (298.15,)
+
+
+def population_energy_cut(temperature: float, share: float, degeneracy: int = 2) -> float:
+    """Relative energy (kcal/mol) above which a conformer of the given degeneracy holds
+    less than ``share`` of the population at ``temperature``, whatever the others do:
+    p_i = g_i exp(-dE_i/RT) / Z <= g_i exp(-dE_i/RT) because Z >= 1 (the lowest
+    conformer contributes at least 1), so dE > RT ln(g / share) guarantees p_i < share.
+
+    Examples
+    --------
+    >>> round(population_energy_cut(298.15, 1e-3), 2)
+    4.5
+    """
+    from .thermo import check_temperatures
+    from .units import gas_constant
+
+    (t,) = check_temperatures([temperature], "temperature")
+    if not 0.0 < share < 1.0:
+        raise InputError(f"min_population must lie between 0 and 1 (exclusive), got {share}")
+    return float(gas_constant("kcal/mol") * t * np.log(degeneracy / share))
 
 
 # ---------------------------------------------------------------- units of work (picklable)
@@ -152,8 +178,10 @@ def _open_store(store):
 
 # ---------------------------------------------------------------- the search
 def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int = 0, *,
-           n_trials: int | None = None, energy_window: float = 5.0, ff_window: float = 10.0,
-           screen_window: float = 6.0, rmsd: float = 0.125, energy_tolerance: float = 0.1,
+           n_trials: int | None = None, temperatures=DEFAULT_TEMPERATURES,
+           min_population: float = MIN_POPULATION, screen_margin: float = SCREEN_MARGIN,
+           energy_window: float | None = None, ff_window: float = 10.0,
+           screen_window: float | None = None, rmsd: float = 0.125, energy_tolerance: float = 0.1,
            merge_mirror_images: bool = True, max_rounds: int = MAX_ROUNDS,
            target_completeness: float | None = TARGET_COMPLETENESS, sampling_method: str = "mmff94s",
            convergence: str = "tight", preoptimize: bool = False, preopt_margin: float = 2.0,
@@ -181,9 +209,21 @@ def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int
         Sampling rounds go on until a round adds no new conformer, the Good–Turing
         completeness estimate reaches ``target_completeness`` (None: not used), or
         ``max_rounds`` rounds were drawn (see the module notes for the defaults).
-    energy_window, ff_window, screen_window : float, kcal/mol
-        Final window, force-field window and single-point screening window (see the module
-        notes for the defaults).
+    temperatures : sequence of float, K
+        The temperatures the populations are wanted at; the cuts follow the highest.
+    min_population : float
+        Final cut: a conformer is dropped only when its population (degeneracy included)
+        at the highest temperature is below this share (default 0.001).
+    screen_margin : float, kcal/mol
+        The single-point screen keeps every structure within ``population_energy_cut(T_max,
+        min_population) + screen_margin`` of the lowest (default 4: measured single-point ->
+        optimized drops, module notes).
+    energy_window : float, kcal/mol, optional
+        An extra hard cap on the final relative energy (None: the population cut alone).
+    ff_window : float, kcal/mol
+        Force-field window of the sampling stage.
+    screen_window : float, kcal/mol, optional
+        A fixed screening window instead of the population cut + margin.
     rmsd, energy_tolerance : float
         Duplicate criteria (Å, kcal/mol); see :class:`confpop.prune.PruneSettings`.
     merge_mirror_images : bool
@@ -227,9 +267,22 @@ def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int
 
     method = method.lower() if isinstance(method, str) else method
     backend_class(method)  # unknown method or missing engine: fail before any work
-    if energy_window <= 0 or ff_window <= 0 or screen_window <= 0:
-        raise InputError(f"energy windows must be > 0 kcal/mol, got energy_window={energy_window}, "
-                         f"ff_window={ff_window}, screen_window={screen_window}")
+    from .thermo import check_temperatures
+    temperatures = check_temperatures(temperatures, "temperatures")
+    t_max = max(temperatures)
+    for name, value, lowest in (("energy_window", energy_window, 0.0), ("ff_window", ff_window, 0.0),
+                                ("screen_window", screen_window, 0.0),
+                                ("screen_margin", screen_margin, None)):
+        if value is None:
+            continue
+        bad = isinstance(value, bool) or not isinstance(value, (int, float, np.number)) \
+            or not np.isfinite(value) or (value <= lowest if lowest is not None else value < 0)
+        if bad:
+            what = "a finite number >= 0" if lowest is None else "a finite number > 0"
+            raise InputError(f"{name} must be {what} kcal/mol, got {value!r}")
+    final_cut = population_energy_cut(t_max, min_population)
+    if screen_window is None:
+        screen_window = final_cut + screen_margin
     t_start = time.perf_counter()
     mol = load_molecule(molecule, charge=charge, multiplicity=multiplicity, stereo=stereo,
                         keep_largest_fragment=keep_largest_fragment, method=method)
@@ -277,7 +330,7 @@ def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int
 
     if method in FORCE_FIELDS:
         return _finish(ens, positions, method, energy_window, prune_settings, achiral,
-                       sampling=srep, t_start=t_start)
+                       sampling=srep, t_start=t_start, t_max=t_max, min_population=min_population)
 
     base_item = {"mol": Chem.Mol(mol).ToBinary(), "method": method, "charge": charge,
                  "multiplicity": multiplicity, "solvent": solvent,
@@ -313,7 +366,8 @@ def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int
         ens, positions = _optimize_stage(ens, positions, base_item, "loose", "lbfgs",
                                          "preoptimize", method, solvent, executor, workers,
                                          progress, store)
-        ens, positions = _intermediate_prune(ens, positions, method, energy_window + preopt_margin,
+        ens, positions = _intermediate_prune(ens, positions, method,
+                                             min(final_cut, energy_window or np.inf) + preopt_margin,
                                              prune_settings, achiral)
     ens, positions = _optimize_stage(ens, positions, base_item, convergence, "geometric",
                                      "optimize", method, solvent, executor, workers, progress, store)
@@ -338,7 +392,7 @@ def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int
     ens = ens._replace(table=table, step=step_record("check", started=t0, n_in=len(ens),
                                                       n_out=len(ens) - n_bad, changed=n_bad))
     return _finish(ens, positions, method, energy_window, prune_settings, achiral,
-                   sampling=srep, t_start=t_start)
+                   sampling=srep, t_start=t_start, t_max=t_max, min_population=min_population)
 
 
 # d8 centres that are square planar with four ligands (Pt(II), Pd(II), Au(III), Rh(I), Ir(I))
@@ -477,9 +531,13 @@ def _intermediate_prune(ens, positions, method, window, settings, achiral):
     return ens.select(keep + failed, step=step), positions
 
 
-def _finish(ens: Ensemble, positions: dict, method: str, window: float,
-            settings: PruneSettings, achiral: bool, *, sampling, t_start: float) -> Ensemble:
-    """Final duplicate removal, mirror images, energy window; failures kept as rows."""
+def _finish(ens: Ensemble, positions: dict, method: str, window: float | None,
+            settings: PruneSettings, achiral: bool, *, sampling, t_start: float, t_max: float,
+            min_population: float) -> Ensemble:
+    """Final duplicate removal, mirror images, population cut (and optional energy window);
+    failures kept as rows."""
+    from .thermo import boltzmann_weights
+
     t0 = time.perf_counter()
     ids = ens.ids()
     if not ids:  # every conformer failed: the rows and their reasons are the result
@@ -499,11 +557,14 @@ def _finish(ens: Ensemble, positions: dict, method: str, window: float,
     rep = find_duplicates(ens.mol, [positions[c] for c in ids], energies, merging, achiral=achiral)
     e_min = energies.min()
     keep, n_window = [], 0
-    for u in rep.unique:
-        if energies[u] - e_min > convert(window, "kcal/mol", "hartree"):
-            n_window += 1
-            continue
-        keep.append(ids[u])
+    candidates = [u for u in rep.unique
+                  if window is None or energies[u] - e_min <= convert(window, "kcal/mol", "hartree")]
+    n_window = len(rep.unique) - len(candidates)
+    degeneracy = [2 if achiral and rep.chiral_conformer[u] else 1 for u in candidates]
+    weights = boltzmann_weights(energies[candidates], t_max, unit="hartree", degeneracy=degeneracy)
+    dropped_share = float(weights[weights < min_population].sum())
+    n_rare = int((weights < min_population).sum())
+    keep = [ids[u] for u, w in zip(candidates, weights) if w >= min_population]
     table["times_found"] = table.get("times_found", pd.Series(1, index=table.index))
     for dup, ref in rep.duplicate_of.items():
         table.loc[ids[ref], "times_found"] += table.loc[ids[dup], "times_found"]
@@ -527,6 +588,8 @@ def _finish(ens: Ensemble, positions: dict, method: str, window: float,
     ens = _renumber(ens)
     ens.provenance.append(step_record(
         "prune", started=t0, n_in=len(ids), n_out=len(keep), method=method, window_kcal=window,
+        min_population=min_population, population_temperature=t_max, below_min_population=n_rare,
+        population_dropped=round(dropped_share, 6),
         rmsd=settings.rmsd, energy_tolerance_kcal=settings.energy_tolerance,
         duplicates=len(rep.duplicate_of), mirror_pairs_merged=len(rep.mirror_of),
         outside_window=n_window, merge_mirror_images=settings.merge_mirror_images,

@@ -30,7 +30,7 @@ from rdkit.Chem import rdMolDescriptors
 
 from .backends.forcefield import minimize_conformers
 from .errors import InputError
-from .prune import PruneSettings, find_duplicates
+from .prune import PruneSettings, find_duplicates, integrity_problems
 from .units import convert
 
 __all__ = ["SamplingReport", "default_trials", "embed", "round_seed", "distinct_structures", "sample_conformers", "flexibility"]
@@ -170,6 +170,8 @@ class SamplingReport:
         Trial structures asked for in all rounds.
     embedding_failures : int
         Trials for which ETKDG gave no structure.
+    relaxation_failures : int
+        Relaxed structures discarded because the relaxation failed or broke a bond (GFN-FF).
     repeated_embeddings : int
         Trial structures identical to another trial of the same round (dropped before
         relaxation; they never count as a conformer found again).
@@ -194,6 +196,7 @@ class SamplingReport:
     trials: int = 0
     embedding_failures: int = 0
     repeated_embeddings: int = 0
+    relaxation_failures: int = 0
     minimization_unconverged: int = 0
     in_window: int = 0
     unique: int = 0
@@ -300,6 +303,13 @@ def sample_conformers(mol: Chem.Mol, *, n_trials: int | None = None, seed: int =
             continue
         for conf, (_, energy) in zip(relaxed.GetConformers(), results):
             if not np.isfinite(energy):  # the relaxation failed (GFN-FF only)
+                report.relaxation_failures += 1
+                continue
+            # RDKit's force fields keep the bonds they are given; GFN-FF relaxes from the
+            # geometry and can break an ETKDG structure of a hypervalent or metal centre
+            # (SF6 from ETKDG: S-F 1.0 and 3.1 A, the lowest GFN-FF energy of 40 trials)
+            if method == "gfnff" and integrity_problems(relaxed, conf.GetId()):
+                report.relaxation_failures += 1
                 continue
             pool_pos.append(np.array(conf.GetPositions()))
             pool_e.append(energy)

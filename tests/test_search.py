@@ -145,8 +145,12 @@ def test_bad_input_clear_errors():
         cp.search("CCCC", method="mmff94s", solvent="water")
     with pytest.raises(InputError, match="solvent"):
         cp.search("CCCC", method="gfn2", solvent="unobtainium")
-    with pytest.raises(InputError, match="energy windows must be > 0"):
+    with pytest.raises(InputError, match="energy_window must be a finite number > 0 kcal/mol, got 0"):
         cp.search("CCCC", method="mmff94s", energy_window=0)
+    with pytest.raises(InputError, match="screen_margin must be a finite number >= 0"):
+        cp.search("CCCC", method="mmff94s", screen_margin=float("nan"))
+    with pytest.raises(InputError, match="min_population"):
+        cp.search("CCCC", method="mmff94s", min_population=1.5)
 
 
 def test_cli_ensemble_text_json_and_files(tmp_path, capsys):
@@ -192,6 +196,8 @@ def test_cli_sampling_defaults_match_search_and_bad_values_are_named(capsys):
     params = inspect.signature(cp.search).parameters
     assert cli._MAX_ROUNDS == params["max_rounds"].default
     assert cli._TARGET_COMPLETENESS == params["target_completeness"].default
+    assert cli._MIN_POPULATION == params["min_population"].default
+    assert cli._SCREEN_MARGIN == params["screen_margin"].default
     assert main(["ensemble", "CCCC", "--method", "mmff94s", "--completeness", "1.2"]) == 2
     assert "--completeness must be >= 0 and < 1, got 1.2" in capsys.readouterr().err
     assert main(["ensemble", "CCCC", "--method", "mmff94s", "--rounds", "0"]) == 2

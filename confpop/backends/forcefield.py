@@ -205,8 +205,8 @@ def minimize_conformers(mol: Chem.Mol, method: str = "mmff94s", max_iterations: 
     mol : Chem.Mol
         Molecule with explicit hydrogens and conformers.
     method : {"mmff94", "mmff94s", "uff", "gfnff"}
-        "gfnff" (xtb-python) relaxes one conformer after another with geomeTRIC at
-        "loose" convergence: for molecules no RDKit force field types (metals).
+        "gfnff" (xtb-python) relaxes one conformer after another (L-BFGS-B, "tight"):
+        for molecules no RDKit force field types (metals).
     max_iterations : int
         Minimizer iterations per conformer; a conformer that hits the limit is reported as
         not converged.
@@ -239,8 +239,12 @@ def minimize_conformers(mol: Chem.Mol, method: str = "mmff94s", max_iterations: 
         results = []
         for conf in out.GetConformers():
             try:
-                res = optimize_positions(backend, conf.GetPositions(), convergence="loose",
-                                         max_steps=max(50, min(max_iterations, 500)))
+                # L-BFGS-B in Cartesians: GFN-FF gradients cost ~0.1 ms, so its many cheap
+                # steps beat geomeTRIC's ~1 s of coordinate work per structure (measured on
+                # cisplatin: 0.02 s vs 0.8-2.2 s; "tight" ends within 0.001 hartree of
+                # "verytight", the same square-planar structure)
+                res = optimize_positions(backend, conf.GetPositions(), convergence="tight",
+                                         engine="lbfgs", max_steps=max_iterations)
             except CalculationFailed:
                 results.append((False, float("nan")))
                 continue
