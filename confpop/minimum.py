@@ -121,7 +121,7 @@ def symmetry_of_conformer(mol: Chem.Mol, positions, *, perms=None,
     Uses the resonance-aware graph symmetry of :func:`confpop.prune.automorphisms` over
     heavy atoms and polar hydrogens.
     """
-    from .prune import automorphisms, best_rmsd, rmsd_atoms
+    from .prune import _kabsch_rmsd, automorphisms, best_rmsd, rmsd_atoms
 
     pos = np.asarray(positions, dtype=float)
     atoms = rmsd_atoms(mol)
@@ -131,10 +131,15 @@ def symmetry_of_conformer(mol: Chem.Mol, positions, *, perms=None,
     mirror[:, 0] *= -1.0
     if best_rmsd(pos, mirror, perms) < tolerance:
         return "mirror"
-    heavy = np.array([mol.GetAtomWithIdx(int(a)).GetAtomicNum() > 1 for a in np.sort(atoms)])
-    moving = [p for p in perms if np.any(p[heavy] != np.sort(atoms)[heavy])]
-    if moving and best_rmsd(pos, pos, np.array(moving)) < tolerance:
-        return "rotation"
+    order = np.sort(atoms)
+    heavy = np.array([mol.GetAtomWithIdx(int(a)).GetAtomicNum() > 1 for a in order])
+    moving = np.array([p for p in perms if np.any(p[heavy] != order[heavy])])
+    if len(moving):
+        ref = pos[order] - pos[order].mean(axis=0)
+        probes = pos[moving]
+        probes = probes - probes.mean(axis=1, keepdims=True)
+        if _kabsch_rmsd(ref, probes, allow_reflection=False).min() < tolerance:
+            return "rotation"
     return ""
 
 
