@@ -103,3 +103,12 @@ def test_hypervalent_phosphorus_is_sampled_with_uff(capfd):
     assert sample["force_field"] == "uff" and "mmff94s" in sample["force_field_reason"]
     assert len(ens) == 1
     assert "UFFTYPER" not in capfd.readouterr().err
+
+
+def test_conformer_of_a_chiral_molecule_is_not_symmetric():
+    # a stereocentre rules out any mirror plane; the two N-methyls swap by graph symmetry
+    # but no rotation of the whole conformer realises that swap
+    mol = load_molecule("CN(C)C(=O)[C@@H](C)OC")
+    AllChem.EmbedMolecule(mol, randomSeed=5)
+    AllChem.MMFFOptimizeMolecule(mol)
+    assert symmetry_of_conformer(mol, mol.GetConformer().GetPositions()) == ""
