@@ -38,8 +38,8 @@ class _Parser(argparse.ArgumentParser):
 # here so that parsing the command line does not load RDKit)
 _MAX_ROUNDS = 20
 _TARGET_COMPLETENESS = 0.85
-_MIN_POPULATION = 1e-3
-_SCREEN_MARGIN = 4.0
+_MIN_POPULATION = 1e-4
+_SCREEN_MARGIN = 3.0
 
 
 def _finite_float(text: str) -> float:
