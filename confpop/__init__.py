@@ -28,6 +28,8 @@ _PUBLIC: dict[str, str] = {
     "BackendUnavailable": "errors",
     "CalculationFailed": "errors",
     "StoreError": "errors",
+    "ConfpopWarning": "errors",
+    "StoreWarning": "errors",
     "convert": "units",
     "load_molecule": "molecule",
     "Ensemble": "ensemble",

@@ -12,6 +12,8 @@ __all__ = [
     "BackendUnavailable",
     "CalculationFailed",
     "StoreError",
+    "ConfpopWarning",
+    "StoreWarning",
 ]
 
 
@@ -33,3 +35,11 @@ class CalculationFailed(ConfpopError, RuntimeError):
 
 class StoreError(ConfpopError, RuntimeError):
     """The result store file is corrupt, foreign, or cannot be written."""
+
+
+class ConfpopWarning(UserWarning):
+    """Root of the cautions confpop gives through :mod:`warnings` (filterable, testable)."""
+
+
+class StoreWarning(ConfpopWarning):
+    """A result-store value could not be read as data; that unit is computed again."""
