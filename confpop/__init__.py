@@ -28,6 +28,7 @@ _PUBLIC: dict[str, str] = {
     "BackendUnavailable": "errors",
     "CalculationFailed": "errors",
     "StoreError": "errors",
+    "OutputError": "errors",
     "ConfpopWarning": "errors",
     "StoreWarning": "errors",
     "convert": "units",

@@ -12,6 +12,7 @@ __all__ = [
     "BackendUnavailable",
     "CalculationFailed",
     "StoreError",
+    "OutputError",
     "ConfpopWarning",
     "StoreWarning",
 ]
@@ -35,6 +36,10 @@ class CalculationFailed(ConfpopError, RuntimeError):
 
 class StoreError(ConfpopError, RuntimeError):
     """The result store file is corrupt, foreign, or cannot be written."""
+
+
+class OutputError(ConfpopError, OSError):
+    """An output file or folder cannot be written (full disk, permissions); the message names it."""
 
 
 class ConfpopWarning(UserWarning):
