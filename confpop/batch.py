@@ -102,6 +102,10 @@ class BatchResult:
     temperatures : tuple of float, K
     parallel : str
         How the batch ran: "molecules" or "conformers" (see the module notes).
+    tables : dict of str to pathlib.Path
+        With ``out_dir``: where the summary and failure tables were written
+        (``{"summary": ..., "failures": ...}``; ``summary-2.csv`` and so on when a file that
+        confpop did not write has the usual name). Empty without ``out_dir``.
     """
 
     summary: pd.DataFrame
@@ -109,6 +113,7 @@ class BatchResult:
     failures: pd.DataFrame = field(repr=False)
     temperatures: tuple = (298.15,)
     parallel: str = "molecules"
+    tables: dict = field(default_factory=dict, repr=False)
 
     @property
     def n_ok(self) -> int:
@@ -860,5 +865,7 @@ class _Writer:
     def result(self, mode: str) -> BatchResult:
         summary, failures = self.frames()
         ensembles = {self.entries[k]["name"]: self.ensembles[k] for k in sorted(self.ensembles)}
+        tables = {} if self.folder is None else \
+            {kind: self.out / name for kind, name in self.table_names.items()}
         return BatchResult(summary=summary, ensembles=ensembles, failures=failures,
-                           temperatures=self.temps, parallel=mode)
+                           temperatures=self.temps, parallel=mode, tables=tables)

@@ -18,6 +18,7 @@ import argparse
 import json
 import math
 import sys
+import warnings as _warnings
 
 from . import __version__
 from .errors import CalculationFailed, ConfpopError, InputError
@@ -25,6 +26,7 @@ from .errors import CalculationFailed, ConfpopError, InputError
 __all__ = ["main"]
 
 _PROG = "confpop"
+_default_show_warning = _warnings.showwarning
 
 
 class _Parser(argparse.ArgumentParser):
@@ -214,7 +216,11 @@ def _add_ensemble(parser: argparse.ArgumentParser) -> None:
                         help="single points at a higher level (dft: B3LYP-D3(BJ)/def2-SVPD through "
                              "PySCF) and populations from them")
     parser.add_argument("--out", default=None, metavar="DIR",
-                        help="write ensemble.sdf, table.csv and run.json into DIR")
+                        help="write ensemble.sdf, table.csv and run.json into DIR (checked "
+                             "before any work; files confpop did not write are never replaced)")
+    parser.add_argument("--into-nonempty-folder", action="store_true",
+                        help="allow an --out folder holding files confpop did not write (they "
+                             "stay; a taken name gets -2)")
     parser.add_argument("--json", action="store_true", help="print machine-readable JSON only")
     parser.add_argument("--quiet", action="store_true", help="no progress bars")
 
@@ -275,12 +281,6 @@ def _ensemble_table_text(ens, temps, views=None) -> str:
 
 
 def _run_ensemble(args: argparse.Namespace) -> int:
-    import os
-    from pathlib import Path
-
-    from .io import ensemble_json
-    from .pipeline import search
-
     from .thermo import check_temperatures
     temps = check_temperatures(args.temperature, "--temperature")
     if not 0.0 <= args.completeness < 1.0:
@@ -288,6 +288,34 @@ def _run_ensemble(args: argparse.Namespace) -> int:
     if args.rounds < 1:
         raise InputError(f"--rounds must be >= 1, got {args.rounds}")
     progress = not (args.quiet or args.json) and sys.stderr.isatty()
+    folder = None
+    if args.out:  # created, locked and proved writable before any work
+        from .outdir import OutputFolder
+        folder = OutputFolder(args.out, kind="ensemble", option="--out",
+                              allow_nonempty=args.into_nonempty_folder)
+    try:
+        return _ensemble_work(args, temps, progress, folder)
+    finally:
+        if folder is not None:
+            folder.close()
+
+
+def _ensemble_files(ens, temps, payload) -> dict:
+    """{file name: write(path)} of one ensemble's output files."""
+    def run_json(path):
+        with open(path, "w") as fh:
+            json.dump(payload, fh, indent=2)
+            fh.write("\n")
+    return {"ensemble.sdf": lambda path: ens.to_sdf(path),
+            "table.csv": lambda path: ens.to_csv(path, temps), "run.json": run_json}
+
+
+def _ensemble_work(args, temps, progress, folder) -> int:
+    import os
+
+    from .io import ensemble_json
+    from .pipeline import search
+
     sources = [args.input]
     if args.enumerate_stereo:
         from .molecule import stereoisomers
@@ -318,16 +346,17 @@ def _run_ensemble(args: argparse.Namespace) -> int:
     if args.json and any(len(e) == 0 for e in results):
         raise CalculationFailed("every conformer failed: " + "; ".join(
             sorted(set(results[0].raw_table["reason"]))))
-    if args.out:
-        out = Path(args.out)
+    written = []
+    if folder is not None:
         for k, ens in enumerate(results):
-            folder = out if len(results) == 1 else out / f"stereoisomer_{k + 1}"
-            folder.mkdir(parents=True, exist_ok=True)
-            ens.to_sdf(folder / "ensemble.sdf")
-            ens.to_csv(folder / "table.csv", temps)
-            with open(folder / "run.json", "w") as fh:
-                json.dump(payloads[k], fh, indent=2)
-                fh.write("\n")
+            files = _ensemble_files(ens, temps, payloads[k])
+            if len(results) == 1:
+                for name, write in files.items():
+                    name = folder.claim(name, key=f"file:{name}")
+                    written.append(str(folder.write_file(name, write)))
+            else:
+                name = folder.claim(f"stereoisomer_{k + 1}", key=f"stereoisomer:{k + 1}")
+                written.append(str(folder.write_folder(name, files)))
     if args.json:
         print(json.dumps(payloads[0] if len(payloads) == 1 else payloads, indent=2))
         return 0
@@ -360,8 +389,9 @@ def _run_ensemble(args: argparse.Namespace) -> int:
         stages = [p for p in ens.provenance if p.get("step") not in ("input", "summary")]
         print("stages: " + ", ".join(f"{p['step']} {p['n_in']}->{p['n_out']} ({p['seconds']:.1f} s)"
                                      for p in stages))
-    if args.out:
-        print(f"wrote ensemble.sdf, table.csv and run.json to {os.path.abspath(args.out)}")
+    if written:
+        print(f"wrote {', '.join(os.path.basename(w) for w in written)} to "
+              f"{os.path.abspath(args.out)}")
     print(_ENSEMBLE_CAUTION)
     return 0
 
@@ -410,6 +440,31 @@ def _plain(value):
     return value
 
 
+def _check_plot_path(path) -> None:
+    """--plot: a writable place and a format matplotlib knows, checked before any work."""
+    import os
+
+    from .outdir import check_output_file
+
+    check_output_file(path, "--plot")
+    suffix = os.path.splitext(str(path))[1].lstrip(".").lower()
+    known = ("png", "pdf", "svg", "svgz", "eps", "ps", "jpg", "jpeg", "tif", "tiff", "webp")
+    if suffix not in known:
+        raise InputError(f"--plot {str(path)!r}: the file name must end in one of "
+                         f"{', '.join('.' + k for k in known)} (the figure format follows it)")
+
+
+def _read_observed(path):
+    import pandas as pd
+
+    try:
+        return pd.read_csv(path)
+    except FileNotFoundError:
+        raise InputError(f"--observed file {str(path)!r} does not exist") from None
+    except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as exc:
+        raise InputError(f"--observed file {str(path)!r} cannot be read as CSV: {exc}") from None
+
+
 def _couplings_ensemble(args):
     from pathlib import Path
 
@@ -428,6 +483,11 @@ def _run_couplings(args: argparse.Namespace) -> int:
 
     from .thermo import check_temperatures
     temps = check_temperatures(args.temperature, "--temperature")
+    if args.plot:
+        _check_plot_path(args.plot)
+    observed = None
+    if args.observed:  # read before any work: a bad file fails at once
+        observed = _read_observed(args.observed)
     ens = _couplings_ensemble(args)
     table = nmr.average_couplings(ens, temps, parameters=args.parameters, by=args.by)
     id_cols = [c for c in table.columns if not isinstance(c, float)]
@@ -436,8 +496,7 @@ def _run_couplings(args: argparse.Namespace) -> int:
         spread = nmr.coupling_spread(ens, temps, parameters=args.parameters, by=args.by,
                                      energy_sigma=args.energy_sigma, seed=args.seed)
     fit = None
-    if args.observed:
-        observed = pd.read_csv(args.observed)
+    if observed is not None:
         fit = nmr.fit_populations(ens, observed, temperature=temps[0], parameters=args.parameters,
                                   seed=args.seed)
     if args.plot:
@@ -521,8 +580,9 @@ _BATCH_EPILOG = (
     "Exit status: 0 when every molecule succeeded; 1 when some (or all) molecules failed "
     "but the batch ran to the end (the others' files are written; failures.csv and the "
     "printed failure list say why); 2 on an input error that stops the batch before any "
-    "search (unreadable batch file, no SMILES column, unknown method, unusable --store, "
-    "unreachable --scheduler); 130 when interrupted (finished molecules keep their files)."
+    "search (unreadable batch file, no SMILES column, unknown method, unusable --store or "
+    "--out, unreachable --scheduler); 130 when interrupted by Ctrl-C (SIGINT), 143 by SIGTERM, "
+    "129 by SIGHUP: the workers are stopped and finished molecules keep their files."
 )
 
 
@@ -534,7 +594,11 @@ def _add_batch(parser: argparse.ArgumentParser) -> None:
                              ".sdf (one molecule per record, named by its title)")
     parser.add_argument("--out", required=True, metavar="DIR",
                         help="folder for one subfolder per molecule (ensemble.sdf, table.csv, "
-                             "run.json) plus summary.csv and failures.csv")
+                             "run.json) plus summary.csv and failures.csv; checked and locked "
+                             "before any work; a rerun keeps the earlier molecules' rows")
+    parser.add_argument("--into-nonempty-folder", action="store_true",
+                        help="allow an --out folder holding files confpop did not write (they "
+                             "are never replaced; a taken name gets -2)")
     parser.add_argument("--method", default="gfn2",
                         help="final level: gfn2 (default), gfn1, gfnff, tblite-gfn2, mmff94s, mmff94, uff")
     parser.add_argument("--solvent", default=None,
@@ -633,7 +697,8 @@ def _run_batch(args: argparse.Namespace) -> int:
         result = search_many(molecules, method=args.method, solvent=args.solvent, seed=args.seed,
                              temperatures=temps, executor=client, workers=args.workers,
                              store=args.store, progress=progress, out_dir=args.out,
-                             parallel=args.parallel, energy_window=args.energy_window)
+                             parallel=args.parallel, energy_window=args.energy_window,
+                             into_nonempty_folder=args.into_nonempty_folder)
     finally:
         if client is not None:
             client.close()
@@ -661,7 +726,8 @@ def _run_batch(args: argparse.Namespace) -> int:
         for _, row in result.failures.iterrows():
             message = " ".join(str(row["message"]).split())
             print(f"  {row['name']}: {row['error_type']}: {message}")
-    print(f"wrote summary.csv, failures.csv and one folder per molecule to {out}")
+    tables = ", ".join(os.path.basename(p) for p in result.tables.values())
+    print(f"wrote {tables} and one folder per molecule to {out}")
     print(_ENSEMBLE_CAUTION)
     return status
 
@@ -736,6 +802,8 @@ def _run_scan(args: argparse.Namespace) -> int:
         raise InputError(f"--temperature must be > 0 K, got {bad[0]:g}")
     if args.delta_nu <= 0.0:
         raise InputError(f"--delta-nu must be > 0 Hz, got {args.delta_nu:g}")
+    if args.plot:
+        _check_plot_path(args.plot)
     workers = args.workers
     if workers is None:
         workers = 2 if default_workers() >= 2 else 1
@@ -839,18 +907,73 @@ _COMMANDS: list[tuple] = [
 ]
 
 
+_EXIT_STATUS = (
+    "Exit status: 0 on success; 1 when the calculation ran but gave no result (every "
+    "conformer failed) or on an internal error; 2 on an input error, reported as one line "
+    "before any work where it can be checked first (options, input files, --out, --plot, "
+    "--store); 130 when interrupted by Ctrl-C (SIGINT), 143 by SIGTERM and 129 by SIGHUP: "
+    "worker processes are stopped, the --store keeps every finished calculation and no "
+    "partial output file is left."
+)
+
+
 def _build_parser() -> argparse.ArgumentParser:
     parser = _Parser(
         prog=_PROG,
         description="Conformer ensembles: populations, interconversion rates and NMR observables.",
+        epilog=_EXIT_STATUS,
     )
     parser.add_argument("--version", action="version", version=f"{_PROG} {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
     for name, add_arguments, run, help_text in _COMMANDS:
-        command_parser = sub.add_parser(name, help=help_text, description=help_text)
+        command_parser = sub.add_parser(name, help=help_text, description=help_text,
+                                        epilog=_EXIT_STATUS)
         add_arguments(command_parser)
         command_parser.set_defaults(_run=run)
     return parser
+
+
+class Terminated(KeyboardInterrupt):
+    """SIGTERM or SIGHUP, raised in the main thread so that a run ends as after Ctrl-C."""
+
+    def __init__(self, signum: int):
+        super().__init__(signum)
+        self.signum = signum
+
+
+def _raise_terminated(signum, frame):
+    import signal
+
+    # the clean-up that follows must not be cut short by a second signal
+    for name in ("SIGTERM", "SIGHUP"):
+        if hasattr(signal, name):
+            signal.signal(getattr(signal, name), signal.SIG_IGN)
+    raise Terminated(signum)
+
+
+def _install_signal_handlers() -> dict:
+    """SIGTERM/SIGHUP -> Terminated (main thread only); returns the handlers to restore."""
+    import signal
+    import threading
+
+    if threading.current_thread() is not threading.main_thread():
+        return {}
+    previous = {}
+    for name in ("SIGTERM", "SIGHUP"):
+        number = getattr(signal, name, None)
+        if number is not None:
+            previous[number] = signal.signal(number, _raise_terminated)
+    return previous
+
+
+def _show_warning(message, category, filename, lineno, file=None, line=None):
+    """Our cautions as one line each; other libraries' warnings as usual."""
+    from .errors import ConfpopWarning
+
+    if issubclass(category, ConfpopWarning):
+        print(f"{_PROG}: warning: {' '.join(str(message).split())}", file=sys.stderr)
+    else:
+        _default_show_warning(message, category, filename, lineno, file, line)
 
 
 def main(argv=None) -> int:
@@ -864,8 +987,23 @@ def main(argv=None) -> int:
     Returns
     -------
     int
-        0 on success, 2 on an input error (reported as one line on stderr).
+        0 on success, 1 when no result came out, 2 on an input error (reported as one line
+        on stderr), 130 after Ctrl-C, 128 + the signal number after SIGTERM or SIGHUP.
     """
+    import signal
+    import warnings
+
+    previous = _install_signal_handlers()
+    try:
+        with warnings.catch_warnings():
+            warnings.showwarning = _show_warning
+            return _main(argv)
+    finally:
+        for number, handler in previous.items():
+            signal.signal(number, handler)
+
+
+def _main(argv) -> int:
     parser = _build_parser()
     try:
         try:
@@ -883,10 +1021,15 @@ def main(argv=None) -> int:
         message = " ".join(str(err).split()) or type(err).__name__
         print(f"{_PROG}: error: {message}", file=sys.stderr)
         return 2
-    except KeyboardInterrupt:
-        print(f"{_PROG}: interrupted (finished calculations are kept in the --store file, "
-              "if one was given)", file=sys.stderr)
-        return 130
+    except KeyboardInterrupt as stop:
+        import signal
+
+        signum = getattr(stop, "signum", signal.SIGINT)
+        what = "interrupted" if signum == signal.SIGINT else \
+            f"terminated by {signal.Signals(signum).name}"
+        print(f"{_PROG}: {what} (worker processes stopped; finished calculations are kept in "
+              "the --store file, if one was given)", file=sys.stderr)
+        return 128 + int(signum)
     except Exception as err:  # a bug: one line, the traceback only on request
         import os
         if os.environ.get("CONFPOP_DEBUG"):

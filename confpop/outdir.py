@@ -120,7 +120,8 @@ class OutputFolder:
         Write into a non-empty folder that has no confpop manifest (never replacing what is
         there). Default False: such a folder is refused.
     option : str
-        How the caller names the folder in messages (``"out_dir"``, ``"--out"``).
+        How messages name the folder (default "output folder"; ``"--out"`` on the command
+        line).
 
     Raises
     ------
@@ -131,7 +132,8 @@ class OutputFolder:
         If the folder cannot be created or written.
     """
 
-    def __init__(self, path, *, kind: str, allow_nonempty: bool = False, option: str = "out_dir"):
+    def __init__(self, path, *, kind: str, allow_nonempty: bool = False,
+                 option: str = "output folder"):
         if isinstance(path, bytes) or not isinstance(path, (str, os.PathLike)) or not str(path):
             raise InputError(f"{option} must be a folder path, got {path!r}")
         self.path = Path(path).expanduser()
@@ -151,8 +153,8 @@ class OutputFolder:
                 raise InputError(
                     f"{option} {str(self.path)!r} is not empty ({shown}) and was not written by "
                     f"confpop (it has no {MANIFEST}); choose a new or empty folder, or allow "
-                    "writing beside those files (--into-nonempty-folder; "
-                    "allow_nonempty=True in Python), which never replaces them")
+                    "writing beside those files (--into-nonempty-folder on the command line, "
+                    "into_nonempty_folder=True in Python), which never replaces them")
         try:
             self.path.mkdir(parents=True, exist_ok=True)
         except OSError as exc:
