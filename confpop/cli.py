@@ -424,6 +424,15 @@ def _add_couplings(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--method", default="gfn2", help="method for a SMILES input (default gfn2)")
     parser.add_argument("--solvent", default=None, help="implicit solvent for a SMILES input")
     parser.add_argument("--seed", type=int, default=0, help="seed for sampling, spread and bootstrap")
+    parser.add_argument("--energy-property", default=None, metavar="NAME",
+                        help="for an SDF ensemble from another program: the SD property "
+                             "holding each conformer's energy (needs --energy-unit)")
+    parser.add_argument("--energy-unit", default=None, metavar="UNIT",
+                        help="unit of those energies (or of the numbers on XYZ comment lines): "
+                             "kcal/mol, kJ/mol, hartree, eV or cm-1")
+    parser.add_argument("--uniform-weights", action="store_true",
+                        help="accept an ensemble file without energies and weight its "
+                             "conformers equally (default: refuse)")
     parser.add_argument("--plot", metavar="FILE.png", default=None,
                         help="write a figure: predicted vs observed with --observed, else J vs temperature")
     parser.add_argument("--json", action="store_true", help="print machine-readable JSON only")
@@ -470,7 +479,11 @@ def _couplings_ensemble(args):
 
     if Path(args.input).is_file():
         from .io import read_ensemble
-        return read_ensemble(args.input)
+        return read_ensemble(args.input, energy_property=args.energy_property,
+                             unit=args.energy_unit, uniform_weights=args.uniform_weights)
+    if args.energy_property or args.energy_unit or args.uniform_weights:
+        raise InputError(f"--energy-property, --energy-unit and --uniform-weights apply to an "
+                         f"ensemble file; {args.input!r} is not a file")
     from .pipeline import search
     return search(args.input, method=args.method, solvent=args.solvent, seed=args.seed,
                   progress=False)
