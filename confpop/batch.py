@@ -208,7 +208,14 @@ def _read_text(path: Path) -> str:
         raise InputError(f"batch file {str(path)!r} is not a text file") from None
 
 
+def _printable(text: str) -> str:
+    """Control characters (terminal escape sequences) shown as \\xNN, never passed on."""
+    return "".join(ch if ch.isprintable() else f"\\x{ord(ch):02x}" for ch in text)
+
+
 def _read_smi(path: Path) -> list[tuple[str, str]]:
+    from .molecule import SmilesText
+
     entries = []
     for number, line in enumerate(_read_text(path).splitlines(), start=1):
         text = line.strip()
@@ -217,8 +224,8 @@ def _read_smi(path: Path) -> list[tuple[str, str]]:
         parts = text.split(None, 1)
         if not entries and parts[0].lower() == "smiles":
             continue  # a header line
-        name = parts[1].strip() if len(parts) > 1 else ""
-        entries.append((name or f"line{number}", parts[0]))
+        name = _printable(parts[1].strip()) if len(parts) > 1 else ""
+        entries.append((name or f"line{number}", SmilesText(parts[0])))
     return entries
 
 
@@ -241,11 +248,13 @@ def _read_table(path: Path, sep: str) -> list[tuple[str, str]]:
                          f"({', '.join(smiles_cols)}); keep one")
     name_col = next((c for key in ("name", "id") for c in columns if c.strip().lower() == key),
                     None)
+    from .molecule import SmilesText
+
     entries = []
     for row, (_, record) in enumerate(frame.iterrows(), start=1):
         smiles = str(record[smiles_cols[0]]).strip()
-        name = str(record[name_col]).strip() if name_col is not None else ""
-        entries.append((name or f"row{row}", smiles))
+        name = _printable(str(record[name_col]).strip()) if name_col is not None else ""
+        entries.append((name or f"row{row}", SmilesText(smiles)))
     return entries
 
 
@@ -267,7 +276,12 @@ def _read_sdf_records(path: Path) -> list[tuple[str, object]]:
                 "and bond lines)")))
             previous = None
             continue
-        title = raw.GetProp("_Name").strip() if raw.HasProp("_Name") else ""
+        title = _printable(raw.GetProp("_Name").strip()) if raw.HasProp("_Name") else ""
+        # the spin state comes from the structure (radicals) or the multiplicity option, as
+        # for the ensemble command: an SD field of that name is not read as one
+        for prop in ("multiplicity", "charge"):
+            if raw.HasProp(prop):
+                raw.ClearProp(prop)
         mol = Chem.Mol(raw)
         key = None
         try:
@@ -301,7 +315,8 @@ def _unique_names(entries) -> dict:
 def search_many(molecules, *, names=None, method: str = "gfn2", solvent: str | None = None,
                 seed: int = 0, temperatures=(298.15,), executor=None, workers: int | None = None,
                 store=None, progress: bool = False, out_dir=None, parallel: str = "auto",
-                into_nonempty_folder: bool = False, **search_options) -> BatchResult:
+                into_nonempty_folder: bool = False, allow_long: bool = False,
+                **search_options) -> BatchResult:
     """Search the conformers of many molecules; one bad molecule never stops the others.
 
     Parameters
@@ -334,6 +349,10 @@ def search_many(molecules, *, names=None, method: str = "gfn2", solvent: str | N
         Write one folder per molecule plus ``summary.csv`` and ``failures.csv`` here, each
         molecule as soon as it finishes (see the module notes). Checked, created and locked
         before any work.
+    allow_long : bool
+        Search molecules whose estimated cost (:func:`confpop.budget.estimate_search`) is above
+        :data:`confpop.budget.MAX_CPU_HOURS`. Default False: each such molecule fails, before
+        its search starts, with the estimate as its reason.
     into_nonempty_folder : bool
         Allow an ``out_dir`` that holds files confpop did not write (they are never replaced:
         a name they take gets a free one beside it). Default False: such a folder is refused.
@@ -403,6 +422,8 @@ def search_many(molecules, *, names=None, method: str = "gfn2", solvent: str | N
     if store is not None and not hasattr(store, "get"):
         from .store import ResultStore
         store = opened = ResultStore(store)  # a bad file fails here, before any work
+    if allow_long not in (True, False):
+        raise InputError(f"allow_long must be True or False, got {allow_long!r}")
     if into_nonempty_folder not in (True, False):
         raise InputError(f"into_nonempty_folder must be True or False, got {into_nonempty_folder!r}")
     mode = _choose_mode(parallel, len(entries), executor, workers)
@@ -412,7 +433,8 @@ def search_many(molecules, *, names=None, method: str = "gfn2", solvent: str | N
         if opened is not None:
             opened.close()
         raise
-    settings = {"method": method, "solvent": solvent, "seed": seed, "options": search_options}
+    settings = {"method": method, "solvent": solvent, "seed": seed, "options": search_options,
+                "allow_long": allow_long}
     log.info("batch of %d molecules, method %s, parallel over %s", len(entries), method, mode)
     try:
         if mode == "molecules":
@@ -584,6 +606,25 @@ def _unpack(packed: dict) -> Ensemble:
                     name=packed["name"])
 
 
+def _check_budget(molecule, settings: dict) -> None:
+    """Refuse (as this molecule's failure) a search estimated above the bound."""
+    if settings.get("allow_long"):
+        return
+    from .budget import check_search_budget
+    from .molecule import _load
+
+    options = settings["options"]
+    try:
+        mol = _load(molecule, charge=options.get("charge"),
+                    multiplicity=options.get("multiplicity"),
+                    keep_largest_fragment=options.get("keep_largest_fragment", False),
+                    stereo="ignore", method=None, name=None, warn_open_stereo=False)
+    except InputError:
+        return  # the search itself reports why the molecule cannot be read
+    check_search_budget(mol, method=settings["method"], n_trials=options.get("n_trials"),
+                        option="allow_long=True (--allow-long-run)")
+
+
 def _search_unit(item: dict) -> dict:
     """One molecule's whole search, serial: a picklable unit of work; errors become data."""
     from .pipeline import search
@@ -591,6 +632,7 @@ def _search_unit(item: dict) -> dict:
     start = time.perf_counter()
     try:
         molecule = _decode(item["molecule"])
+        _check_budget(molecule, item)
         ens = search(molecule, method=item["method"], solvent=item["solvent"], seed=item["seed"],
                      workers=1, store=item["store"], progress=False, **item["options"])
     except Exception as exc:  # one molecule's failure must not stop the batch
@@ -660,6 +702,7 @@ def _run_conformers(entries, settings, executor, workers, store, progress, write
             start = time.perf_counter()
             try:
                 molecule = _decode(_encode(entry["molecule"]))
+                _check_budget(molecule, settings)
                 ens = search(molecule, method=settings["method"], solvent=settings["solvent"],
                              seed=settings["seed"], store=store, progress=progress, **where,
                              **settings["options"])

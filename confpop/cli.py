@@ -85,7 +85,7 @@ def _add_rates(parser: argparse.ArgumentParser) -> None:
     )
     parser.add_argument(
         "--transmission", metavar="KAPPA", type=_finite_float, default=1.0,
-        help="transmission coefficient κ of the Eyring equation (default 1)",
+        help="transmission coefficient κ of the Eyring equation, 0 < κ <= 1 (default 1)",
     )
     parser.add_argument("--json", action="store_true", help="print JSON to stdout instead of a table")
 
@@ -106,6 +106,9 @@ def _run_rates(args: argparse.Namespace) -> int:
         bad = [v for v in values if (v < 0.0 if option == "BARRIER" else v <= 0.0)]
         if bad:
             raise InputError(f"{option} {rule}, got {bad[0]:g}")
+    if args.transmission > 1.0:
+        raise InputError(f"--transmission must be > 0 and <= 1 (the fraction of crossings that "
+                         f"do not recross), got {args.transmission:g}")
     b, t = np.meshgrid(barriers, temps, indexing="ij")  # rows: barriers, columns: temperatures
     k = np.atleast_1d(kinetics.eyring_rate(b, t, unit, args.transmission))
     t_half = np.atleast_1d(kinetics.half_life(b, t, unit, args.transmission))
@@ -183,7 +186,12 @@ def _add_ensemble(parser: argparse.ArgumentParser) -> None:
                         metavar="K", help="temperatures in kelvin (default 298.15)")
     parser.add_argument("--seed", type=int, default=0, help="sampling seed (default 0)")
     parser.add_argument("--trials", type=int, default=None,
-                        help="trial structures per sampling round (default: from flexibility)")
+                        help="trial structures per sampling round (default: from flexibility; "
+                             "more than 10000 needs --allow-long-run)")
+    parser.add_argument("--allow-long-run", action="store_true",
+                        help="run a search whose estimated cost is above 2 CPU hours (the "
+                             "estimate, from atoms, rotatable bonds, trials and method, is "
+                             "printed in the refusal)")
     parser.add_argument("--rounds", type=int, default=_MAX_ROUNDS,
                         help=f"most sampling rounds (default {_MAX_ROUNDS})")
     parser.add_argument("--completeness", type=_finite_float, default=_TARGET_COMPLETENESS,
@@ -223,6 +231,36 @@ def _add_ensemble(parser: argparse.ArgumentParser) -> None:
                              "stay; a taken name gets -2)")
     parser.add_argument("--json", action="store_true", help="print machine-readable JSON only")
     parser.add_argument("--quiet", action="store_true", help="no progress bars")
+
+
+def _cap_workers(workers):
+    """--workers: >= 1, and at most the CPUs this process may use (with a note)."""
+    if workers is None:
+        return None
+    if workers < 1:
+        raise InputError(f"--workers must be >= 1, got {workers}")
+    from .execution import default_workers
+
+    cores = default_workers()
+    if workers > cores:
+        print(f"{_PROG}: note: --workers {workers} is more than the {cores} CPU(s) this "
+              f"process may use; using {cores}", file=sys.stderr)
+        return cores
+    return workers
+
+
+def _check_search_cost(args) -> None:
+    """Refuse, before any work, a search estimated above the bound (confpop.budget)."""
+    from .budget import check_search_budget
+    from .molecule import _load
+
+    if args.method.lower() in ("mmff94", "mmff94s", "uff") and args.trials is None:
+        return  # force-field searches are cheap; the estimate needs only the trials then
+    mol = _load(args.input, charge=args.charge, multiplicity=args.multiplicity,
+                keep_largest_fragment=args.keep_largest_fragment, stereo="ignore",
+                method=None, name=None, warn_open_stereo=False)
+    check_search_budget(mol, method=args.method, n_trials=args.trials,
+                        allow_long=args.allow_long_run, label=repr(args.input))
 
 
 def _population_views(ens, temps, free: bool, dft: bool) -> dict:
@@ -287,6 +325,14 @@ def _run_ensemble(args: argparse.Namespace) -> int:
         raise InputError(f"--completeness must be >= 0 and < 1, got {args.completeness}")
     if args.rounds < 1:
         raise InputError(f"--rounds must be >= 1, got {args.rounds}")
+    if args.trials is not None and args.trials < 1:
+        raise InputError(f"--trials must be >= 1, got {args.trials}")
+    for option, value in (("--energy-window", args.energy_window),
+                          ("--screen-window", args.screen_window)):
+        if value <= 0:
+            raise InputError(f"{option} must be > 0 kcal/mol, got {value:g}")
+    args.workers = _cap_workers(args.workers)
+    _check_search_cost(args)
     progress = not (args.quiet or args.json) and sys.stderr.isatty()
     folder = None
     if args.out:  # created, locked and proved writable before any work
@@ -623,7 +669,11 @@ def _add_batch(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--energy-window", type=_finite_float, default=5.0, metavar="KCAL",
                         help="final energy window in kcal/mol (default 5)")
     parser.add_argument("--workers", type=int, default=None,
-                        help="local worker processes (default: all cores; 1 = serial)")
+                        help="local worker processes (default: all cores, and at most that; "
+                             "1 = serial)")
+    parser.add_argument("--allow-long-run", action="store_true",
+                        help="search molecules whose estimated cost is above 2 CPU hours "
+                             "(default: such a molecule fails with the estimate as reason)")
     parser.add_argument("--scheduler", default=None, metavar="ADDRESS",
                         help="run on a dask.distributed cluster, e.g. tcp://10.0.0.5:8786 "
                              "(start its workers with OMP_NUM_THREADS=1)")
@@ -702,6 +752,7 @@ def _run_batch(args: argparse.Namespace) -> int:
     temps = check_temperatures(args.temperature, "--temperature")
     if args.scheduler is not None and args.workers is not None:
         raise InputError("give either --scheduler or --workers, not both")
+    args.workers = _cap_workers(args.workers)
     molecules = read_batch_input(args.input)
     progress = not args.quiet and (args.progress or (sys.stderr.isatty() and not args.json))
     client = _dask_client(args.scheduler, args.scheduler_timeout) if args.scheduler else None
@@ -711,7 +762,8 @@ def _run_batch(args: argparse.Namespace) -> int:
                              temperatures=temps, executor=client, workers=args.workers,
                              store=args.store, progress=progress, out_dir=args.out,
                              parallel=args.parallel, energy_window=args.energy_window,
-                             into_nonempty_folder=args.into_nonempty_folder)
+                             into_nonempty_folder=args.into_nonempty_folder,
+                             allow_long=args.allow_long_run)
     finally:
         if client is not None:
             client.close()
@@ -733,12 +785,15 @@ def _run_batch(args: argparse.Namespace) -> int:
           f"{result.n_failed} failed; method {args.method.lower()}"
           f"{'  solvent ' + args.solvent if args.solvent else ''}; parallel over "
           f"{result.parallel} on {where}; {seconds:.1f} s")
-    print(_batch_table_text(result.summary, temps))
+    from .batch import _printable
+
+    shown = result.summary.assign(name=result.summary["name"].map(lambda n: _printable(str(n))))
+    print(_batch_table_text(shown, temps))
     if result.n_failed:
         print("failures:")
         for _, row in result.failures.iterrows():
-            message = " ".join(str(row["message"]).split())
-            print(f"  {row['name']}: {row['error_type']}: {message}")
+            message = _printable(" ".join(str(row["message"]).split()))
+            print(f"  {_printable(str(row['name']))}: {row['error_type']}: {message}")
     tables = ", ".join(os.path.basename(p) for p in result.tables.values())
     print(f"wrote {tables} and one folder per molecule to {out}")
     print(_ENSEMBLE_CAUTION)
@@ -817,7 +872,9 @@ def _run_scan(args: argparse.Namespace) -> int:
         raise InputError(f"--delta-nu must be > 0 Hz, got {args.delta_nu:g}")
     if args.plot:
         _check_plot_path(args.plot)
-    workers = args.workers
+    if not 1.0 <= args.step <= 180.0:  # 0.001 deg asked for 360000 optimizations (960 MB)
+        raise InputError(f"--step must be between 1 and 180 degrees, got {args.step:g}")
+    workers = _cap_workers(args.workers)
     if workers is None:
         workers = 2 if default_workers() >= 2 else 1
     if isinstance(workers, bool) or workers < 1:
@@ -1032,6 +1089,7 @@ def _main(argv) -> int:
         return 0
     except (ConfpopError, ValueError, OSError) as err:
         message = " ".join(str(err).split()) or type(err).__name__
+        message = "".join(ch if ch.isprintable() else f"\\x{ord(ch):02x}" for ch in message)
         print(f"{_PROG}: error: {message}", file=sys.stderr)
         return 2
     except KeyboardInterrupt as stop:

@@ -200,7 +200,7 @@ def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int
 
     method = method.lower() if isinstance(method, str) else method
     backend_class(method)  # unknown method or missing engine: fail before any work
-    if energy_window <= 0 or ff_window <= 0 or screen_window <= 0:
+    if not (energy_window > 0 and ff_window > 0 and screen_window > 0):  # NaN too
         raise InputError(f"energy windows must be > 0 kcal/mol, got energy_window={energy_window}, "
                          f"ff_window={ff_window}, screen_window={screen_window}")
     t_start = time.perf_counter()

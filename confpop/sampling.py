@@ -228,6 +228,8 @@ def sample_conformers(mol: Chem.Mol, *, n_trials: int | None = None, seed: int =
         report.trials += n_trials
         report.embedding_failures += failed
         if trial.GetNumConformers() == 0:
+            if not kept_idx:  # every trial failed and nothing was ever embedded: more rounds
+                break         # of the same would only repeat that (C60 took 30 s a round)
             continue
         relaxed, results = minimize_conformers(trial, method=method, threads=threads,
                                                max_iterations=max_iterations)
