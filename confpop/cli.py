@@ -260,7 +260,8 @@ def _check_search_cost(args) -> None:
                 keep_largest_fragment=args.keep_largest_fragment, stereo="ignore",
                 method=None, name=None, warn_open_stereo=False)
     check_search_budget(mol, method=args.method, n_trials=args.trials,
-                        allow_long=args.allow_long_run, label=repr(args.input))
+                        allow_long=args.allow_long_run,
+                        label=repr(args.input if len(args.input) <= 40 else args.input[:37] + "..."))
 
 
 def _population_views(ens, temps, free: bool, dft: bool) -> dict:

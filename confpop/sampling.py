@@ -38,6 +38,10 @@ __all__ = ["SamplingReport", "default_trials", "embed", "round_seed", "sample_co
 log = logging.getLogger(__name__)
 
 
+#: trial structures embedded before the first round; if none embeds, the search stops
+PROBE_TRIALS = 3
+
+
 def flexibility(mol: Chem.Mol) -> dict:
     """Rotatable bonds (strict definition) and ring sizes of ``mol``."""
     ring_sizes = sorted(len(r) for r in mol.GetRingInfo().AtomRings())
@@ -220,6 +224,18 @@ def sample_conformers(mol: Chem.Mol, *, n_trials: int | None = None, seed: int =
     window_h = convert(energy_window, "kcal/mol", "hartree")
     from .prune import is_achiral
     achiral = is_achiral(mol)
+    # A probe of a few trial structures first: a molecule that distance geometry cannot embed
+    # at all (C60: ~25 s per failed trial here) is refused in about a minute, not after a
+    # round of n_trials failures.
+    t0 = time.perf_counter()
+    probe, _ = embed(mol, min(PROBE_TRIALS, n_trials), seed=round_seed(seed, max_rounds),
+                     threads=threads, force_trans_amides=force_trans_amides)
+    if probe.GetNumConformers() == 0:
+        raise InputError(
+            f"no conformer could be embedded: ETKDG failed on all {min(PROBE_TRIALS, n_trials)} "
+            f"probe trial structures, also from random coordinates "
+            f"({time.perf_counter() - t0:.0f} s); the molecule is likely too strained or caged "
+            "for distance geometry, on which this sampling rests")
     for rnd in range(max_rounds):
         t0 = time.perf_counter()
         trial, failed = embed(mol, n_trials, seed=round_seed(seed, rnd), threads=threads,
