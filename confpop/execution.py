@@ -129,6 +129,23 @@ def _limit_loaded_openmp() -> tuple[list[str], list[str]]:
     return paths, failed
 
 
+def _one_line_warnings() -> None:
+    """confpop's own warnings from a worker as one line on stderr, as the command prints them."""
+    import warnings
+
+    from .errors import ConfpopWarning
+
+    default = warnings.showwarning
+
+    def show(message, category, filename, lineno, file=None, line=None):
+        if issubclass(category, ConfpopWarning):
+            print(f"confpop: warning: {' '.join(str(message).split())}", file=sys.stderr)
+        else:
+            default(message, category, filename, lineno, file, line)
+
+    warnings.showwarning = show
+
+
 def _init_worker(started=None, environ=None) -> None:
     """Initializer of local pool workers: one OpenMP thread, before any unit's imports.
 
@@ -140,6 +157,7 @@ def _init_worker(started=None, environ=None) -> None:
             del os.environ[name]
         os.environ.update(environ)
     os.environ["OMP_NUM_THREADS"] = "1"
+    _one_line_warnings()
     global _started
     _started = started
     found, failed = _limit_loaded_openmp()

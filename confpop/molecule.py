@@ -566,7 +566,7 @@ def _read_source(source, charge):
     if isinstance(source, SmilesText):
         text = source.strip()
         if not text:
-            raise InputError("empty SMILES")
+            raise InputError("empty input: expected a SMILES string")
         return _read_smiles(text, label=None, file_hint=False)
     if isinstance(source, Chem.Mol):
         return _read_rdkit_mol(source)

@@ -69,6 +69,8 @@ KEY_LIBRARIES = ("rdkit", "numpy", "scipy", "xtb", "tblite", "geometric", "pyscf
 # numpy dtype kinds a stored array may have: bool, signed/unsigned int, float, complex
 _ARRAY_KINDS = "biufc"
 _TAGS = ("__ndarray__", "__tuple__", "__float__", "__dict__")
+# undecodable values warned about one by one per store object, before one summary note
+_WARN_BAD_VALUES = 3
 
 
 def _package_version() -> str:
@@ -314,6 +316,7 @@ class ResultStore:
         self._connections: list[tuple[int, sqlite3.Connection]] = []
         self._lock = threading.Lock()
         self._closed = False
+        self._bad_values = 0
         self._connection()  # open and check now, so a bad file fails at once
 
     # -- connections -------------------------------------------------------------------------
@@ -506,9 +509,13 @@ class ResultStore:
         try:
             value = decode_value(row[0])
         except ValueError as exc:
-            warnings.warn(f"result store {self.path!r}: the value under key {key[:16]}... is "
-                          f"not confpop data ({str(exc)[:200]}); it is ignored (never executed) "
-                          "and computed again", StoreWarning, stacklevel=2)
+            self._bad_values += 1
+            if self._bad_values <= _WARN_BAD_VALUES:
+                more = ("" if self._bad_values < _WARN_BAD_VALUES else
+                        "; further such values in this store are recomputed without a warning")
+                warnings.warn(f"result store {self.path!r}: the value under key {key[:16]}... "
+                              f"is not confpop data ({str(exc)[:200]}); it is ignored (never "
+                              f"executed) and computed again{more}", StoreWarning, stacklevel=2)
             return None
         try:
             seconds = None if row[2] is None else float(row[2])
