@@ -9,6 +9,7 @@ ensembles, with an energy per record when one is given.
 
 from __future__ import annotations
 
+import io
 import json
 import math
 import os
@@ -60,7 +61,10 @@ def write_sdf(ens: Ensemble, path) -> None:
     meta = {"level": ens.level, "charge": ens.charge, "multiplicity": ens.multiplicity,
             "solvent": ens.solvent, "name": ens.name, "provenance": _jsonable(ens.provenance),
             "columns": {c: str(table[c].dtype) for c in table.columns}}
-    with Chem.SDWriter(str(path)) as writer:
+    # RDKit's writer does not report a failed write (a full disk left a truncated file and
+    # no error): build the text in memory and write it with Python, which does
+    buffer = io.StringIO()
+    with Chem.SDWriter(buffer) as writer:
         for k, cid in enumerate(ens.ids(active=False)):
             rec = Chem.Mol(mol)
             rec.RemoveAllConformers()
@@ -83,6 +87,8 @@ def write_sdf(ens: Ensemble, path) -> None:
             if k == 0:
                 rec.SetProp(_META, json.dumps(meta))
             writer.write(rec)
+    with open(path, "w") as handle:
+        handle.write(buffer.getvalue())
 
 
 def _restore_dtypes(table: pd.DataFrame, dtypes: dict) -> pd.DataFrame:

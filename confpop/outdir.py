@@ -57,6 +57,16 @@ def _describe(exc: OSError) -> str:
     return exc.strerror or str(exc)
 
 
+def _flush_to_disk(path: Path) -> None:
+    """fsync a finished temporary file before it is renamed into place (a late write error
+    shows here, not after the rename)."""
+    fd = os.open(path, os.O_RDONLY)
+    try:
+        os.fsync(fd)
+    finally:
+        os.close(fd)
+
+
 def _temporary_name(final: Path) -> Path:
     """A hidden name beside ``final`` with the same suffix (plot formats follow suffixes)."""
     return final.with_name(f".{final.stem}.partial-{os.getpid()}{final.suffix}")
@@ -72,6 +82,7 @@ def atomic_write(final, write) -> None:
     temporary = _temporary_name(final)
     try:
         write(temporary)
+        _flush_to_disk(temporary)
         os.replace(temporary, final)
     except BaseException as exc:
         try:
@@ -301,9 +312,10 @@ class OutputFolder:
             raise OutputError(f"{str(self.path / relative)!r} was not written by confpop and "
                               "is left alone")
         final = self.path / relative
+        if not self.ours(relative):  # record first: a name in the manifest may not exist yet,
+            self.manifest["files"].append(relative)  # but a file never lacks its record
+            self.save()
         atomic_write(final, write)
-        self.manifest["files"].append(relative)
-        self.save()
         return final
 
     def write_folder(self, relative: str, files: dict) -> Path:
@@ -317,24 +329,27 @@ class OutputFolder:
         if self._taken(relative):
             raise OutputError(f"{str(final)!r} was not written by confpop and is left alone")
         if final.is_dir():
-            for name, write in files.items():
-                target = f"{relative}/{name}"
-                if self._taken(target):
+            for name in files:
+                if self._taken(f"{relative}/{name}"):
                     raise OutputError(f"{str(final / name)!r} was not written by confpop and is "
                                       "left alone")
-                atomic_write(final / name, write)
-                self.manifest["files"].append(target)
+            self.manifest["files"] += [f"{relative}/{name}" for name in files]
             self.save()
+            for name, write in files.items():
+                atomic_write(final / name, write)
             return final
         partial_name = f".{Path(relative).name}.partial-{os.getpid()}"
         partial = final.with_name(partial_name)
-        self.manifest["partial"].append(str(Path(relative).with_name(partial_name)))
+        partial_record = str(Path(relative).with_name(partial_name))
+        self.manifest["partial"].append(partial_record)
+        self.manifest["files"] += [relative + "/"] + [f"{relative}/{n}" for n in files]
         self.save()
         try:
             partial.mkdir()
             for name, write in files.items():
                 try:
                     write(partial / name)
+                    _flush_to_disk(partial / name)
                 except OSError as exc:
                     raise OutputError(f"cannot write {str(final / name)!r}: {_describe(exc)}; "
                                       "nothing was left half-written") from None
@@ -342,10 +357,7 @@ class OutputFolder:
         except BaseException:
             self._remove_partial(partial, files)
             raise
-        finally:
-            self.manifest["partial"] = [p for p in self.manifest["partial"]
-                                        if p != str(Path(relative).with_name(partial_name))]
-        self.manifest["files"] += [relative + "/"] + [f"{relative}/{n}" for n in files]
+        self.manifest["partial"] = [p for p in self.manifest["partial"] if p != partial_record]
         self.save()
         return final
 
