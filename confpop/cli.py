@@ -537,8 +537,6 @@ def _couplings_ensemble(args):
 
 
 def _run_couplings(args: argparse.Namespace) -> int:
-    import pandas as pd
-
     from . import nmr
 
     from .thermo import check_temperatures

@@ -28,7 +28,6 @@ import errno
 import json
 import logging
 import os
-import re
 from pathlib import Path
 
 from .errors import InputError, OutputError
@@ -111,11 +110,6 @@ def check_output_file(path, option: str) -> Path:
     if path.exists() and not os.access(path, os.W_OK):
         raise InputError(f"{option} {str(path)!r} exists and is not writable")
     return path
-
-
-def _safe_stem(name: str) -> str:
-    stem = re.sub(r"[^A-Za-z0-9._+-]+", "_", name).strip("._") or "molecule"
-    return stem[:80]
 
 
 class OutputFolder:
@@ -388,8 +382,3 @@ def _inside(relative: str) -> bool:
     """True for a relative path that stays inside the folder (manifests are input too)."""
     parts = Path(relative).parts
     return bool(parts) and not Path(relative).is_absolute() and ".." not in parts
-
-
-def safe_stem(name: str) -> str:
-    """A file-system-safe folder name for a molecule name."""
-    return _safe_stem(name)
