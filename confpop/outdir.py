@@ -28,6 +28,7 @@ import errno
 import json
 import logging
 import os
+import re
 from pathlib import Path
 
 from .errors import InputError, OutputError
@@ -41,6 +42,8 @@ MANIFEST = ".confpop-manifest.json"
 #: the lock file of a folder in use
 LOCK = ".confpop-lock"
 _LAYOUT = 1
+# the temporary name of _temporary_name: .STEM.partial-PID[.SUFFIX]
+_TEMPORARY = re.compile(r"^\.(.+?)\.partial-(\d+)(\.[^.]+)?$")
 _OURS = (MANIFEST, LOCK)
 
 
@@ -369,13 +372,31 @@ class OutputFolder:
             pass
 
     def _cleanup_partials(self) -> None:
-        """Temporary folders an interrupted run of ours left behind."""
+        """Temporary folders and files a killed run of ours left behind (we hold the lock,
+        so no other run is writing them). A temporary file is removed only when the file it
+        was to become is in the manifest."""
         for relative in self.manifest.get("partial", []):
             partial = self.path / relative
             if partial.is_dir():
                 self._remove_partial(partial, ("ensemble.sdf", "table.csv", "run.json"))
         self.manifest["partial"] = [p for p in self.manifest.get("partial", [])
                                     if (self.path / p).exists()]
+        folders = {""} | {f.rstrip("/") for f in self.manifest["files"] if f.endswith("/")}
+        for folder in folders:
+            try:
+                names = [p.name for p in (self.path / folder).iterdir()]
+            except OSError:
+                continue
+            for name in names:
+                match = _TEMPORARY.match(name)
+                if match is None:
+                    continue
+                final = match.group(1) + (match.group(3) or "")
+                if self.ours(f"{folder}/{final}" if folder else final):
+                    try:
+                        (self.path / folder / name).unlink()
+                    except OSError:
+                        pass
 
 
 def _inside(relative: str) -> bool:

@@ -429,3 +429,15 @@ def test_a_failed_write_names_the_file_and_leaves_no_partial_file(tmp_path, monk
         search_many({"ethanol": "CCO"}, method="mmff94s", workers=1, out_dir=out)
     assert visible(out) == []  # the molecule folder came first and was not kept
     assert not [p for p in out.rglob("*partial*")]
+
+
+def test_temporary_files_of_a_killed_run_are_cleaned_only_when_ours(tmp_path):
+    out = tmp_path / "out"
+    search_many({"ethanol": "CCO"}, method="mmff94s", workers=1, out_dir=out)
+    left = [out / ".summary.partial-99999.csv", out / "ethanol" / ".table.partial-99999.csv"]
+    foreign = [out / ".notes.partial-99999.txt", out / ".summary.partial-1x.csv"]
+    for path in left + foreign:
+        path.write_text("left by a killed run, or a user's file\n")
+    search_many({"ethanol": "CCO"}, method="mmff94s", workers=1, out_dir=out)
+    assert [p.exists() for p in left] == [False, False]
+    assert [p.exists() for p in foreign] == [True, True]
