@@ -30,8 +30,17 @@ Files (``out_dir``)
 One folder per molecule whose search returned an ensemble (``ensemble.sdf``, ``table.csv``,
 ``run.json``, as the ``ensemble`` command writes them) and, at the top, ``summary.csv`` and
 ``failures.csv``. Each molecule's folder is written as soon as that molecule finishes (in a
-hidden ``.NAME.partial`` folder renamed when complete) and the two tables are rewritten
-after every molecule, so an interrupted batch keeps everything that finished.
+hidden temporary folder renamed when complete) and the two tables are rewritten (under a
+temporary name, then renamed) after every molecule, so an interrupted batch keeps
+everything that finished.
+
+The folder is a :class:`confpop.outdir.OutputFolder`: a manifest records what confpop wrote,
+and nothing else is ever replaced or deleted (a molecule whose folder name is taken by
+something else gets ``NAME-2``); a non-empty folder without a manifest is refused unless
+``into_nonempty_folder=True``; a second batch on the same folder stops at once (lock file).
+A batch run again into its folder keeps the rows of molecules finished by the earlier run:
+the tables list this run's molecules in input order (an earlier row stands until this run
+finishes that molecule), then the earlier run's other molecules.
 """
 
 from __future__ import annotations
@@ -41,7 +50,6 @@ import json
 import logging
 import os
 import re
-import shutil
 import time
 from collections.abc import Mapping
 from dataclasses import dataclass, field
@@ -94,6 +102,10 @@ class BatchResult:
     temperatures : tuple of float, K
     parallel : str
         How the batch ran: "molecules" or "conformers" (see the module notes).
+    tables : dict of str to pathlib.Path
+        With ``out_dir``: where the summary and failure tables were written
+        (``{"summary": ..., "failures": ...}``; ``summary-2.csv`` and so on when a file that
+        confpop did not write has the usual name). Empty without ``out_dir``.
     """
 
     summary: pd.DataFrame
@@ -101,6 +113,7 @@ class BatchResult:
     failures: pd.DataFrame = field(repr=False)
     temperatures: tuple = (298.15,)
     parallel: str = "molecules"
+    tables: dict = field(default_factory=dict, repr=False)
 
     @property
     def n_ok(self) -> int:
@@ -195,7 +208,14 @@ def _read_text(path: Path) -> str:
         raise InputError(f"batch file {str(path)!r} is not a text file") from None
 
 
+def _printable(text: str) -> str:
+    """Control characters (terminal escape sequences) shown as \\xNN, never passed on."""
+    return "".join(ch if ch.isprintable() else f"\\x{ord(ch):02x}" for ch in text)
+
+
 def _read_smi(path: Path) -> list[tuple[str, str]]:
+    from .molecule import SmilesText
+
     entries = []
     for number, line in enumerate(_read_text(path).splitlines(), start=1):
         text = line.strip()
@@ -204,8 +224,8 @@ def _read_smi(path: Path) -> list[tuple[str, str]]:
         parts = text.split(None, 1)
         if not entries and parts[0].lower() == "smiles":
             continue  # a header line
-        name = parts[1].strip() if len(parts) > 1 else ""
-        entries.append((name or f"line{number}", parts[0]))
+        name = _printable(parts[1].strip()) if len(parts) > 1 else ""
+        entries.append((name or f"line{number}", SmilesText(parts[0])))
     return entries
 
 
@@ -228,11 +248,13 @@ def _read_table(path: Path, sep: str) -> list[tuple[str, str]]:
                          f"({', '.join(smiles_cols)}); keep one")
     name_col = next((c for key in ("name", "id") for c in columns if c.strip().lower() == key),
                     None)
+    from .molecule import SmilesText
+
     entries = []
     for row, (_, record) in enumerate(frame.iterrows(), start=1):
         smiles = str(record[smiles_cols[0]]).strip()
-        name = str(record[name_col]).strip() if name_col is not None else ""
-        entries.append((name or f"row{row}", smiles))
+        name = _printable(str(record[name_col]).strip()) if name_col is not None else ""
+        entries.append((name or f"row{row}", SmilesText(smiles)))
     return entries
 
 
@@ -254,7 +276,12 @@ def _read_sdf_records(path: Path) -> list[tuple[str, object]]:
                 "and bond lines)")))
             previous = None
             continue
-        title = raw.GetProp("_Name").strip() if raw.HasProp("_Name") else ""
+        title = _printable(raw.GetProp("_Name").strip()) if raw.HasProp("_Name") else ""
+        # the spin state comes from the structure (radicals) or the multiplicity option, as
+        # for the ensemble command: an SD field of that name is not read as one
+        for prop in ("multiplicity", "charge"):
+            if raw.HasProp(prop):
+                raw.ClearProp(prop)
         mol = Chem.Mol(raw)
         key = None
         try:
@@ -288,6 +315,7 @@ def _unique_names(entries) -> dict:
 def search_many(molecules, *, names=None, method: str = "gfn2", solvent: str | None = None,
                 seed: int = 0, temperatures=(298.15,), executor=None, workers: int | None = None,
                 store=None, progress: bool = False, out_dir=None, parallel: str = "auto",
+                into_nonempty_folder: bool = False, allow_long: bool = False,
                 **search_options) -> BatchResult:
     """Search the conformers of many molecules; one bad molecule never stops the others.
 
@@ -319,7 +347,15 @@ def search_many(molecules, *, names=None, method: str = "gfn2", solvent: str | N
         search when the conformers are spread).
     out_dir : str or pathlib.Path, optional
         Write one folder per molecule plus ``summary.csv`` and ``failures.csv`` here, each
-        molecule as soon as it finishes (see the module notes).
+        molecule as soon as it finishes (see the module notes). Checked, created and locked
+        before any work.
+    allow_long : bool
+        Search molecules whose estimated cost (:func:`confpop.budget.estimate_search`) is above
+        :data:`confpop.budget.MAX_CPU_HOURS`. Default False: each such molecule fails, before
+        its search starts, with the estimate as its reason.
+    into_nonempty_folder : bool
+        Allow an ``out_dir`` that holds files confpop did not write (they are never replaced:
+        a name they take gets a free one beside it). Default False: such a folder is refused.
     parallel : {"auto", "molecules", "conformers"}
         Spread whole molecules or each molecule's conformers over the workers (see the
         module notes).
@@ -386,19 +422,30 @@ def search_many(molecules, *, names=None, method: str = "gfn2", solvent: str | N
     if store is not None and not hasattr(store, "get"):
         from .store import ResultStore
         store = opened = ResultStore(store)  # a bad file fails here, before any work
+    if allow_long not in (True, False):
+        raise InputError(f"allow_long must be True or False, got {allow_long!r}")
+    if into_nonempty_folder not in (True, False):
+        raise InputError(f"into_nonempty_folder must be True or False, got {into_nonempty_folder!r}")
     mode = _choose_mode(parallel, len(entries), executor, workers)
-    writer = _Writer(out_dir, entries, temps)
-    settings = {"method": method, "solvent": solvent, "seed": seed, "options": search_options}
+    try:
+        writer = _Writer(out_dir, entries, temps, allow_nonempty=into_nonempty_folder)
+    except BaseException:
+        if opened is not None:
+            opened.close()
+        raise
+    settings = {"method": method, "solvent": solvent, "seed": seed, "options": search_options,
+                "allow_long": allow_long}
     log.info("batch of %d molecules, method %s, parallel over %s", len(entries), method, mode)
     try:
         if mode == "molecules":
             _run_molecules(entries, settings, executor, workers, store, progress, writer)
         else:
             _run_conformers(entries, settings, executor, workers, store, progress, writer)
+        writer.write_tables()
     finally:
+        writer.close()
         if opened is not None:
             opened.close()
-    writer.write_tables()
     return writer.result(mode)
 
 
@@ -559,6 +606,25 @@ def _unpack(packed: dict) -> Ensemble:
                     name=packed["name"])
 
 
+def _check_budget(molecule, settings: dict) -> None:
+    """Refuse (as this molecule's failure) a search estimated above the bound."""
+    if settings.get("allow_long"):
+        return
+    from .budget import check_search_budget
+    from .molecule import _load
+
+    options = settings["options"]
+    try:
+        mol = _load(molecule, charge=options.get("charge"),
+                    multiplicity=options.get("multiplicity"),
+                    keep_largest_fragment=options.get("keep_largest_fragment", False),
+                    stereo="ignore", method=None, name=None, warn_open_stereo=False)
+    except InputError:
+        return  # the search itself reports why the molecule cannot be read
+    check_search_budget(mol, method=settings["method"], n_trials=options.get("n_trials"),
+                        option="allow_long=True (--allow-long-run)")
+
+
 def _search_unit(item: dict) -> dict:
     """One molecule's whole search, serial: a picklable unit of work; errors become data."""
     from .pipeline import search
@@ -566,6 +632,7 @@ def _search_unit(item: dict) -> dict:
     start = time.perf_counter()
     try:
         molecule = _decode(item["molecule"])
+        _check_budget(molecule, item)
         ens = search(molecule, method=item["method"], solvent=item["solvent"], seed=item["seed"],
                      workers=1, store=item["store"], progress=False, **item["options"])
     except Exception as exc:  # one molecule's failure must not stop the batch
@@ -635,6 +702,7 @@ def _run_conformers(entries, settings, executor, workers, store, progress, write
             start = time.perf_counter()
             try:
                 molecule = _decode(_encode(entry["molecule"]))
+                _check_budget(molecule, settings)
                 ens = search(molecule, method=settings["method"], solvent=settings["solvent"],
                              seed=settings["seed"], store=store, progress=progress, **where,
                              **settings["options"])
@@ -698,22 +766,66 @@ def _summary_row(entry: dict, value: dict, temps) -> dict:
 
 
 class _Writer:
-    """Collects each molecule's outcome as it arrives; writes its files at once."""
+    """Collects each molecule's outcome as it arrives; writes its files at once.
 
-    def __init__(self, out_dir, entries, temps):
+    With ``out_dir`` the folder is an :class:`~confpop.outdir.OutputFolder`: opened (created,
+    locked, checked) here, before any work; rows of molecules that an earlier run finished
+    there are kept in the tables until this run finishes the same name.
+    """
+
+    def __init__(self, out_dir, entries, temps, allow_nonempty=False):
         self.entries = entries
         self.temps = temps
         self.rows: dict[int, dict] = {}
         self.ensembles: dict[int, Ensemble] = {}
         self.failures: dict[int, dict] = {}
-        self.out = None
-        if out_dir is not None:
-            if isinstance(out_dir, bytes) or not isinstance(out_dir, (str, os.PathLike)):
-                raise InputError(f"out_dir must be a folder path, got {type(out_dir).__name__}")
-            self.out = Path(out_dir).expanduser()
-            if self.out.exists() and not self.out.is_dir():
-                raise InputError(f"out_dir {str(self.out)!r} exists and is not a folder")
-            self.out.mkdir(parents=True, exist_ok=True)
+        self.folder = None
+        self.earlier_rows: list[dict] = []
+        self.earlier_failures: list[dict] = []
+        self.table_names = {"summary": "summary.csv", "failures": "failures.csv"}
+        if out_dir is None:
+            return
+        from .outdir import OutputFolder
+
+        self.folder = OutputFolder(out_dir, kind="batch", allow_nonempty=allow_nonempty)
+        try:
+            folder = self.folder
+            self.table_names = {kind: folder.claim(name, key=f"table:{kind}")
+                                for kind, name in self.table_names.items()}
+            avoid = {n.lower() for n in self.table_names.values()}
+            for entry in entries:
+                entry["folder"] = folder.claim(entry["folder"], key=f"molecule:{entry['name']}",
+                                               avoid=avoid)
+                avoid.add(entry["folder"].lower())
+            self.earlier_rows = self._earlier(self.table_names["summary"])
+            self.earlier_failures = self._earlier(self.table_names["failures"])
+            folder.save()
+        except BaseException:
+            self.folder.close()
+            raise
+
+    @property
+    def out(self):
+        return None if self.folder is None else self.folder.path
+
+    def close(self) -> None:
+        if self.folder is not None:
+            self.folder.close()
+
+    def _earlier(self, name: str) -> list[dict]:
+        """Rows of a table an earlier run wrote here (empty if none or unreadable)."""
+        if not self.folder.ours(name) or not (self.out / name).is_file():
+            return []
+        try:
+            frame = pd.read_csv(self.out / name, keep_default_na=True)
+        except (OSError, ValueError, pd.errors.ParserError) as exc:
+            log.warning("%s: earlier table %s cannot be read (%s); it is rewritten from this "
+                        "run", self.out, name, exc)
+            return []
+        if "name" not in frame.columns:
+            return []
+        frame["name"] = frame["name"].astype(str)
+        return frame.to_dict(orient="records")
 
     def done(self, k: int) -> bool:
         return k in self.rows
@@ -735,7 +847,7 @@ class _Writer:
             self.failures[k] = {"name": entry["name"], "input": entry["input"],
                                 "error_type": error_type, "message": message}
             log.info("molecule %s failed: %s: %s", entry["name"], error_type, message)
-        if self.out is not None:
+        if self.folder is not None:
             if ens is not None:
                 self._write_molecule(entry, ens)
             self.write_tables()
@@ -743,20 +855,18 @@ class _Writer:
     def _write_molecule(self, entry: dict, ens: Ensemble) -> None:
         from .io import ensemble_json
 
-        final = self.out / entry["folder"]
-        partial = self.out / f".{entry['folder']}.partial"
-        shutil.rmtree(partial, ignore_errors=True)
-        partial.mkdir()
-        ens.to_sdf(partial / "ensemble.sdf")
-        ens.to_csv(partial / "table.csv", self.temps)
         payload = ensemble_json(ens, self.temps, input_text=entry["input"])
         payload["name"] = entry["name"]
-        with open(partial / "run.json", "w") as handle:
-            json.dump(payload, handle, indent=2)
-            handle.write("\n")
-        if final.exists():
-            shutil.rmtree(final)
-        os.replace(partial, final)
+
+        def run_json(path):
+            with open(path, "w") as handle:
+                json.dump(payload, handle, indent=2)
+                handle.write("\n")
+
+        self.folder.write_folder(entry["folder"], {
+            "ensemble.sdf": lambda path: ens.to_sdf(path),
+            "table.csv": lambda path: ens.to_csv(path, self.temps),
+            "run.json": run_json})
 
     def frames(self) -> tuple[pd.DataFrame, pd.DataFrame]:
         order = sorted(self.rows)
@@ -768,17 +878,37 @@ class _Writer:
                                 columns=["name", "input", "error_type", "message"])
         return summary, failures
 
-    def write_tables(self) -> None:
-        if self.out is None:
-            return
+    def merged_frames(self) -> tuple[pd.DataFrame, pd.DataFrame]:
+        """The tables as written: this run's rows, and rows an earlier run wrote here for
+        molecules this run has not (yet) finished, in this run's input order, then the rest."""
         summary, failures = self.frames()
-        for frame, name in ((summary, "summary.csv"), (failures, "failures.csv")):
-            partial = self.out / f".{name}.partial"
-            frame.to_csv(partial, index=False)
-            os.replace(partial, self.out / name)
+        done = {self.entries[k]["name"] for k in self.rows}
+        order = {e["name"]: i for i, e in enumerate(self.entries)}
+
+        def merge(frame, earlier, failed_now):
+            keep = [r for r in earlier if r["name"] not in done]
+            if not keep:
+                return frame
+            rows = frame.to_dict(orient="records") + keep
+            rows.sort(key=lambda r: order.get(r["name"], len(order)))  # stable: rest at the end
+            columns = list(frame.columns) + [c for r in keep for c in r if c not in frame.columns]
+            return pd.DataFrame(rows, columns=list(dict.fromkeys(columns)))
+
+        return (merge(summary, self.earlier_rows, None),
+                merge(failures, self.earlier_failures, None))
+
+    def write_tables(self) -> None:
+        if self.folder is None:
+            return
+        summary, failures = self.merged_frames()
+        for frame, kind in ((summary, "summary"), (failures, "failures")):
+            self.folder.write_file(self.table_names[kind],
+                                   lambda path, frame=frame: frame.to_csv(path, index=False))
 
     def result(self, mode: str) -> BatchResult:
         summary, failures = self.frames()
         ensembles = {self.entries[k]["name"]: self.ensembles[k] for k in sorted(self.ensembles)}
+        tables = {} if self.folder is None else \
+            {kind: self.out / name for kind, name in self.table_names.items()}
         return BatchResult(summary=summary, ensembles=ensembles, failures=failures,
-                           temperatures=self.temps, parallel=mode)
+                           temperatures=self.temps, parallel=mode, tables=tables)

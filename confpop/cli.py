@@ -18,6 +18,7 @@ import argparse
 import json
 import math
 import sys
+import warnings as _warnings
 
 from . import __version__
 from .errors import CalculationFailed, ConfpopError, InputError
@@ -25,6 +26,7 @@ from .errors import CalculationFailed, ConfpopError, InputError
 __all__ = ["main"]
 
 _PROG = "confpop"
+_default_show_warning = _warnings.showwarning
 
 
 class _Parser(argparse.ArgumentParser):
@@ -85,7 +87,7 @@ def _add_rates(parser: argparse.ArgumentParser) -> None:
     )
     parser.add_argument(
         "--transmission", metavar="KAPPA", type=_finite_float, default=1.0,
-        help="transmission coefficient κ of the Eyring equation (default 1)",
+        help="transmission coefficient κ of the Eyring equation, 0 < κ <= 1 (default 1)",
     )
     parser.add_argument("--json", action="store_true", help="print JSON to stdout instead of a table")
 
@@ -106,6 +108,9 @@ def _run_rates(args: argparse.Namespace) -> int:
         bad = [v for v in values if (v < 0.0 if option == "BARRIER" else v <= 0.0)]
         if bad:
             raise InputError(f"{option} {rule}, got {bad[0]:g}")
+    if args.transmission > 1.0:
+        raise InputError(f"--transmission must be > 0 and <= 1 (the fraction of crossings that "
+                         f"do not recross), got {args.transmission:g}")
     b, t = np.meshgrid(barriers, temps, indexing="ij")  # rows: barriers, columns: temperatures
     k = np.atleast_1d(kinetics.eyring_rate(b, t, unit, args.transmission))
     t_half = np.atleast_1d(kinetics.half_life(b, t, unit, args.transmission))
@@ -183,7 +188,12 @@ def _add_ensemble(parser: argparse.ArgumentParser) -> None:
                         metavar="K", help="temperatures in kelvin (default 298.15)")
     parser.add_argument("--seed", type=int, default=0, help="sampling seed (default 0)")
     parser.add_argument("--trials", type=int, default=None,
-                        help="trial structures per sampling round (default: from flexibility)")
+                        help="trial structures per sampling round (default: from flexibility; "
+                             "more than 10000 needs --allow-long-run)")
+    parser.add_argument("--allow-long-run", action="store_true",
+                        help="run a search whose estimated cost is above 2 CPU hours (the "
+                             "estimate, from atoms, rotatable bonds, trials and method, is "
+                             "printed in the refusal)")
     parser.add_argument("--rounds", type=int, default=_MAX_ROUNDS,
                         help=f"most sampling rounds (default {_MAX_ROUNDS})")
     parser.add_argument("--completeness", type=_finite_float, default=_TARGET_COMPLETENESS,
@@ -224,9 +234,44 @@ def _add_ensemble(parser: argparse.ArgumentParser) -> None:
                         help="single points at a higher level (dft: B3LYP-D3(BJ)/def2-SVPD through "
                              "PySCF) and populations from them")
     parser.add_argument("--out", default=None, metavar="DIR",
-                        help="write ensemble.sdf, table.csv and run.json into DIR")
+                        help="write ensemble.sdf, table.csv and run.json into DIR (checked "
+                             "before any work; files confpop did not write are never replaced)")
+    parser.add_argument("--into-nonempty-folder", action="store_true",
+                        help="allow an --out folder holding files confpop did not write (they "
+                             "stay; a taken name gets -2)")
     parser.add_argument("--json", action="store_true", help="print machine-readable JSON only")
     parser.add_argument("--quiet", action="store_true", help="no progress bars")
+
+
+def _cap_workers(workers):
+    """--workers: >= 1, and at most the CPUs this process may use (with a note)."""
+    if workers is None:
+        return None
+    if workers < 1:
+        raise InputError(f"--workers must be >= 1, got {workers}")
+    from .execution import default_workers
+
+    cores = default_workers()
+    if workers > cores:
+        print(f"{_PROG}: note: --workers {workers} is more than the {cores} CPU(s) this "
+              f"process may use; using {cores}", file=sys.stderr)
+        return cores
+    return workers
+
+
+def _check_search_cost(args) -> None:
+    """Refuse, before any work, a search estimated above the bound (confpop.budget)."""
+    from .budget import check_search_budget
+    from .molecule import _load
+
+    if args.method.lower() in ("mmff94", "mmff94s", "uff") and args.trials is None:
+        return  # force-field searches are cheap; the estimate needs only the trials then
+    mol = _load(args.input, charge=args.charge, multiplicity=args.multiplicity,
+                keep_largest_fragment=args.keep_largest_fragment, stereo="ignore",
+                method=None, name=None, warn_open_stereo=False)
+    check_search_budget(mol, method=args.method, n_trials=args.trials,
+                        allow_long=args.allow_long_run,
+                        label=repr(args.input if len(args.input) <= 40 else args.input[:37] + "..."))
 
 
 def _population_views(ens, temps, free: bool, dft: bool) -> dict:
@@ -285,19 +330,49 @@ def _ensemble_table_text(ens, temps, views=None) -> str:
 
 
 def _run_ensemble(args: argparse.Namespace) -> int:
-    import os
-    from pathlib import Path
-
-    from .io import ensemble_json
-    from .pipeline import search
-
     from .thermo import check_temperatures
     temps = check_temperatures(args.temperature, "--temperature")
     if not 0.0 <= args.completeness < 1.0:
         raise InputError(f"--completeness must be >= 0 and < 1, got {args.completeness}")
     if args.rounds < 1:
         raise InputError(f"--rounds must be >= 1, got {args.rounds}")
+    if args.trials is not None and args.trials < 1:
+        raise InputError(f"--trials must be >= 1, got {args.trials}")
+    for option, value in (("--energy-window", args.energy_window),
+                          ("--screen-window", args.screen_window)):
+        if value <= 0:
+            raise InputError(f"{option} must be > 0 kcal/mol, got {value:g}")
+    args.workers = _cap_workers(args.workers)
+    _check_search_cost(args)
     progress = not (args.quiet or args.json) and sys.stderr.isatty()
+    folder = None
+    if args.out:  # created, locked and proved writable before any work
+        from .outdir import OutputFolder
+        folder = OutputFolder(args.out, kind="ensemble", option="--out",
+                              allow_nonempty=args.into_nonempty_folder)
+    try:
+        return _ensemble_work(args, temps, progress, folder)
+    finally:
+        if folder is not None:
+            folder.close()
+
+
+def _ensemble_files(ens, temps, payload) -> dict:
+    """{file name: write(path)} of one ensemble's output files."""
+    def run_json(path):
+        with open(path, "w") as fh:
+            json.dump(payload, fh, indent=2)
+            fh.write("\n")
+    return {"ensemble.sdf": lambda path: ens.to_sdf(path),
+            "table.csv": lambda path: ens.to_csv(path, temps), "run.json": run_json}
+
+
+def _ensemble_work(args, temps, progress, folder) -> int:
+    import os
+
+    from .io import ensemble_json
+    from .pipeline import search
+
     sources = [args.input]
     if args.enumerate_stereo:
         from .molecule import stereoisomers
@@ -330,16 +405,17 @@ def _run_ensemble(args: argparse.Namespace) -> int:
     if args.json and any(len(e) == 0 for e in results):
         raise CalculationFailed("every conformer failed: " + "; ".join(
             sorted(set(results[0].raw_table["reason"]))))
-    if args.out:
-        out = Path(args.out)
+    written = []
+    if folder is not None:
         for k, ens in enumerate(results):
-            folder = out if len(results) == 1 else out / f"stereoisomer_{k + 1}"
-            folder.mkdir(parents=True, exist_ok=True)
-            ens.to_sdf(folder / "ensemble.sdf")
-            ens.to_csv(folder / "table.csv", temps)
-            with open(folder / "run.json", "w") as fh:
-                json.dump(payloads[k], fh, indent=2)
-                fh.write("\n")
+            files = _ensemble_files(ens, temps, payloads[k])
+            if len(results) == 1:
+                for name, write in files.items():
+                    name = folder.claim(name, key=f"file:{name}")
+                    written.append(str(folder.write_file(name, write)))
+            else:
+                name = folder.claim(f"stereoisomer_{k + 1}", key=f"stereoisomer:{k + 1}")
+                written.append(str(folder.write_folder(name, files)))
     if args.json:
         print(json.dumps(payloads[0] if len(payloads) == 1 else payloads, indent=2))
         return 0
@@ -374,8 +450,9 @@ def _run_ensemble(args: argparse.Namespace) -> int:
         stages = [p for p in ens.provenance if p.get("step") not in ("input", "summary")]
         print("stages: " + ", ".join(f"{p['step']} {p['n_in']}->{p['n_out']} ({p['seconds']:.1f} s)"
                                      for p in stages))
-    if args.out:
-        print(f"wrote ensemble.sdf, table.csv and run.json to {os.path.abspath(args.out)}")
+    if written:
+        print(f"wrote {', '.join(os.path.basename(w) for w in written)} to "
+              f"{os.path.abspath(args.out)}")
     print(_ENSEMBLE_CAUTION)
     return 0
 
@@ -408,6 +485,15 @@ def _add_couplings(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--method", default="gfn2", help="method for a SMILES input (default gfn2)")
     parser.add_argument("--solvent", default=None, help="implicit solvent for a SMILES input")
     parser.add_argument("--seed", type=int, default=0, help="seed for sampling, spread and bootstrap")
+    parser.add_argument("--energy-property", default=None, metavar="NAME",
+                        help="for an SDF ensemble from another program: the SD property "
+                             "holding each conformer's energy (needs --energy-unit)")
+    parser.add_argument("--energy-unit", default=None, metavar="UNIT",
+                        help="unit of those energies (or of the numbers on XYZ comment lines): "
+                             "kcal/mol, kJ/mol, hartree, eV or cm-1")
+    parser.add_argument("--uniform-weights", action="store_true",
+                        help="accept an ensemble file without energies and weight its "
+                             "conformers equally (default: refuse)")
     parser.add_argument("--plot", metavar="FILE.png", default=None,
                         help="write a figure: predicted vs observed with --observed, else J vs temperature")
     parser.add_argument("--json", action="store_true", help="print machine-readable JSON only")
@@ -424,24 +510,56 @@ def _plain(value):
     return value
 
 
+def _check_plot_path(path) -> None:
+    """--plot: a writable place and a format matplotlib knows, checked before any work."""
+    import os
+
+    from .outdir import check_output_file
+
+    check_output_file(path, "--plot")
+    suffix = os.path.splitext(str(path))[1].lstrip(".").lower()
+    known = ("png", "pdf", "svg", "svgz", "eps", "ps", "jpg", "jpeg", "tif", "tiff", "webp")
+    if suffix not in known:
+        raise InputError(f"--plot {str(path)!r}: the file name must end in one of "
+                         f"{', '.join('.' + k for k in known)} (the figure format follows it)")
+
+
+def _read_observed(path):
+    import pandas as pd
+
+    try:
+        return pd.read_csv(path)
+    except FileNotFoundError:
+        raise InputError(f"--observed file {str(path)!r} does not exist") from None
+    except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as exc:
+        raise InputError(f"--observed file {str(path)!r} cannot be read as CSV: {exc}") from None
+
+
 def _couplings_ensemble(args):
     from pathlib import Path
 
     if Path(args.input).is_file():
         from .io import read_ensemble
-        return read_ensemble(args.input)
+        return read_ensemble(args.input, energy_property=args.energy_property,
+                             unit=args.energy_unit, uniform_weights=args.uniform_weights)
+    if args.energy_property or args.energy_unit or args.uniform_weights:
+        raise InputError(f"--energy-property, --energy-unit and --uniform-weights apply to an "
+                         f"ensemble file; {args.input!r} is not a file")
     from .pipeline import search
     return search(args.input, method=args.method, solvent=args.solvent, seed=args.seed,
                   progress=False)
 
 
 def _run_couplings(args: argparse.Namespace) -> int:
-    import pandas as pd
-
     from . import nmr
 
     from .thermo import check_temperatures
     temps = check_temperatures(args.temperature, "--temperature")
+    if args.plot:
+        _check_plot_path(args.plot)
+    observed = None
+    if args.observed:  # read before any work: a bad file fails at once
+        observed = _read_observed(args.observed)
     ens = _couplings_ensemble(args)
     table = nmr.average_couplings(ens, temps, parameters=args.parameters, by=args.by)
     id_cols = [c for c in table.columns if not isinstance(c, float)]
@@ -450,8 +568,7 @@ def _run_couplings(args: argparse.Namespace) -> int:
         spread = nmr.coupling_spread(ens, temps, parameters=args.parameters, by=args.by,
                                      energy_sigma=args.energy_sigma, seed=args.seed)
     fit = None
-    if args.observed:
-        observed = pd.read_csv(args.observed)
+    if observed is not None:
         fit = nmr.fit_populations(ens, observed, temperature=temps[0], parameters=args.parameters,
                                   seed=args.seed)
     if args.plot:
@@ -535,8 +652,9 @@ _BATCH_EPILOG = (
     "Exit status: 0 when every molecule succeeded; 1 when some (or all) molecules failed "
     "but the batch ran to the end (the others' files are written; failures.csv and the "
     "printed failure list say why); 2 on an input error that stops the batch before any "
-    "search (unreadable batch file, no SMILES column, unknown method, unusable --store, "
-    "unreachable --scheduler); 130 when interrupted (finished molecules keep their files)."
+    "search (unreadable batch file, no SMILES column, unknown method, unusable --store or "
+    "--out, unreachable --scheduler); 130 when interrupted by Ctrl-C (SIGINT), 143 by SIGTERM, "
+    "129 by SIGHUP: the workers are stopped and finished molecules keep their files."
 )
 
 
@@ -548,7 +666,11 @@ def _add_batch(parser: argparse.ArgumentParser) -> None:
                              ".sdf (one molecule per record, named by its title)")
     parser.add_argument("--out", required=True, metavar="DIR",
                         help="folder for one subfolder per molecule (ensemble.sdf, table.csv, "
-                             "run.json) plus summary.csv and failures.csv")
+                             "run.json) plus summary.csv and failures.csv; checked and locked "
+                             "before any work; a rerun keeps the earlier molecules' rows")
+    parser.add_argument("--into-nonempty-folder", action="store_true",
+                        help="allow an --out folder holding files confpop did not write (they "
+                             "are never replaced; a taken name gets -2)")
     parser.add_argument("--method", default="gfn2",
                         help="final level: gfn2 (default), gfn1, gfnff, tblite-gfn2, mmff94s, mmff94, uff")
     parser.add_argument("--solvent", default=None,
@@ -560,7 +682,11 @@ def _add_batch(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--energy-window", type=_finite_float, default=5.0, metavar="KCAL",
                         help="final energy window in kcal/mol (default 5)")
     parser.add_argument("--workers", type=int, default=None,
-                        help="local worker processes (default: all cores; 1 = serial)")
+                        help="local worker processes (default: all cores, and at most that; "
+                             "1 = serial)")
+    parser.add_argument("--allow-long-run", action="store_true",
+                        help="search molecules whose estimated cost is above 2 CPU hours "
+                             "(default: such a molecule fails with the estimate as reason)")
     parser.add_argument("--scheduler", default=None, metavar="ADDRESS",
                         help="run on a dask.distributed cluster, e.g. tcp://10.0.0.5:8786 "
                              "(start its workers with OMP_NUM_THREADS=1)")
@@ -639,6 +765,7 @@ def _run_batch(args: argparse.Namespace) -> int:
     temps = check_temperatures(args.temperature, "--temperature")
     if args.scheduler is not None and args.workers is not None:
         raise InputError("give either --scheduler or --workers, not both")
+    args.workers = _cap_workers(args.workers)
     molecules = read_batch_input(args.input)
     progress = not args.quiet and (args.progress or (sys.stderr.isatty() and not args.json))
     client = _dask_client(args.scheduler, args.scheduler_timeout) if args.scheduler else None
@@ -647,7 +774,9 @@ def _run_batch(args: argparse.Namespace) -> int:
         result = search_many(molecules, method=args.method, solvent=args.solvent, seed=args.seed,
                              temperatures=temps, executor=client, workers=args.workers,
                              store=args.store, progress=progress, out_dir=args.out,
-                             parallel=args.parallel, energy_window=args.energy_window)
+                             parallel=args.parallel, energy_window=args.energy_window,
+                             into_nonempty_folder=args.into_nonempty_folder,
+                             allow_long=args.allow_long_run)
     finally:
         if client is not None:
             client.close()
@@ -669,13 +798,17 @@ def _run_batch(args: argparse.Namespace) -> int:
           f"{result.n_failed} failed; method {args.method.lower()}"
           f"{'  solvent ' + args.solvent if args.solvent else ''}; parallel over "
           f"{result.parallel} on {where}; {seconds:.1f} s")
-    print(_batch_table_text(result.summary, temps))
+    from .batch import _printable
+
+    shown = result.summary.assign(name=result.summary["name"].map(lambda n: _printable(str(n))))
+    print(_batch_table_text(shown, temps))
     if result.n_failed:
         print("failures:")
         for _, row in result.failures.iterrows():
-            message = " ".join(str(row["message"]).split())
-            print(f"  {row['name']}: {row['error_type']}: {message}")
-    print(f"wrote summary.csv, failures.csv and one folder per molecule to {out}")
+            message = _printable(" ".join(str(row["message"]).split()))
+            print(f"  {_printable(str(row['name']))}: {row['error_type']}: {message}")
+    tables = ", ".join(os.path.basename(p) for p in result.tables.values())
+    print(f"wrote {tables} and one folder per molecule to {out}")
     print(_ENSEMBLE_CAUTION)
     return status
 
@@ -750,7 +883,11 @@ def _run_scan(args: argparse.Namespace) -> int:
         raise InputError(f"--temperature must be > 0 K, got {bad[0]:g}")
     if args.delta_nu <= 0.0:
         raise InputError(f"--delta-nu must be > 0 Hz, got {args.delta_nu:g}")
-    workers = args.workers
+    if args.plot:
+        _check_plot_path(args.plot)
+    if not 1.0 <= args.step <= 180.0:  # 0.001 deg asked for 360000 optimizations (960 MB)
+        raise InputError(f"--step must be between 1 and 180 degrees, got {args.step:g}")
+    workers = _cap_workers(args.workers)
     if workers is None:
         workers = 2 if default_workers() >= 2 else 1
     if isinstance(workers, bool) or workers < 1:
@@ -853,18 +990,73 @@ _COMMANDS: list[tuple] = [
 ]
 
 
+_EXIT_STATUS = (
+    "Exit status: 0 on success; 1 when the calculation ran but gave no result (every "
+    "conformer failed) or on an internal error; 2 on an input error, reported as one line "
+    "before any work where it can be checked first (options, input files, --out, --plot, "
+    "--store); 130 when interrupted by Ctrl-C (SIGINT), 143 by SIGTERM and 129 by SIGHUP: "
+    "worker processes are stopped, the --store keeps every finished calculation and no "
+    "partial output file is left."
+)
+
+
 def _build_parser() -> argparse.ArgumentParser:
     parser = _Parser(
         prog=_PROG,
         description="Conformer ensembles: populations, interconversion rates and NMR observables.",
+        epilog=_EXIT_STATUS,
     )
     parser.add_argument("--version", action="version", version=f"{_PROG} {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
     for name, add_arguments, run, help_text in _COMMANDS:
-        command_parser = sub.add_parser(name, help=help_text, description=help_text)
+        command_parser = sub.add_parser(name, help=help_text, description=help_text,
+                                        epilog=_EXIT_STATUS)
         add_arguments(command_parser)
         command_parser.set_defaults(_run=run)
     return parser
+
+
+class Terminated(KeyboardInterrupt):
+    """SIGTERM or SIGHUP, raised in the main thread so that a run ends as after Ctrl-C."""
+
+    def __init__(self, signum: int):
+        super().__init__(signum)
+        self.signum = signum
+
+
+def _raise_terminated(signum, frame):
+    import signal
+
+    # the clean-up that follows must not be cut short by a second signal
+    for name in ("SIGTERM", "SIGHUP"):
+        if hasattr(signal, name):
+            signal.signal(getattr(signal, name), signal.SIG_IGN)
+    raise Terminated(signum)
+
+
+def _install_signal_handlers() -> dict:
+    """SIGTERM/SIGHUP -> Terminated (main thread only); returns the handlers to restore."""
+    import signal
+    import threading
+
+    if threading.current_thread() is not threading.main_thread():
+        return {}
+    previous = {}
+    for name in ("SIGTERM", "SIGHUP"):
+        number = getattr(signal, name, None)
+        if number is not None:
+            previous[number] = signal.signal(number, _raise_terminated)
+    return previous
+
+
+def _show_warning(message, category, filename, lineno, file=None, line=None):
+    """Our cautions as one line each; other libraries' warnings as usual."""
+    from .errors import ConfpopWarning
+
+    if issubclass(category, ConfpopWarning):
+        print(f"{_PROG}: warning: {' '.join(str(message).split())}", file=sys.stderr)
+    else:
+        _default_show_warning(message, category, filename, lineno, file, line)
 
 
 def main(argv=None) -> int:
@@ -878,8 +1070,23 @@ def main(argv=None) -> int:
     Returns
     -------
     int
-        0 on success, 2 on an input error (reported as one line on stderr).
+        0 on success, 1 when no result came out, 2 on an input error (reported as one line
+        on stderr), 130 after Ctrl-C, 128 + the signal number after SIGTERM or SIGHUP.
     """
+    import signal
+    import warnings
+
+    previous = _install_signal_handlers()
+    try:
+        with warnings.catch_warnings():
+            warnings.showwarning = _show_warning
+            return _main(argv)
+    finally:
+        for number, handler in previous.items():
+            signal.signal(number, handler)
+
+
+def _main(argv) -> int:
     parser = _build_parser()
     try:
         try:
@@ -895,12 +1102,18 @@ def main(argv=None) -> int:
         return 0
     except (ConfpopError, ValueError, OSError) as err:
         message = " ".join(str(err).split()) or type(err).__name__
+        message = "".join(ch if ch.isprintable() else f"\\x{ord(ch):02x}" for ch in message)
         print(f"{_PROG}: error: {message}", file=sys.stderr)
         return 2
-    except KeyboardInterrupt:
-        print(f"{_PROG}: interrupted (finished calculations are kept in the --store file, "
-              "if one was given)", file=sys.stderr)
-        return 130
+    except KeyboardInterrupt as stop:
+        import signal
+
+        signum = getattr(stop, "signum", signal.SIGINT)
+        what = "interrupted" if signum == signal.SIGINT else \
+            f"terminated by {signal.Signals(signum).name}"
+        print(f"{_PROG}: {what} (worker processes stopped; finished calculations are kept in "
+              "the --store file, if one was given)", file=sys.stderr)
+        return 128 + int(signum)
     except Exception as err:  # a bug: one line, the traceback only on request
         import os
         if os.environ.get("CONFPOP_DEBUG"):

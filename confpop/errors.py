@@ -12,6 +12,9 @@ __all__ = [
     "BackendUnavailable",
     "CalculationFailed",
     "StoreError",
+    "OutputError",
+    "ConfpopWarning",
+    "StoreWarning",
 ]
 
 
@@ -33,3 +36,15 @@ class CalculationFailed(ConfpopError, RuntimeError):
 
 class StoreError(ConfpopError, RuntimeError):
     """The result store file is corrupt, foreign, or cannot be written."""
+
+
+class OutputError(ConfpopError, OSError):
+    """An output file or folder cannot be written (full disk, permissions); the message names it."""
+
+
+class ConfpopWarning(UserWarning):
+    """Root of the cautions confpop gives through :mod:`warnings` (filterable, testable)."""
+
+
+class StoreWarning(ConfpopWarning):
+    """A result-store value could not be read as data; that unit is computed again."""

@@ -129,6 +129,23 @@ def _limit_loaded_openmp() -> tuple[list[str], list[str]]:
     return paths, failed
 
 
+def _one_line_warnings() -> None:
+    """confpop's own warnings from a worker as one line on stderr, as the command prints them."""
+    import warnings
+
+    from .errors import ConfpopWarning
+
+    default = warnings.showwarning
+
+    def show(message, category, filename, lineno, file=None, line=None):
+        if issubclass(category, ConfpopWarning):
+            print(f"confpop: warning: {' '.join(str(message).split())}", file=sys.stderr)
+        else:
+            default(message, category, filename, lineno, file, line)
+
+    warnings.showwarning = show
+
+
 def _init_worker(started=None, environ=None) -> None:
     """Initializer of local pool workers: one OpenMP thread, before any unit's imports.
 
@@ -140,6 +157,7 @@ def _init_worker(started=None, environ=None) -> None:
             del os.environ[name]
         os.environ.update(environ)
     os.environ["OMP_NUM_THREADS"] = "1"
+    _one_line_warnings()
     global _started
     _started = started
     found, failed = _limit_loaded_openmp()
@@ -240,8 +258,18 @@ def local_executor(workers: int | None = None) -> ProcessPoolExecutor:
 
 
 def _check_workers(workers) -> int:
+    """An int >= 1, capped at :func:`default_workers` with a warning: more processes than
+    CPUs only add memory (each worker holds ~180 MB once an engine is loaded) and switching."""
     if isinstance(workers, bool) or not isinstance(workers, int) or workers < 1:
         raise InputError(f"workers must be an int >= 1, got {workers!r}")
+    cores = default_workers()
+    if workers > cores:
+        import warnings
+
+        from .errors import ConfpopWarning
+        warnings.warn(f"workers={workers} is more than the {cores} CPU(s) this process may use; "
+                      f"using {cores}", ConfpopWarning, stacklevel=3)
+        return cores
     return workers
 
 
@@ -500,8 +528,10 @@ def run_units(function: Callable[[Any], Any], items: Iterable, *,
         Where to run the units (a ``Client`` is turned into ``client.get_executor()``). It is
         used, not shut down. Default: a local process pool made (and shut down) by this call.
     workers : int, optional
-        Processes of the local pool; default :func:`default_workers`. ``workers=1`` runs
-        every unit in this process, one after the other. Not allowed with ``executor``.
+        Processes of the local pool; default :func:`default_workers`, and never more (a
+        larger number is capped with a :class:`~confpop.errors.ConfpopWarning`).
+        ``workers=1`` runs every unit in this process, one after the other. Not allowed
+        with ``executor``.
     retries : int
         How many times a failed unit is tried again (default 1, so at most two attempts).
     progress : bool
@@ -573,6 +603,7 @@ def run_units(function: Callable[[Any], Any], items: Iterable, *,
     if executor is not None and workers is not None:
         raise InputError("give either executor= or workers= (workers sizes the local pool), "
                          "not both")
+    serial = executor is None and workers == 1  # as asked: a pool capped to 1 stays a pool
     if workers is not None:
         workers = _check_workers(workers)
     if executor is not None and not isinstance(executor, Executor):
@@ -596,7 +627,6 @@ def run_units(function: Callable[[Any], Any], items: Iterable, *,
             raise InputError("store must be a confpop.store.ResultStore, "
                              f"got {type(store).__name__}")
 
-    serial = executor is None and workers == 1
     if not serial and (executor is None or isinstance(executor, ProcessPoolExecutor)):
         try:
             pickle.dumps(function)

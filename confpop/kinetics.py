@@ -76,6 +76,19 @@ def _checked(value, name: str, *, positive: bool = False, nonnegative: bool = Fa
     return arr
 
 
+def _check_transmission(transmission) -> float:
+    """κ of transition-state theory: the fraction of crossings that do not recross, 0 < κ <= 1
+    (a tunnelling factor, which may exceed 1, is a separate correction)."""
+    arr = _checked(transmission, "transmission", positive=True)
+    if arr.ndim != 0:
+        raise InputError(f"transmission must be a single number, got shape {arr.shape}")
+    kappa = float(arr)
+    if kappa > 1.0:
+        raise InputError(f"transmission κ must be > 0 and <= 1 (the fraction of crossings that "
+                         f"do not recross), got {kappa:g}")
+    return kappa
+
+
 def _broadcast(*arrays_and_names):
     arrays = [a for a, _ in arrays_and_names]
     try:
@@ -103,7 +116,7 @@ def eyring_rate(barrier, temperature, unit: str = "kcal/mol", transmission: floa
     unit : str
         "kcal/mol", "kJ/mol", "hartree", "eV" or "cm-1".
     transmission : float
-        Transmission coefficient κ > 0 (default 1; a tunnelling correction may exceed 1).
+        Transmission coefficient 0 < κ <= 1 (default 1).
 
     Returns
     -------
@@ -112,7 +125,7 @@ def eyring_rate(barrier, temperature, unit: str = "kcal/mol", transmission: floa
     Raises
     ------
     InputError
-        Negative or non-finite barrier, temperature <= 0, transmission <= 0.
+        Negative or non-finite barrier, temperature <= 0, transmission outside (0, 1].
 
     Notes
     -----
@@ -130,7 +143,7 @@ def eyring_rate(barrier, temperature, unit: str = "kcal/mol", transmission: floa
     [290543.5244, 0.0522]
     """
     b, t = _barrier_temperature(barrier, temperature, unit)
-    kappa = float(_checked(transmission, "transmission", positive=True))
+    kappa = _check_transmission(transmission)
     b, t = _broadcast((b, "barrier"), (t, "temperature"))
     with np.errstate(under="ignore"):
         k = kappa * BOLTZMANN * t / PLANCK * np.exp(-b / (gas_constant(unit) * t))
@@ -221,7 +234,7 @@ def barrier_for_half_life(half_life_s, temperature, unit: str = "kcal/mol",
     """
     h = _checked(half_life_s, "half_life_s", positive=True, unit_text=" s")
     t = _checked(temperature, "temperature", positive=True, unit_text=" K")
-    kappa = float(_checked(transmission, "transmission", positive=True))
+    kappa = _check_transmission(transmission)
     h, t = _broadcast((h, "half_life_s"), (t, "temperature"))
     k = _LN2 / h
     dg = -gas_constant(unit) * t * np.log(k * PLANCK / (kappa * BOLTZMANN * t))

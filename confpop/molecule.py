@@ -555,7 +555,19 @@ class _Parsed:
     stereo_from_3d: bool = False    # stereo flags already read from the coordinates
 
 
+class SmilesText(str):
+    """A string that is SMILES and never a file path (a line of a batch file): a batch
+    "SMILES" that happens to name a local file must not make confpop read that file."""
+
+    __slots__ = ()
+
+
 def _read_source(source, charge):
+    if isinstance(source, SmilesText):
+        text = source.strip()
+        if not text:
+            raise InputError("empty input: expected a SMILES string")
+        return _read_smiles(text, label=None, file_hint=False)
     if isinstance(source, Chem.Mol):
         return _read_rdkit_mol(source)
     if isinstance(source, os.PathLike):
@@ -577,7 +589,7 @@ def _read_source(source, charge):
     return _read_smiles(text, label=None)
 
 
-def _read_smiles(text, label):
+def _read_smiles(text, label, file_hint=True):
     parts = text.split(None, 1)
     smiles = parts[0]
     given_name = parts[1].strip() if len(parts) > 1 else ""
@@ -585,7 +597,7 @@ def _read_smiles(text, label):
     with rdBase.BlockLogs():
         mol = Chem.MolFromSmiles(smiles)
     if mol is None:
-        _diagnose_smiles(smiles, label, text)
+        _diagnose_smiles(smiles, label, text if file_hint else "")
     if mol.GetNumAtoms() == 0:
         raise InputError(f"{label} holds no atoms")
     return _Parsed(mol=mol, label=label, name=given_name or smiles, source=f"smiles:{smiles}")

@@ -27,8 +27,10 @@ def _figure(ax, size=(5.0, 4.5)):
 
 
 def _save(fig, path):
+    # under a temporary name, renamed when complete: a full disk leaves no partial figure
     if path is not None:
-        fig.savefig(path, dpi=150)
+        from .outdir import atomic_write
+        atomic_write(path, lambda temporary: fig.savefig(temporary, dpi=150))
 
 
 def coupling_parity_plot(fit, path=None, ax=None, show_boltzmann: bool = True):

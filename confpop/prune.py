@@ -68,6 +68,14 @@ class PruneSettings:
     merge_mirror_images: bool = True
     max_automorphisms: int = 5000
 
+    def __post_init__(self):
+        # a NaN or negative threshold would silently switch duplicate removal off
+        for name in ("rmsd", "energy_tolerance"):
+            value = getattr(self, name)
+            if isinstance(value, bool) or not isinstance(value, (int, float, np.floating)) \
+                    or not value > 0 or not np.isfinite(value):
+                raise InputError(f"{name} must be a finite number > 0, got {value!r}")
+
 
 def rmsd_atoms(mol: Chem.Mol) -> np.ndarray:
     """Indices of the atoms compared: heavy atoms and hydrogens on N, O, S, P."""

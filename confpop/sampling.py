@@ -38,6 +38,10 @@ __all__ = ["SamplingReport", "default_trials", "embed", "round_seed", "distinct_
 log = logging.getLogger(__name__)
 
 
+#: trial structures embedded before the first round; if none embeds, the search stops
+PROBE_TRIALS = 3
+
+
 def flexibility(mol: Chem.Mol) -> dict:
     """Rotatable bonds (strict definition) and ring sizes of ``mol``."""
     ring_sizes = sorted(len(r) for r in mol.GetRingInfo().AtomRings())
@@ -277,6 +281,18 @@ def sample_conformers(mol: Chem.Mol, *, n_trials: int | None = None, seed: int =
     window_h = convert(energy_window, "kcal/mol", "hartree")
     from .prune import is_achiral
     achiral = is_achiral(mol)
+    # A probe of a few trial structures first: a molecule that distance geometry cannot embed
+    # at all (C60: ~25 s per failed trial here) is refused in about a minute, not after a
+    # round of n_trials failures.
+    t0 = time.perf_counter()
+    probe, _ = embed(mol, min(PROBE_TRIALS, n_trials), seed=seed, round_index=max_rounds,
+                     threads=threads, force_trans_amides=force_trans_amides)
+    if probe.GetNumConformers() == 0:
+        raise InputError(
+            f"no conformer could be embedded: ETKDG failed on all {min(PROBE_TRIALS, n_trials)} "
+            f"probe trial structures, also from random coordinates "
+            f"({time.perf_counter() - t0:.0f} s); the molecule is likely too strained or caged "
+            "for distance geometry, on which this sampling rests")
     for rnd in range(max_rounds):
         t0 = time.perf_counter()
         trial, failed = embed(mol, n_trials, seed=seed, round_index=rnd, threads=threads,
@@ -285,6 +301,8 @@ def sample_conformers(mol: Chem.Mol, *, n_trials: int | None = None, seed: int =
         report.trials += n_trials
         report.embedding_failures += failed
         if trial.GetNumConformers() == 0:
+            if not kept_idx:  # every trial failed and nothing was ever embedded: more rounds
+                break         # of the same would only repeat that (C60 took 30 s a round)
             continue
         distinct = distinct_structures(trial)
         report.repeated_embeddings += trial.GetNumConformers() - len(distinct)

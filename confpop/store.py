@@ -7,8 +7,13 @@ store and computes only what is missing.
 
 Trust model
 -----------
-Values are stored as pickles, so reading a value can run code chosen by whoever wrote the
-file. Open only stores that you (or your own runs) made, as with any pickle.
+The store holds data, never code. Each value is a JSON text (:func:`encode_value`): numbers,
+strings, None, lists, tuples and dicts as themselves, non-finite floats as tagged strings,
+numpy arrays as their raw bytes (base64) with dtype and shape; only numeric and boolean
+dtypes are accepted. Reading a value parses JSON and copies bytes into a numeric array,
+nothing else: a value that is not such a text (a pickle planted by someone else, garbage, a
+row written by an older confpop) is never executed; it is ignored with a
+:class:`~confpop.errors.StoreWarning` and that unit is computed again.
 
 Concurrency
 -----------
@@ -22,36 +27,50 @@ worker process) pickles only its path.
 
 from __future__ import annotations
 
+import base64
 import datetime as _dt
+import functools
 import hashlib
 import json
 import logging
 import os
-import pickle
 import random
 import sqlite3
+import stat
 import threading
 import time
+import warnings
 from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 
-from .errors import InputError, StoreError
+from .errors import InputError, StoreError, StoreWarning
 
-__all__ = ["ResultStore", "StoredRecord", "content_key", "SCHEMA_VERSION"]
+__all__ = ["ResultStore", "StoredRecord", "content_key", "encode_value", "decode_value",
+           "SCHEMA_VERSION", "VALUE_FORMAT"]
 
 logger = logging.getLogger(__name__)
 
-#: version of the table layout written by this module
-SCHEMA_VERSION = 1
+#: version of the table layout written by this module (1: pickled values; 2: JSON values)
+SCHEMA_VERSION = 2
+#: tag of the value format (:func:`encode_value`)
+VALUE_FORMAT = "confpop-value-1"
 #: SQLite ``PRAGMA application_id`` of a confpop store (the bytes "cpop")
 APPLICATION_ID = int.from_bytes(b"cpop", "big")
 _SQLITE_MAGIC = b"SQLite format 3\x00"
 _META_TABLE = "confpop_meta"
 _RESULTS_TABLE = "results"
 # version tag of the key recipe in content_key; change it whenever the recipe changes
-_KEY_RECIPE = "confpop-content-key-1"
+_KEY_RECIPE = "confpop-content-key-2"
+# distributions whose versions enter every key: the engines and the libraries that shape a
+# result (an upgrade of any of them may change the numbers, so its results are not reused)
+KEY_LIBRARIES = ("rdkit", "numpy", "scipy", "xtb", "tblite", "geometric", "pyscf", "dftd3")
+# numpy dtype kinds a stored array may have: bool, signed/unsigned int, float, complex
+_ARRAY_KINDS = "biufc"
+_TAGS = ("__ndarray__", "__tuple__", "__float__", "__dict__")
+# undecodable values warned about one by one per store object, before one summary note
+_WARN_BAD_VALUES = 3
 
 
 def _package_version() -> str:
@@ -69,6 +88,150 @@ def _is_busy(exc: sqlite3.OperationalError) -> bool:
     return "locked" in text or "busy" in text
 
 
+@functools.lru_cache(maxsize=1)
+def library_versions() -> dict:
+    """Installed versions of :data:`KEY_LIBRARIES` (None for one that is not installed)."""
+    from importlib.metadata import PackageNotFoundError, version
+
+    out = {}
+    for name in KEY_LIBRARIES:
+        try:
+            out[name] = version(name)
+        except PackageNotFoundError:
+            out[name] = None
+    return out
+
+
+def _encode(value, where: str):
+    if value is None or isinstance(value, (bool, str)):
+        return value
+    if isinstance(value, np.generic) and not isinstance(value, np.ndarray):
+        if value.dtype.kind not in "biuf":
+            raise InputError(f"{where}: a numpy {value.dtype} scalar cannot be stored")
+        return _encode(value.item(), where)
+    if isinstance(value, int):
+        return int(value)
+    if isinstance(value, float):
+        if np.isfinite(value):
+            return float(value)
+        return {"__float__": "nan" if np.isnan(value) else ("inf" if value > 0 else "-inf")}
+    if isinstance(value, np.ndarray):
+        if value.dtype.kind not in _ARRAY_KINDS:
+            raise InputError(f"{where}: an array of dtype {value.dtype} cannot be stored "
+                             "(only bool, integer, float and complex arrays)")
+        data = np.ascontiguousarray(value)
+        return {"__ndarray__": base64.b64encode(data.tobytes()).decode("ascii"),
+                "dtype": data.dtype.str, "shape": list(data.shape)}
+    if isinstance(value, tuple):
+        return {"__tuple__": [_encode(v, f"{where}[{i}]") for i, v in enumerate(value)]}
+    if isinstance(value, list):
+        return [_encode(v, f"{where}[{i}]") for i, v in enumerate(value)]
+    if isinstance(value, dict):
+        out = {}
+        for k, v in value.items():
+            if not isinstance(k, str):
+                raise InputError(f"{where}: dict keys must be str to be stored, got {k!r}")
+            out[k] = _encode(v, f"{where}[{k!r}]")
+        return {"__dict__": out} if any(k in _TAGS for k in out) else out
+    raise InputError(f"{where}: a {type(value).__name__} cannot be stored (the store holds "
+                     "numbers, strings, None, lists, tuples, dicts and numeric numpy arrays)")
+
+
+def encode_value(value) -> bytes:
+    """``value`` as the store's self-describing JSON text (UTF-8 bytes).
+
+    Parameters
+    ----------
+    value : None, bool, int, float, str, list, tuple, dict (str keys) or numpy array
+        Nested freely. Arrays must have a bool, integer, float or complex dtype; they are
+        kept as raw bytes (base64) with their dtype (byte order included) and shape, so they
+        come back bit for bit. numpy scalars come back as Python numbers.
+
+    Raises
+    ------
+    InputError
+        For any other type (the message names where in ``value`` it sits).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> decode_value(encode_value({"e": -5.07, "x": np.arange(3.0), "t": (1, None)}))
+    {'e': -5.07, 'x': array([0., 1., 2.]), 't': (1, None)}
+    """
+    document = {"format": VALUE_FORMAT, "data": _encode(value, "value")}
+    return json.dumps(document, separators=(",", ":"), allow_nan=False).encode("utf-8")
+
+
+def _decode(node):
+    if isinstance(node, list):
+        return [_decode(v) for v in node]
+    if not isinstance(node, dict):
+        if isinstance(node, (int, float, str, bool)) or node is None:
+            return node
+        raise ValueError(f"unexpected JSON item {type(node).__name__}")
+    keys = set(node)
+    if "__ndarray__" in keys:
+        if keys != {"__ndarray__", "dtype", "shape"}:
+            raise ValueError("an array entry must have exactly __ndarray__, dtype and shape")
+        dtype = np.dtype(str(node["dtype"]))
+        if dtype.kind not in _ARRAY_KINDS or dtype.hasobject:
+            raise ValueError(f"array dtype {dtype} is not a numeric dtype")
+        shape = node["shape"]
+        if not isinstance(shape, list) or not all(
+                isinstance(n, int) and not isinstance(n, bool) and n >= 0 for n in shape):
+            raise ValueError(f"array shape {shape!r} is not a list of sizes")
+        raw = base64.b64decode(str(node["__ndarray__"]).encode("ascii"), validate=True)
+        if len(raw) != int(np.prod(shape, dtype=np.int64)) * dtype.itemsize:
+            raise ValueError(f"array of {len(raw)} bytes does not match dtype {dtype} and "
+                             f"shape {tuple(shape)}")
+        return np.frombuffer(raw, dtype=dtype).reshape(shape).copy()
+    if "__tuple__" in keys:
+        if keys != {"__tuple__"} or not isinstance(node["__tuple__"], list):
+            raise ValueError("a tuple entry must be {'__tuple__': [...]}")
+        return tuple(_decode(v) for v in node["__tuple__"])
+    if "__float__" in keys:
+        text = node["__float__"]
+        if keys != {"__float__"} or text not in ("nan", "inf", "-inf"):
+            raise ValueError(f"a float entry must be nan, inf or -inf, got {text!r}")
+        return float(text)
+    if "__dict__" in keys:
+        if keys != {"__dict__"} or not isinstance(node["__dict__"], dict):
+            raise ValueError("a dict entry must be {'__dict__': {...}}")
+        node = node["__dict__"]
+    return {k: _decode(v) for k, v in node.items()}
+
+
+def decode_value(blob) -> Any:
+    """The value of :func:`encode_value`'s text; never runs code.
+
+    Raises
+    ------
+    ValueError
+        If ``blob`` is not such a text (a pickle, garbage, another format).
+    """
+    if isinstance(blob, memoryview):
+        blob = blob.tobytes()
+    if isinstance(blob, str):
+        blob = blob.encode("utf-8")
+    if not isinstance(blob, bytes):
+        raise ValueError(f"expected bytes, got {type(blob).__name__}")
+    try:
+        document = json.loads(blob.decode("utf-8"))
+    except (UnicodeDecodeError, json.JSONDecodeError) as exc:
+        raise ValueError(f"not a JSON text ({exc})") from None
+    except RecursionError:
+        raise ValueError("nested too deeply") from None
+    if not isinstance(document, dict) or set(document) != {"format", "data"} \
+            or document["format"] != VALUE_FORMAT:
+        raise ValueError(f"not a {VALUE_FORMAT} document")
+    try:
+        return _decode(document["data"])
+    except RecursionError:
+        raise ValueError("nested too deeply") from None
+    except (TypeError, ValueError, OverflowError, MemoryError) as exc:
+        raise ValueError(str(exc)) from None
+
+
 @dataclass(frozen=True)
 class StoredRecord:
     """One stored result with its bookkeeping.
@@ -78,7 +241,7 @@ class StoredRecord:
     key : str
         The content key.
     value : object
-        The stored Python object.
+        The stored value (see :func:`encode_value` for what a value may hold).
     created : str
         When it was stored, ISO 8601, UTC.
     seconds : float or None
@@ -101,7 +264,8 @@ class ResultStore:
     ----------
     path : str or os.PathLike
         The SQLite file. A missing or empty file becomes a new store; an existing file must be
-        a confpop store.
+        a confpop store (a regular file: a FIFO, device or folder is refused). A relative path
+        is made absolute at once, so worker processes in other folders open the same file.
     timeout : float, seconds
         How long one operation waits for a busy file before it retries (default 30 s); an
         operation gives up with :class:`~confpop.errors.StoreError` after 5 such waits.
@@ -115,8 +279,11 @@ class ResultStore:
 
     Notes
     -----
-    Table ``results``: ``key TEXT PRIMARY KEY, value BLOB (pickle), created TEXT (ISO 8601,
-    UTC), seconds REAL, version TEXT`` (the confpop version that wrote the row). Table
+    Table ``results``: ``key TEXT PRIMARY KEY, value BLOB (UTF-8 JSON text of
+    :func:`encode_value`), created TEXT (ISO 8601, UTC), seconds REAL, version TEXT`` (the
+    confpop version that wrote the row). A value that cannot be decoded (see the module's
+    trust model) counts as missing: :meth:`record` and :meth:`get` warn with
+    :class:`~confpop.errors.StoreWarning` and answer as for a missing key. Table
     ``confpop_meta`` (name, value) holds ``application = confpop`` and ``schema_version``;
     the SQLite header's ``application_id`` is also set, so ``file(1)``-like tools can tell.
 
@@ -139,9 +306,9 @@ class ResultStore:
         if isinstance(path, bytes) or not isinstance(path, (str, os.PathLike)):
             raise InputError("path must be a file path (str or os.PathLike), "
                              f"got {type(path).__name__}")
-        self.path = os.fspath(path)
-        if not self.path:
+        if not os.fspath(path):
             raise InputError("path must be a file path, got an empty string")
+        self.path = os.path.abspath(os.path.expanduser(os.fspath(path)))
         if not (isinstance(timeout, (int, float)) and timeout > 0):
             raise InputError(f"timeout must be a number of seconds > 0, got {timeout!r}")
         self.timeout = float(timeout)
@@ -149,6 +316,7 @@ class ResultStore:
         self._connections: list[tuple[int, sqlite3.Connection]] = []
         self._lock = threading.Lock()
         self._closed = False
+        self._bad_values = 0
         self._connection()  # open and check now, so a bad file fails at once
 
     # -- connections -------------------------------------------------------------------------
@@ -182,6 +350,17 @@ class ResultStore:
     def _check_header(self) -> None:
         # Look at the first bytes before SQLite does: SQLite opens any file lazily and would
         # only fail later, and must not touch (switch to WAL) a file that is not ours.
+        try:
+            mode = os.stat(self.path).st_mode
+        except FileNotFoundError:
+            return
+        except OSError as exc:
+            raise StoreError(f"cannot read result store {self.path!r}: {exc}") from exc
+        if stat.S_ISDIR(mode):
+            raise StoreError(f"result store path {self.path!r} is a directory, not a file")
+        if not stat.S_ISREG(mode):  # opening a FIFO would wait forever for a writer
+            raise StoreError(f"result store path {self.path!r} is not a regular file (a FIFO, "
+                             "socket or device); give the path of a file")
         try:
             with open(self.path, "rb") as handle:
                 head = handle.read(len(_SQLITE_MAGIC))
@@ -251,6 +430,10 @@ class ResultStore:
                               ("schema_version", str(SCHEMA_VERSION)),
                               ("created", _utc_now()),
                               ("created_by_version", _package_version())])
+            # a layout-1 store (pickled values) is taken over: its old rows are never decoded
+            # (their keys use an older recipe, and a pickle is not read), new rows are JSON
+            conn.execute(f"UPDATE {_META_TABLE} SET value = ? WHERE name = 'schema_version' "
+                         "AND CAST(value AS INTEGER) < ?", (str(SCHEMA_VERSION), SCHEMA_VERSION))
             if conn.execute("PRAGMA application_id").fetchone()[0] != APPLICATION_ID:
                 conn.execute(f"PRAGMA application_id = {APPLICATION_ID}")
             conn.execute("COMMIT")
@@ -287,23 +470,23 @@ class ResultStore:
         key : str
             Content key, usually from :func:`content_key`.
         value : object
-            Any picklable object (plain Python objects, numpy arrays, frozen dataclasses).
+            Numbers, strings, None, lists, tuples, dicts with str keys and numeric numpy
+            arrays, nested freely (see :func:`encode_value`).
         seconds : float, optional
             Wall time the calculation took, seconds.
 
         Raises
         ------
         InputError
-            If ``key`` is not a non-empty string or ``value`` cannot be pickled.
+            If ``key`` is not a non-empty string or ``value`` holds another type.
         StoreError
             If the file cannot be written.
         """
         key = self._check_key(key)
         try:
-            blob = pickle.dumps(value, protocol=pickle.HIGHEST_PROTOCOL)
-        except Exception as exc:
-            raise InputError(f"value for key {key!r} cannot be pickled: "
-                             f"{type(exc).__name__}: {exc}") from exc
+            blob = encode_value(value)
+        except InputError as exc:
+            raise InputError(f"value for key {key!r} cannot be stored: {exc}") from None
         row = (key, sqlite3.Binary(blob), _utc_now(),
                None if seconds is None else float(seconds), _package_version())
         self._run("write", lambda conn: conn.execute(
@@ -311,7 +494,12 @@ class ResultStore:
             "VALUES (?, ?, ?, ?, ?)", row))
 
     def record(self, key: str) -> StoredRecord | None:
-        """The stored record for ``key`` with its bookkeeping, or None if there is none."""
+        """The stored record for ``key`` with its bookkeeping, or None if there is none.
+
+        A value that is not confpop data (see the module's trust model) is never executed:
+        it gives a :class:`~confpop.errors.StoreWarning` and None, so the unit is computed
+        again and its row replaced.
+        """
         key = self._check_key(key)
         row = self._run("read", lambda conn: conn.execute(
             f"SELECT value, created, seconds, version FROM {_RESULTS_TABLE} WHERE key = ?",
@@ -319,11 +507,21 @@ class ResultStore:
         if row is None:
             return None
         try:
-            value = pickle.loads(row[0])
-        except Exception as exc:
-            raise StoreError(f"result store {self.path!r}: the value under key {key!r} cannot "
-                             f"be read ({type(exc).__name__}: {exc})") from exc
-        return StoredRecord(key, value, row[1], row[2], row[3])
+            value = decode_value(row[0])
+        except ValueError as exc:
+            self._bad_values += 1
+            if self._bad_values <= _WARN_BAD_VALUES:
+                more = ("" if self._bad_values < _WARN_BAD_VALUES else
+                        "; further such values in this store are recomputed without a warning")
+                warnings.warn(f"result store {self.path!r}: the value under key {key[:16]}... "
+                              f"is not confpop data ({str(exc)[:200]}); it is ignored (never "
+                              f"executed) and computed again{more}", StoreWarning, stacklevel=2)
+            return None
+        try:
+            seconds = None if row[2] is None else float(row[2])
+        except (TypeError, ValueError):
+            seconds = None
+        return StoredRecord(key, value, str(row[1]), seconds, str(row[3]))
 
     def get(self, key: str, default: Any = None) -> Any:
         """The value stored under ``key``, or ``default`` (None) if there is none."""
@@ -444,8 +642,9 @@ def content_key(numbers, positions, *, charge: int, multiplicity: int, method: s
     The hash is over a canonical JSON text (sorted keys, no blanks) of: a recipe tag, the
     atomic numbers, the coordinates as integers ``rint(x * 10**decimals)`` (round half to
     even; -0.0 and 0.0 give the same integer), charge, multiplicity, method, solvent, the
-    settings, the kind, and the confpop version (``confpop.__version__``), so results made
-    by another version are never reused. Coordinate noise well below the rounding step gives
+    settings, the kind, the confpop version (``confpop.__version__``) and the installed
+    versions of the engines and libraries in :data:`KEY_LIBRARIES` (None for one that is
+    missing), so results made by another version of any of them are never reused. Coordinate noise well below the rounding step gives
     the same key, except for a coordinate that lies within the noise of a rounding boundary.
 
     Examples
@@ -508,6 +707,7 @@ def content_key(numbers, positions, *, charge: int, multiplicity: int, method: s
         "settings": _canonical(settings, "settings"),
         "kind": kind.strip().lower(),
         "version": _package_version(),
+        "libraries": library_versions(),
     }
     text = json.dumps(document, sort_keys=True, separators=(",", ":"), ensure_ascii=True,
                       allow_nan=False)

@@ -76,6 +76,13 @@ def _describe_bad(values: np.ndarray, bad: np.ndarray) -> str:
 
 
 def _float_array(value, name: str) -> np.ndarray:
+    # True/False are numbers to numpy (True -> 1.0): a temperature of True is a mistake
+    if isinstance(value, (bool, np.bool_)) or (
+            isinstance(value, (list, tuple)) and any(isinstance(v, (bool, np.bool_))
+                                                     for v in value)) or (
+            isinstance(value, np.ndarray) and value.dtype.kind == "b"):
+        raise InputError(f"{name} must be a number or an array of numbers, got {value!r} "
+                         "(True/False)")
     try:
         arr = np.asarray(value, dtype=float)
     except (TypeError, ValueError):

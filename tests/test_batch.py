@@ -37,6 +37,11 @@ def batch(tmp_path_factory):
     return result, out
 
 
+def visible(folder):
+    """Names in a folder, without confpop's hidden manifest and lock file."""
+    return sorted(p.name for p in folder.iterdir() if not p.name.startswith("."))
+
+
 def comparable(summary):
     """The summary without wall times, rounded far below any physical meaning."""
     return summary.drop(columns=["seconds"]).round(10)
@@ -89,8 +94,10 @@ def test_out_dir_files_round_trip(batch):
     from confpop import read_ensemble
 
     result, out = batch
-    assert sorted(p.name for p in out.iterdir()) == \
+    assert visible(out) == \
         ["butane", "ethanol", "ether", "failures.csv", "summary.csv"]  # none for "broken"
+    assert sorted(p.name for p in out.iterdir() if p.name.startswith(".")) == \
+        [".confpop-lock", ".confpop-manifest.json"]
     for name, ens in result.ensembles.items():
         folder = out / name
         assert sorted(p.name for p in folder.iterdir()) == ["ensemble.sdf", "run.json", "table.csv"]
@@ -163,7 +170,7 @@ def test_an_interrupted_batch_keeps_what_finished(tmp_path):
     with pytest.raises(KeyboardInterrupt):
         search_many({"ethanol": "CCO", "butane": "CCCC", "ether": "COC"},
                     method=InterruptingMMFF94s.name, workers=1, out_dir=out)
-    assert sorted(p.name for p in out.iterdir()) == ["ethanol", "failures.csv", "summary.csv"]
+    assert visible(out) == ["ethanol", "failures.csv", "summary.csv"]
     assert sorted(p.name for p in (out / "ethanol").iterdir()) == \
         ["ensemble.sdf", "run.json", "table.csv"]
     summary = pd.read_csv(out / "summary.csv")
@@ -342,3 +349,95 @@ def test_cli_batch_csv_without_smiles_column(tmp_path, capsys):
     err = capsys.readouterr().err.strip()
     assert "\n" not in err
     assert "no SMILES column" in err and "'structure', 'label'" in err
+
+
+# -- the output folder: never delete or overwrite what confpop did not write ------------------
+def test_a_foreign_nonempty_folder_is_refused_before_any_work(tmp_path):
+    out = tmp_path / "out"
+    (out / "Documents").mkdir(parents=True)
+    (out / "Documents" / "thesis.txt").write_text("a user's file\n")
+    with pytest.raises(InputError, match=r"is not empty \(Documents\) and was not written by "
+                                         r"confpop.*--into-nonempty-folder"):
+        search_many({"Documents": "CCO"}, method="mmff94s", workers=1, out_dir=out)
+    assert visible(out) == ["Documents"] and not (out / ".confpop-manifest.json").exists()
+
+
+def test_a_molecule_never_replaces_a_folder_or_table_confpop_did_not_write(tmp_path):
+    out = tmp_path / "out"
+    (out / "Documents").mkdir(parents=True)
+    (out / "Documents" / "thesis.txt").write_text("a user's file\n")
+    (out / "summary.csv").write_text("the user's own summary\n")
+    result = search_many({"Documents": "CCO", "documents-2": "CC"}, method="mmff94s",
+                         workers=1, out_dir=out, into_nonempty_folder=True)
+    assert (out / "Documents" / "thesis.txt").read_text() == "a user's file\n"
+    assert sorted(p.name for p in (out / "Documents").iterdir()) == ["thesis.txt"]
+    assert (out / "summary.csv").read_text() == "the user's own summary\n"
+    assert result.summary["folder"].tolist() == ["Documents-2", "documents-2-2"]
+    assert (out / "Documents-2" / "ensemble.sdf").is_file()
+    written = pd.read_csv(out / "summary-2.csv")
+    assert written["folder"].tolist() == ["Documents-2", "documents-2-2"]
+
+
+def test_a_rerun_keeps_earlier_rows_and_files_a_user_added(tmp_path):
+    from confpop.backends import available_backends, register_backend
+
+    if InterruptingMMFF94s.name not in available_backends():
+        register_backend(InterruptingMMFF94s.name, InterruptingMMFF94s)
+    out = tmp_path / "out"
+    three = {"ethanol": "CCO", "butane": "CCCC", "ether": "COC"}
+    search_many(three, method="mmff94s", workers=1, out_dir=out)
+    (out / "ethanol" / "notes.txt").write_text("my notes\n")
+    with pytest.raises(KeyboardInterrupt):  # stops at butane, after ethanol is rewritten
+        search_many(three, method=InterruptingMMFF94s.name, workers=1, out_dir=out)
+    summary = pd.read_csv(out / "summary.csv")
+    assert summary["name"].tolist() == ["ethanol", "butane", "ether"]  # not 1 row
+    assert summary["status"].tolist() == ["ok", "ok", "ok"]
+    assert (out / "ethanol" / "notes.txt").read_text() == "my notes\n"
+    # another molecule list: the earlier molecules stay listed beside their folders
+    search_many({"propane": "CCC"}, method="mmff94s", workers=1, out_dir=out)
+    summary = pd.read_csv(out / "summary.csv")
+    assert summary["name"].tolist() == ["propane", "ethanol", "butane", "ether"]
+    assert sorted(summary["folder"]) == [p for p in visible(out) if not p.endswith(".csv")]
+
+
+def test_a_second_run_on_the_same_folder_gets_a_clear_error(tmp_path):
+    from confpop.outdir import OutputFolder
+
+    out = tmp_path / "out"
+    with OutputFolder(out, kind="batch"):  # another run holds the folder
+        with pytest.raises(InputError, match=rf"in use by another confpop run \(process "
+                                             rf"{os.getpid()}\)"):
+            search_many(["CCO"], method="mmff94s", workers=1, out_dir=out)
+    search_many(["CCO"], method="mmff94s", workers=1, out_dir=out)  # free again
+
+
+def test_a_failed_write_names_the_file_and_leaves_no_partial_file(tmp_path, monkeypatch):
+    import errno
+
+    from confpop.ensemble import Ensemble
+    from confpop.errors import OutputError
+
+    def full_disk(self, path):
+        with open(path, "w") as handle:
+            handle.write("half a file")
+        raise OSError(errno.ENOSPC, "No space left on device")
+
+    monkeypatch.setattr(Ensemble, "to_sdf", full_disk)
+    out = tmp_path / "out"
+    with pytest.raises(OutputError, match=r"cannot write '.*ethanol/ensemble.sdf': no space "
+                                          r"left on the device"):
+        search_many({"ethanol": "CCO"}, method="mmff94s", workers=1, out_dir=out)
+    assert visible(out) == []  # the molecule folder came first and was not kept
+    assert not [p for p in out.rglob("*partial*")]
+
+
+def test_temporary_files_of_a_killed_run_are_cleaned_only_when_ours(tmp_path):
+    out = tmp_path / "out"
+    search_many({"ethanol": "CCO"}, method="mmff94s", workers=1, out_dir=out)
+    left = [out / ".summary.partial-99999.csv", out / "ethanol" / ".table.partial-99999.csv"]
+    foreign = [out / ".notes.partial-99999.txt", out / ".summary.partial-1x.csv"]
+    for path in left + foreign:
+        path.write_text("left by a killed run, or a user's file\n")
+    search_many({"ethanol": "CCO"}, method="mmff94s", workers=1, out_dir=out)
+    assert [p.exists() for p in left] == [False, False]
+    assert [p.exists() for p in foreign] == [True, True]

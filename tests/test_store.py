@@ -13,8 +13,9 @@ import numpy as np
 import pytest
 
 import confpop
-from confpop.errors import InputError, StoreError
-from confpop.store import APPLICATION_ID, ResultStore, content_key
+from confpop.errors import InputError, StoreError, StoreWarning
+from confpop.store import (APPLICATION_ID, KEY_LIBRARIES, ResultStore, content_key,
+                           decode_value, encode_value, library_versions)
 
 
 def write_many(path, prefix, n, barrier):
@@ -69,8 +70,10 @@ def test_the_file_is_plain_sqlite_in_wal_mode(tmp_path):
         key, blob, seconds = conn.execute("SELECT key, value, seconds FROM results").fetchone()
     finally:
         conn.close()
-    assert meta["application"] == "confpop" and meta["schema_version"] == "1"
-    assert (key, pickle.loads(blob), seconds) == ("k", 1.5, 2.0)
+    assert meta["application"] == "confpop" and meta["schema_version"] == "2"
+    # the value is a JSON text readable with the json module alone
+    assert json.loads(bytes(blob)) == {"format": "confpop-value-1", "data": 1.5}
+    assert (key, seconds) == ("k", 2.0)
 
 
 def test_pickled_store_reopens_by_path(tmp_path):
@@ -163,8 +166,12 @@ def test_bad_paths_and_keys(tmp_path):
     with ResultStore(tmp_path / "ok.sqlite") as store:
         with pytest.raises(InputError, match="non-empty str, got 7"):
             store.put(7, "value")
-        with pytest.raises(InputError, match="cannot be pickled"):
+        with pytest.raises(InputError, match="cannot be stored.*function"):
             store.put("k", lambda: None)
+        with pytest.raises(InputError, match=r"value\['a'\]: an array of dtype object"):
+            store.put("k", {"a": np.array([None, 1])})
+        with pytest.raises(InputError, match="dict keys must be str"):
+            store.put("k", {1: 2})
 
 
 # -- two writers ------------------------------------------------------------------------------
@@ -237,13 +244,32 @@ def test_key_changes_with_everything_that_changes_the_result(monkeypatch):
     assert key() != reference  # results of another confpop version are not reused
 
 
+def _installed(name):
+    from importlib.metadata import PackageNotFoundError, version
+    try:
+        return version(name)
+    except PackageNotFoundError:
+        return None
+
+
+def test_key_changes_with_an_engine_or_library_version(monkeypatch):
+    reference = key()
+    versions = dict(library_versions())
+    assert versions["rdkit"] and versions["xtb"]  # installed by the default test command
+    for name in ("xtb", "rdkit"):
+        changed = {**versions, name: "0.0.1"}
+        monkeypatch.setattr("confpop.store.library_versions", lambda changed=changed: changed)
+        assert key() != reference, name
+
+
 def test_key_is_the_documented_recipe():
     # independent re-computation of the recipe in content_key's Notes, with hashlib and json
-    document = {"recipe": "confpop-content-key-1", "numbers": WATER_Z,
+    document = {"recipe": "confpop-content-key-2", "numbers": WATER_Z,
                 "positions": [[0, 0, 117176], [0, 757329, -468706], [0, -757329, -468706]],
                 "decimals": 6, "charge": 0, "multiplicity": 1, "method": "gfn2",
                 "solvent": "water", "settings": {"accuracy": 1.0, "max_iterations": 250},
-                "kind": "singlepoint", "version": confpop.__version__}
+                "kind": "singlepoint", "version": confpop.__version__,
+                "libraries": {name: _installed(name) for name in KEY_LIBRARIES}}
     text = json.dumps(document, sort_keys=True, separators=(",", ":"))
     assert key() == hashlib.sha256(text.encode()).hexdigest()
 
@@ -265,3 +291,109 @@ def test_key_is_the_documented_recipe():
 def test_bad_key_input_raises_input_error(changes, message):
     with pytest.raises(InputError, match=message):
         key(**changes)
+
+
+# -- data, never code -------------------------------------------------------------------------
+def test_values_round_trip_bit_for_bit_with_their_types():
+    values = [None, True, 0, -7, 2 ** 70, -45.123456789, float("nan"), float("inf"), "text",
+              [1, [2.5, None]], (1, (2, "x")), {"__tuple__": 1, "b": {"__ndarray__": 0}},
+              np.float64(0.1), np.int32(-3), np.bool_(True),
+              np.arange(12, dtype=">i4").reshape(3, 4), np.array([1 + 2j], dtype=np.complex64),
+              np.zeros((0, 3)), np.array([True, False]), np.float64(1) / 3 * np.ones((2, 2, 2))]
+    for value in values:
+        back = decode_value(encode_value(value))
+        if isinstance(value, np.ndarray):
+            assert back.dtype == value.dtype and back.shape == value.shape
+            np.testing.assert_array_equal(back, value)
+            assert back.flags.writeable
+        elif isinstance(value, float) and value != value:
+            assert back != back
+        else:
+            assert back == value and type(back) is type(value.item() if isinstance(
+                value, np.generic) else value)
+
+
+def _plant(path, blob):
+    conn = sqlite3.connect(path)
+    conn.execute("UPDATE results SET value = ?", (blob,))
+    conn.commit()
+    conn.close()
+
+
+class _Payload:
+    def __reduce__(self):
+        return (os.mkdir, (self.target,))
+
+
+@pytest.mark.parametrize("kind", ["pickle", "garbage", "wrong dtype", "short array",
+                                  "deep nesting", "not utf-8"])
+def test_a_planted_value_is_never_executed_only_recomputed(tmp_path, kind):
+    path = tmp_path / "results.sqlite"
+    with ResultStore(path) as store:
+        store.put("k", {"x": np.arange(3.0)})
+    target = tmp_path / "payload-ran"
+    payload = _Payload()
+    payload.target = str(target)
+    blob = {"pickle": pickle.dumps(payload),
+            "garbage": b"\x00\x01 not a value",
+            "wrong dtype": b'{"format":"confpop-value-1","data":{"__ndarray__":"","dtype":"O",'
+                           b'"shape":[0]}}',
+            "short array": b'{"format":"confpop-value-1","data":{"__ndarray__":"AAAA",'
+                           b'"dtype":"<f8","shape":[3]}}',
+            "deep nesting": b'{"format":"confpop-value-1","data":' + b"[" * 100000 + b"]" * 100000
+                            + b"}",
+            "not utf-8": b"\xff\xfe\x80"}[kind]
+    _plant(path, blob)
+    with ResultStore(path) as store:
+        with pytest.warns(StoreWarning, match="not confpop data.*computed again"):
+            assert store.record("k") is None
+        with pytest.warns(StoreWarning):
+            assert store.get("k", "missing") == "missing"
+        store.put("k", 1.0)  # the recomputed value replaces the row
+        assert store.get("k") == 1.0
+    assert not target.exists()
+
+
+def test_a_planted_pickle_costs_one_recomputation_in_run_units(tmp_path):
+    from confpop.execution import run_units
+    path = tmp_path / "results.sqlite"
+    with ResultStore(path) as store:
+        first = run_units(abs, [-1.0, -2.0], workers=1, store=store, keys=["a", "b"])
+    payload = _Payload()
+    payload.target = str(tmp_path / "payload-ran")
+    conn = sqlite3.connect(path)
+    conn.execute("UPDATE results SET value = ? WHERE key = 'a'", (pickle.dumps(payload),))
+    conn.commit()
+    conn.close()
+    with ResultStore(path) as store, pytest.warns(StoreWarning):
+        second = run_units(abs, [-1.0, -2.0], workers=1, store=store, keys=["a", "b"])
+    assert [o.value for o in first] == [o.value for o in second] == [1.0, 2.0]
+    assert [o.from_store for o in second] == [False, True]
+    assert not (tmp_path / "payload-ran").exists()
+
+
+def test_a_fifo_or_relative_path(tmp_path, monkeypatch):
+    fifo = tmp_path / "pipe"
+    os.mkfifo(fifo)
+    with pytest.raises(StoreError, match="not a regular file"):
+        ResultStore(fifo)  # would wait forever for a writer if opened
+    monkeypatch.chdir(tmp_path)
+    with ResultStore("relative.sqlite") as store:
+        assert store.path == str(tmp_path / "relative.sqlite")  # workers elsewhere find it
+
+
+def test_a_layout_1_store_is_taken_over(tmp_path):
+    path = tmp_path / "old.sqlite"
+    with ResultStore(path) as store:
+        store.put("k", 1)
+    conn = sqlite3.connect(path)
+    conn.execute("UPDATE confpop_meta SET value = '1' WHERE name = 'schema_version'")
+    conn.execute("UPDATE results SET value = ?", (pickle.dumps(1),))
+    conn.commit()
+    conn.close()
+    with ResultStore(path) as store, pytest.warns(StoreWarning):
+        assert store.get("k") is None
+    conn = sqlite3.connect(path)
+    assert conn.execute("SELECT value FROM confpop_meta WHERE name = 'schema_version'"
+                        ).fetchone()[0] == "2"
+    conn.close()

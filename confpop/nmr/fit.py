@@ -168,9 +168,13 @@ def read_observations(observed) -> list[Observation]:
 def _observation(kind, a, b, value, sigma, where) -> Observation:
     try:
         ia, ib = int(a), int(b)
+        # int() would truncate 1.5 to 1; a whole number written as 3.0 (a CSV column) is fine
+        if isinstance(a, (bool, np.bool_)) or isinstance(b, (bool, np.bool_)) \
+                or float(a) != ia or float(b) != ib:
+            raise ValueError
     except (TypeError, ValueError):
-        raise InputError(f"observation {where}: atom_a/atom_b must be atom indices, got "
-                         f"{a!r}, {b!r}") from None
+        raise InputError(f"observation {where}: atom_a/atom_b must be whole-number atom "
+                         f"indices, got {a!r}, {b!r}") from None
     v = _finite(value, f"observation {where} value")
     if kind == "noe" and v <= 0:
         raise InputError(f"observation {where}: an NOE distance must be > 0 angstrom, got {v}")
