@@ -410,6 +410,8 @@ def search_many(molecules, *, names=None, method: str = "gfn2", solvent: str | N
         if key in _RESERVED or key not in allowed:
             raise InputError(f"search_many got an unknown or reserved option {key!r}; the "
                              f"options passed on to search are: {', '.join(sorted(allowed - set(_RESERVED)))}")
+    # the search's population cut follows the temperatures the summary reports
+    search_options = {"temperatures": temps, **search_options}
     if parallel not in _PARALLEL:
         raise InputError(f"parallel must be one of {', '.join(_PARALLEL)}, got {parallel!r}")
     if executor is not None and workers is not None:

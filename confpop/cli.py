@@ -340,8 +340,13 @@ def _run_ensemble(args: argparse.Namespace) -> int:
         raise InputError(f"--trials must be >= 1, got {args.trials}")
     for option, value in (("--energy-window", args.energy_window),
                           ("--screen-window", args.screen_window)):
-        if value <= 0:
+        if value is not None and value <= 0:
             raise InputError(f"{option} must be > 0 kcal/mol, got {value:g}")
+    if args.screen_margin < 0:
+        raise InputError(f"--screen-margin must be >= 0 kcal/mol, got {args.screen_margin:g}")
+    if not 0.0 < args.min_population < 1.0:
+        raise InputError(f"--min-population must lie between 0 and 1 (exclusive), "
+                         f"got {args.min_population:g}")
     args.workers = _cap_workers(args.workers)
     _check_search_cost(args)
     progress = not (args.quiet or args.json) and sys.stderr.isatty()
@@ -679,8 +684,13 @@ def _add_batch(parser: argparse.ArgumentParser) -> None:
                         metavar="K", help="temperatures in kelvin (default 298.15); the "
                                           "effective number of conformers is at the first")
     parser.add_argument("--seed", type=int, default=0, help="sampling seed (default 0)")
-    parser.add_argument("--energy-window", type=_finite_float, default=5.0, metavar="KCAL",
-                        help="final energy window in kcal/mol (default 5)")
+    parser.add_argument("--min-population", type=_finite_float, default=_MIN_POPULATION,
+                        metavar="SHARE",
+                        help="drop a conformer only when its population at the highest "
+                             f"--temperature is below this share (default {_MIN_POPULATION:g})")
+    parser.add_argument("--energy-window", type=_finite_float, default=None, metavar="KCAL",
+                        help="also drop conformers more than this above the lowest, kcal/mol "
+                             "(default: none)")
     parser.add_argument("--workers", type=int, default=None,
                         help="local worker processes (default: all cores, and at most that; "
                              "1 = serial)")
@@ -775,6 +785,7 @@ def _run_batch(args: argparse.Namespace) -> int:
                              temperatures=temps, executor=client, workers=args.workers,
                              store=args.store, progress=progress, out_dir=args.out,
                              parallel=args.parallel, energy_window=args.energy_window,
+                             min_population=args.min_population,
                              into_nonempty_folder=args.into_nonempty_folder,
                              allow_long=args.allow_long_run)
     finally:
