@@ -445,7 +445,11 @@ def _ensemble_work(args, temps, progress, folder) -> int:
                      + ("; p_DFT+G: DFT energy + the free-energy correction" if args.free_energy else "")
                      if args.rescore else ""))
         n_eff = ens.effective_count(temps[0])
-        cut = (f"at or above {100 * args.min_population:g} % at {max(temps):g} K"
+        prune = next((p for p in ens.provenance if p.get("step") == "prune"), {})
+        dropped = (f" ({prune['below_min_population']} rarer ones dropped, "
+                   f"{100 * prune['population_dropped']:.2g} % of the population in all)"
+                   if prune.get("below_min_population") else "")
+        cut = (f"at or above {100 * args.min_population:g} % at {max(temps):g} K{dropped}"
                + (f" and within {args.energy_window:g} kcal/mol" if args.energy_window else ""))
         print(f"{len(ens)} conformers {cut}; sampling "
               f"completeness {100 * summary.get('completeness', float('nan')):.1f} % "
