@@ -75,7 +75,9 @@ class Ensemble:
         if f"energy_{level}" not in table.columns:
             raise InputError(f"ensemble has no energy column for level {level!r}; "
                              f"columns: {list(table.columns)}")
-        self._mol = Chem.Mol(mol)
+        # one atom index = one pro-R/pro-S proton in every conformer (confpop.nmr.identity)
+        from .nmr.identity import consistent_proton_identity
+        self._mol = consistent_proton_identity(mol)
         self._table = table.copy()
         self._table.index.name = "conformer"
         self.level = level

@@ -36,6 +36,7 @@ from rdkit import Chem
 
 from ..errors import InputError
 from . import karplus as kp
+from .identity import consistent_proton_identity, prochiral_labels
 
 __all__ = [
     "ProtonGroup",
@@ -70,6 +71,9 @@ def _mol_and_ids(ens):
     if not any(a.GetAtomicNum() == 1 for a in mol.GetAtoms()):
         raise InputError("the molecule has no explicit hydrogens; build it with Chem.AddHs "
                          "(addCoords=True) before embedding conformers")
+    if isinstance(ens, Chem.Mol):
+        # an Ensemble is put in this order when it is made; a bare molecule here
+        mol = consistent_proton_identity(mol)
     return mol, ids
 
 
@@ -78,9 +82,12 @@ def _positions(mol: Chem.Mol, ids) -> np.ndarray:
     return np.stack([mol.GetConformer(int(i)).GetPositions() for i in ids])
 
 
-def _label(mol: Chem.Mol, h: int) -> str:
+def _label(mol: Chem.Mol, h: int, stereo: dict | None = None) -> str:
+    """"H7(C2)", or "H7(C2,pro-R)" for one of a stereoheterotopic pair (``stereo`` from
+    :func:`confpop.nmr.identity.prochiral_labels`)."""
     heavy = mol.GetAtomWithIdx(h).GetNeighbors()
-    on = f"({heavy[0].GetSymbol()}{heavy[0].GetIdx()})" if heavy else ""
+    tag = f",{stereo[h]}" if stereo and h in stereo else ""
+    on = f"({heavy[0].GetSymbol()}{heavy[0].GetIdx()}{tag})" if heavy else ""
     return f"H{h}{on}"
 
 
@@ -150,7 +157,7 @@ def proton_groups(mol: Chem.Mol, conf_id: int | None = None) -> list[ProtonGroup
     >>> AllChem.EmbedMolecule(mol, randomSeed=7)
     0
     >>> [g.label for g in proton_groups(mol) if g.heavy_atoms[0] == 1]   # diastereotopic CH2
-    ['H8(C1)', 'H9(C1)']
+    ['H8(C1,pro-S)', 'H9(C1,pro-R)']
     """
     if mol.GetNumConformers() == 0:
         raise InputError("proton_groups needs a molecule with a 3D conformer")
@@ -175,19 +182,22 @@ def proton_groups(mol: Chem.Mol, conf_id: int | None = None) -> list[ProtonGroup
             same = [h for h in remaining if plain[h] in keys]
             groups.append([first] + same)
             remaining = [h for h in remaining if h not in same]
+    stereo = prochiral_labels(mol, conf_id)
     out = []
     for g in sorted((sorted(g) for g in groups), key=lambda g: g[0]):
         heavy = tuple(mol.GetAtomWithIdx(h).GetNeighbors()[0].GetIdx()
                       if mol.GetAtomWithIdx(h).GetDegree() else -1 for h in g)
-        out.append(ProtonGroup(tuple(g), heavy, _group_label(mol, g, heavy)))
+        out.append(ProtonGroup(tuple(g), heavy, _group_label(mol, g, heavy, stereo)))
     return out
 
 
-def _group_label(mol, atoms, heavy) -> str:
+def _group_label(mol, atoms, heavy, stereo=None) -> str:
+    if len(atoms) == 1:
+        return _label(mol, atoms[0], stereo)
     if len(set(heavy)) == 1:
         sym = mol.GetAtomWithIdx(heavy[0]).GetSymbol() if heavy[0] >= 0 else ""
         return "/".join(f"H{h}" for h in atoms) + (f"({sym}{heavy[0]})" if sym else "")
-    return "/".join(_label(mol, h) for h in atoms)
+    return "/".join(_label(mol, h, stereo) for h in atoms)
 
 
 def _group_index(groups: list[ProtonGroup]) -> dict[int, int]:
@@ -377,14 +387,16 @@ def vicinal_pairs(mol: Chem.Mol, parameters="auto", include_unsupported: bool = 
     else:
         m, _ = _mol_and_ids(mol)
     overrides, _ = _parse_parameters(parameters)
+    m = consistent_proton_identity(m)
     groups = proton_groups(m)
     gidx = _group_index(groups)
+    stereo = prochiral_labels(m)
     rows = []
     for p in _find_pairs(m, overrides):
         if p.parameter_set is None and not include_unsupported:
             continue
         rows.append({"atom_a": p.h_a, "atom_b": p.h_b,
-                     "label": f"{_label(m, p.h_a)}–{_label(m, p.h_b)}",
+                     "label": f"{_label(m, p.h_a, stereo)}–{_label(m, p.h_b, stereo)}",
                      "group": _group_pair_label(groups, gidx, p.h_a, p.h_b),
                      "parameter_set": p.parameter_set, "fragment": p.kind,
                      "path": (p.h_a, p.x, p.y, p.h_b), "n_substituents": len(p.substituents),
@@ -463,10 +475,11 @@ def couplings(ens, parameters="auto") -> pd.DataFrame:
     """
     mol, ids = _mol_and_ids(ens)
     pairs, jmat, groups, gidx = _coupling_matrix(mol, ids, parameters)
+    stereo = prochiral_labels(mol)
     info = pd.DataFrame({
         "atom_a": [p.h_a for p in pairs],
         "atom_b": [p.h_b for p in pairs],
-        "label": [f"{_label(mol, p.h_a)}–{_label(mol, p.h_b)}" for p in pairs],
+        "label": [f"{_label(mol, p.h_a, stereo)}–{_label(mol, p.h_b, stereo)}" for p in pairs],
         "group": [_group_pair_label(groups, gidx, p.h_a, p.h_b) for p in pairs],
         "parameter_set": [p.parameter_set for p in pairs],
     })
