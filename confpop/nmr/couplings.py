@@ -72,8 +72,9 @@ def _mol_and_ids(ens):
         raise InputError("the molecule has no explicit hydrogens; build it with Chem.AddHs "
                          "(addCoords=True) before embedding conformers")
     if isinstance(ens, Chem.Mol):
-        # an Ensemble is put in this order when it is made; a bare molecule here
-        mol = consistent_proton_identity(mol)
+        # an Ensemble is put in this order when it is made; a bare molecule here, keeping
+        # its first conformer as the user gave it (the indices refer to it)
+        mol = consistent_proton_identity(mol, reference="first")
     return mol, ids
 
 
@@ -387,7 +388,7 @@ def vicinal_pairs(mol: Chem.Mol, parameters="auto", include_unsupported: bool = 
     else:
         m, _ = _mol_and_ids(mol)
     overrides, _ = _parse_parameters(parameters)
-    m = consistent_proton_identity(m)
+    m = consistent_proton_identity(m, reference="first")
     groups = proton_groups(m)
     gidx = _group_index(groups)
     stereo = prochiral_labels(m)

@@ -36,6 +36,8 @@ import numpy as np
 from rdkit import Chem
 from rdkit.Chem import rdCIPLabeler
 
+from ..errors import InputError
+
 __all__ = ["ProchiralPair", "ProtonIdentityWarning", "prochiral_pairs",
            "consistent_proton_identity", "prochiral_labels"]
 
@@ -205,13 +207,22 @@ def prochiral_pairs(mol: Chem.Mol, conf_id: int | None = None) -> list[Prochiral
     return pairs
 
 
-def consistent_proton_identity(mol: Chem.Mol) -> Chem.Mol:
+def consistent_proton_identity(mol: Chem.Mol, reference: str = "cip") -> Chem.Mol:
     """A copy of ``mol`` in which each atom index is the same stereoheterotopic ligand
-    (pro-R or pro-S) in every conformer; the lower index of each pair is pro-R.
+    (pro-R or pro-S) in every conformer.
 
     Coordinates of the two ligands (with their hydrogens, for a methyl) are swapped in the
     conformers that have them the other way round. Nothing else changes: the set of
     positions of every conformer is the same.
+
+    Parameters
+    ----------
+    mol : rdkit.Chem.Mol
+    reference : {"cip", "first"}
+        "cip" (used for every Ensemble): the lower index of each pair is the pro-R ligand, so
+        two ensembles of one molecule (other seeds, other runs) agree atom by atom. "first":
+        the first conformer is kept as it is and the others follow it (for a molecule a user
+        hands over, whose atom indices refer to that first structure).
 
     Returns
     -------
@@ -240,10 +251,13 @@ def consistent_proton_identity(mol: Chem.Mol) -> Chem.Mol:
                       "configured differently from the first conformer (mixed stereoisomers); "
                       "their diastereotopic protons were not given the common pro-R/pro-S "
                       "identity", ProtonIdentityWarning, stacklevel=2)
+    if reference not in ("cip", "first"):
+        raise InputError(f"reference must be 'cip' or 'first', got {reference!r}")
     changed = np.zeros(len(confs), bool)
     for p in pairs:
         s = _triple(pos, p.centre, p.others[0], p.others[1], p.pro_r)
-        swap = (s != p.sign) & (s != 0) & ~mixed
+        target = p.sign if reference == "cip" or s[0] == 0 else s[0]
+        swap = (s != target) & (s != 0) & ~mixed
         if not swap.any():
             continue
         src = [p.pro_r, *p.hydrogens_r, p.pro_s, *p.hydrogens_s]
