@@ -1476,6 +1476,34 @@ def _default_method(ens, method):
     return level if level in available_backends() else "gfn2"
 
 
+def _slow_change(mol, big: pd.DataFrame):
+    """The one row of ``big`` (changed torsions) that turns a slow bond (amide C-N, hindered
+    biaryl axis; :func:`confpop.species.slow_bonds`), or None when there is not exactly one.
+
+    When conformers differ in several torsions and one of them is slow, that one sets the
+    rate: the others relax along a relaxed scan of it and are crossed much faster."""
+    from .species import slow_bonds
+    slow = {frozenset(b.atoms[1:3]) for b in slow_bonds(mol)}
+    rows = [r for r in big.itertuples() if frozenset(r.atoms[1:3]) in slow]
+    return rows[0] if len(rows) == 1 else None
+
+
+def _barrier_caution(mol, atoms, method) -> str:
+    """The amide-barrier method caution (issued as a MethodWarning) when a tight-binding
+    method scanned an amide, thioamide or carbamate C-N bond; "" otherwise."""
+    from .nmr.cautions import amide_barrier_caution, warn_cautions
+    from .species import slow_bonds
+    bond = frozenset(atoms[1:3])
+    kinds = [b.kind for b in slow_bonds(mol) if frozenset(b.atoms[1:3]) == bond]
+    if not kinds and _bond_kind(mol, mol.GetBondBetweenAtoms(*atoms[1:3])) == "amide":
+        kinds = ["amide"]  # symmetric amides (NMe2) are no species split but still amides
+    caution = amide_barrier_caution(method, kinds[0]) if kinds else None
+    if caution is None:
+        return ""
+    warn_cautions([caution], stacklevel=4)
+    return " " + caution.message
+
+
 def _pair_barrier(profile: TorsionProfile, angle_a: float, angle_b: float):
     """Wells of angle_a and angle_b on the profile and the lower of the two paths between them."""
     ext = profile._extrema()
@@ -1582,12 +1610,21 @@ def interconversion(ens, i: int, j: int, method=None, temperatures=(298.15,), *,
                                empty_rates, unit, "the molecule has no rotatable torsion", "")
     big = changes[changes["difference"] > threshold]
     top = changes.iloc[0]
+    relaxing = ""
     if len(big) >= 2:
         listing = ", ".join(f"{r.label} ({r.difference:.0f} deg)" for r in big.itertuples())
-        msg = (f"conformers {i} and {j} differ in {len(big)} torsions by more than "
-               f"{threshold:g} degrees ({listing}): not a single-torsion interconversion")
-        return Interconversion((i, j), False, changes, tuple(top["atoms"]), top["label"], None,
-                               nan, nan, nan, nan, nan, empty_rates, unit, msg, "")
+        slow = _slow_change(ens.mol, big)
+        if slow is None:
+            msg = (f"conformers {i} and {j} differ in {len(big)} torsions by more than "
+                   f"{threshold:g} degrees ({listing}) and not in exactly one slow bond "
+                   "(amide C-N, hindered biaryl axis): not a single-torsion interconversion")
+            return Interconversion((i, j), False, changes, tuple(top["atoms"]), top["label"],
+                                   None, nan, nan, nan, nan, nan, empty_rates, unit, msg, "")
+        # the slow bond sets the rate; the other torsions relax along its relaxed scan
+        top = changes[changes["label"] == slow.label].iloc[0]
+        relaxing = (f"; conformers {i} and {j} also differ in "
+                    + ", ".join(r.label for r in big.itertuples() if r.label != slow.label)
+                    + ", which relax along the scan of the slow bond")
     method = _default_method(ens, method)
     profile = scan_torsion(ens.mol, tuple(top["atoms"]), method=method,
                            solvent=getattr(ens, "solvent", None), step=step, conf_id=i,
@@ -1606,9 +1643,11 @@ def interconversion(ens, i: int, j: int, method=None, temperatures=(298.15,), *,
     else:
         msg = (f"{top['label']}: {i} -> {j} over {pb['barrier_forward']:.2f} {unit} "
                f"(reverse {pb['barrier_reverse']:.2f}) via {pb['via_max']:.0f} deg")
+    msg += relaxing
+    caution = _barrier_caution(ens.mol, tuple(top["atoms"]), method)
     return Interconversion((i, j), True, changes, tuple(top["atoms"]), top["label"], profile,
                            pb["from_min"], pb["to_min"], pb["via_max"], pb["barrier_forward"],
-                           pb["barrier_reverse"], rates, unit, msg, profile.note)
+                           pb["barrier_reverse"], rates, unit, msg, profile.note + caution)
 
 
 def exchange_summary(ens, temperatures, *, delta_nu_hz: float, method=None,
@@ -1649,6 +1688,8 @@ def exchange_summary(ens, temperatures, *, delta_nu_hz: float, method=None,
         rank = {int(c): float(order.loc[c]) for c in order.index}
     except Exception:  # ensembles without energies: keep id order
         rank = {c: float(c) for c in ids}
+    from .species import species_table
+    species = species_table(ens, ids=ids)["species"].to_dict()
     scans: dict = {}
     rows, skipped = [], []
     note = ""
@@ -1656,12 +1697,25 @@ def exchange_summary(ens, temperatures, *, delta_nu_hz: float, method=None,
         for b in ids[a_pos + 1:]:
             changes = torsion_changes(ens, a, b)
             big = changes[changes["difference"] > threshold]
-            if len(big) != 1:
-                if len(big) > 1:
+            via_slow = False
+            if len(big) > 1:
+                slow = _slow_change(ens.mol, big)
+                if slow is None:
                     skipped.append((a, b, list(big["label"])))
+                    continue
+                big = big[big["label"] == slow.label]
+                via_slow = True
+            if len(big) != 1:
                 continue
             first, second = (a, b) if rank.get(a, a) <= rank.get(b, b) else (b, a)
+            a_starts = first == a
             tors = big.iloc[0]
+            if via_slow:
+                # one scan per slow bond and species, from the species' lowest conformer
+                same = [c for c in ids if species[c] == species[first]]
+                first = min(same, key=lambda c: rank.get(c, c))
+                if species[a] != species[b]:
+                    a_starts = species[a] == species[first]
             key = (tuple(tors["atoms"]), first)
             if key not in scans:
                 scans[key] = scan_torsion(ens.mol, tuple(tors["atoms"]), method=method,
@@ -1675,11 +1729,12 @@ def exchange_summary(ens, temperatures, *, delta_nu_hz: float, method=None,
             note = prof.note
             target = dihedral_angle(ens.positions(second), tors["atoms"])
             pb = _pair_barrier(prof, prof.start_angle, target)
-            if pb is not None and first != a:  # report a -> b
+            if pb is not None and not a_starts:  # report a -> b
                 pb = {**pb, "barrier_forward": pb["barrier_reverse"],
                       "barrier_reverse": pb["barrier_forward"]}
             for t in temps:
-                row = {"conformer_a": a, "conformer_b": b, "torsion": tors["label"],
+                row = {"conformer_a": a, "conformer_b": b, "species_a": species[a],
+                       "species_b": species[b], "torsion": tors["label"],
                        "atoms": tuple(tors["atoms"]), "temperature": t}
                 if pb is None or pb["same_well"]:
                     row.update(barrier_ab=float("nan"), barrier_ba=float("nan"),
@@ -1692,11 +1747,18 @@ def exchange_summary(ens, temperatures, *, delta_nu_hz: float, method=None,
                     row.update(barrier_ab=pb["barrier_forward"], barrier_ba=pb["barrier_reverse"],
                                k_ab=kab, k_ba=kba, k_exchange=kab + kba,
                                regime=str(kinetics.exchange_regime(0.5 * (kab + kba), delta_nu_hz)),
-                               note="")
+                               note=(f"slow bond scanned from conformer {first}; the other "
+                                     "changed torsions relax along it" if via_slow else ""))
                 rows.append(row)
-    cols = ["conformer_a", "conformer_b", "torsion", "atoms", "temperature", "barrier_ab",
-            "barrier_ba", "k_ab", "k_ba", "k_exchange", "regime", "note"]
+    cols = ["conformer_a", "conformer_b", "species_a", "species_b", "torsion", "atoms",
+            "temperature", "barrier_ab", "barrier_ba", "k_ab", "k_ba", "k_exchange", "regime",
+            "note"]
     out = pd.DataFrame(rows, columns=cols)
-    out.attrs["note"] = note or BARRIER_NOTE.format(kind="relaxed", method=method, extra="")
+    note = note or BARRIER_NOTE.format(kind="relaxed", method=method, extra="")
+    for atoms in dict.fromkeys(k[0] for k in scans):
+        caution = _barrier_caution(ens.mol, atoms, method)
+        if caution and caution not in note:
+            note += caution
+    out.attrs["note"] = note
     out.attrs["skipped"] = skipped
     return out

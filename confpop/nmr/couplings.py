@@ -41,6 +41,7 @@ from rdkit import Chem
 
 from ..errors import InputError
 from . import karplus as kp
+from .cautions import method_cautions, warn_cautions
 from .identity import consistent_proton_identity, prochiral_labels
 
 __all__ = [
@@ -523,21 +524,35 @@ def _populations(ens, temperatures, energy) -> pd.DataFrame:
 
 
 def _group_rows(table: pd.DataFrame, value_columns) -> pd.DataFrame:
-    """Average the pair rows of each group pair (vicinal pairs between equivalent groups)."""
+    """Average the pair rows of each group pair (vicinal pairs between equivalent groups),
+    within each species when the table has a ``species`` column."""
+    keys = ["species", "group"] if "species" in table.columns else ["group"]
     rows = []
-    for group, sub in table.groupby("group", sort=False):
-        rows.append({"group": group,
+    for key, sub in table.groupby(keys, sort=False):
+        key = key if isinstance(key, tuple) else (key,)
+        rows.append({**dict(zip(keys, key)),
                      "atoms_a": tuple(sorted(set(sub["atom_a"]))),
                      "atoms_b": tuple(sorted(set(sub["atom_b"]))),
                      "n_pairs": len(sub),
                      "parameter_set": ",".join(sorted(set(sub["parameter_set"]))),
                      **{c: float(sub[c].mean()) for c in value_columns}})
     cols = ["group", "atoms_a", "atoms_b", "n_pairs", "parameter_set"] + list(value_columns)
+    if "species" in table.columns:
+        cols.insert(1, "species")
     return pd.DataFrame(rows, columns=cols)
 
 
+def _species(ens, ids) -> pd.Series | None:
+    """Species number per conformer id, or None when there is only one species."""
+    if not hasattr(ens, "ids"):
+        return None
+    from ..species import species_table
+    sp = species_table(ens, ids=ids)["species"]
+    return sp if sp.nunique() > 1 else None
+
+
 def average_couplings(ens, temperatures, parameters="auto", energy: str = "auto",
-                      by: str = "pair") -> pd.DataFrame:
+                      by: str = "pair", species: bool = True) -> pd.DataFrame:
     """Boltzmann-averaged vicinal couplings at each temperature.
 
     Parameters
@@ -552,30 +567,69 @@ def average_couplings(ens, temperatures, parameters="auto", energy: str = "auto"
         the mean over the vicinal pairs between them (a methyl's three protons, or the
         symmetry-related H2/H6 and H3/H5 protons of a ring, give one observed coupling);
         columns ``group``, ``atoms_a``, ``atoms_b`` (tuples), ``n_pairs``, ``parameter_set``.
+    species : bool
+        True (default): average within each species (conformers separated by a slow bond
+        rotation, see :mod:`confpop.species`), one block of rows per species with a
+        ``species`` column; ``attrs["species"]`` gives each species' label and share of the
+        population. False: one average over every conformer, as if all exchange were fast.
 
     Returns
     -------
     pandas.DataFrame
-        The identification columns of :func:`couplings` (or of the group rows) and one
-        float-keyed column per temperature: <J> = sum_i p_i(T) J_i in Hz.
+        The identification columns of :func:`couplings` (or of the group rows), ``species``
+        (always present; 0 when there is one species) and one float-keyed column per
+        temperature: <J> = sum_i p_i(T) J_i / sum_i p_i(T) over the species' conformers, Hz.
+        ``attrs["cautions"]`` lists the method cautions that apply (see below).
+
+    Warns
+    -----
+    confpop.nmr.MethodWarning
+        When a known weakness of the ranking method applies (polyols and sugars in water,
+        the gas-phase fluorine gauche effect; :mod:`confpop.nmr.cautions`).
 
     Notes
     -----
     Averaging J over conformers assumes exchange fast on the NMR time scale (rates well
-    above the spread of J in Hz), true for rotamers and ring flips at room temperature.
+    above the spread of J in Hz), true for rotamers and ring flips at room temperature and
+    not across the slow bonds that separate species.
     """
     if by not in ("pair", "group"):
         raise InputError(f"by must be 'pair' or 'group', got {by!r}")
     mol, ids = _mol_and_ids(ens)
     pops = _populations(ens, temperatures, energy)
     table = couplings(ens, parameters)
-    jmat = table[[int(i) for i in pops.index]].to_numpy(dtype=float)
-    avg = jmat @ pops.to_numpy(dtype=float)
-    out = table[_PAIR_COLUMNS].copy()
-    for k, t in enumerate(pops.columns):
-        out[float(t)] = avg[:, k]
+    conf_ids = [int(i) for i in pops.index]
+    jmat = table[conf_ids].to_numpy(dtype=float)
+    weights = pops.to_numpy(dtype=float)
+    sp = _species(ens, conf_ids) if species else None
+    labels = {0: ""}
+    shares = {0: {float(t): 1.0 for t in pops.columns}}
+    blocks = []
+    members = {0: np.ones(len(conf_ids), bool)} if sp is None else \
+        {int(s): (sp.to_numpy() == s) for s in sorted(sp.unique())}
+    if sp is not None:
+        from ..species import species_table
+        lab = species_table(ens, ids=conf_ids)
+        labels = {int(s): str(lab.loc[lab["species"] == s, "species_label"].iloc[0]) for s in members}
+    for s, mask in members.items():
+        w = weights * mask[:, None]
+        total = w.sum(axis=0)
+        shares[s] = {float(t): float(v) for t, v in zip(pops.columns, total)}
+        avg = jmat @ (w / np.where(total > 0, total, 1.0))
+        block = table[_PAIR_COLUMNS].copy()
+        block["species"] = s
+        for k, t in enumerate(pops.columns):
+            block[float(t)] = avg[:, k]
+        blocks.append(block)
+    out = pd.concat(blocks, ignore_index=True)
+    out.attrs["species"] = {s: {"label": labels.get(s, ""), "share": shares[s]} for s in members}
+    cautions = method_cautions(ens)
+    out.attrs["cautions"] = [c.message for c in cautions]
+    warn_cautions(cautions)
     if by == "group":
-        return _group_rows(out, [float(t) for t in pops.columns])
+        grouped = _group_rows(out, [float(t) for t in pops.columns])
+        grouped.attrs.update(out.attrs)
+        return grouped
     return out
 
 
@@ -586,7 +640,7 @@ def group_couplings(table: pd.DataFrame) -> pd.DataFrame:
     if missing:
         raise InputError(f"table must come from couplings() or average_couplings(); missing "
                          f"columns {missing}")
-    values = [c for c in table.columns if c not in _PAIR_COLUMNS]
+    values = [c for c in table.columns if c not in _PAIR_COLUMNS and c != "species"]
     return _group_rows(table, values)
 
 

@@ -351,7 +351,8 @@ def _distinct_columns(aw, tol=0.1):
 def fit_populations(ens, observed, temperature: float = 298.15, sigma=None, prior=None,
                     prior_weight: float = 1.0, n_bootstrap: int = 200, seed: int = 0,
                     parameters="auto", energy: str = "auto", averaging: str = "r-6",
-                    unit: str = "kcal/mol", max_subset_evaluations: int = 20000) -> PopulationFit:
+                    unit: str = "kcal/mol", max_subset_evaluations: int = 20000,
+                    species: int | None = None) -> PopulationFit:
     """Fit conformer populations to measured couplings (and NOE distances).
 
     Parameters
@@ -382,6 +383,11 @@ def fit_populations(ens, observed, temperature: float = 298.15, sigma=None, prio
         Unit of the implied free energies.
     max_subset_evaluations : int
         Bound on the number of subset fits when looking for ``minimal_subset``.
+    species : int, optional
+        Fit only the conformers of this species (see :mod:`confpop.species`): measured
+        couplings belong to one signal set, and conformers across a slow bond rotation give
+        another. None fits every conformer and, when the ensemble holds several species,
+        says so in ``warning``.
 
     Returns
     -------
@@ -403,6 +409,19 @@ def fit_populations(ens, observed, temperature: float = 298.15, sigma=None, prio
     prior_weight = _finite(prior_weight, "prior_weight")
     if prior_weight < 0:
         raise InputError(f"prior_weight must be >= 0, got {prior_weight}")
+    from ..species import species_table
+    n_species = 1
+    if hasattr(ens, "ids") and hasattr(ens, "select"):
+        table = species_table(ens, ids=ens.ids())
+        n_species = int(table["species"].nunique())
+        if species is not None:
+            keep = [int(i) for i in table.index[table["species"] == int(species)]]
+            if not keep:
+                raise InputError(f"species must be one of {sorted(table['species'].unique())}, "
+                                 f"got {species!r}")
+            ens = ens.select(keep)
+    elif species is not None:
+        raise InputError("species= needs a confpop Ensemble")
     observations = read_observations(observed)
     if not observations:
         raise InputError("observed is empty: give at least one measured coupling or distance")
@@ -452,6 +471,14 @@ def fit_populations(ens, observed, temperature: float = 298.15, sigma=None, prio
     aug = np.vstack([aw[:, reps], np.ones((1, len(reps)))])
     rank = int(np.linalg.matrix_rank(aug, tol=1e-6 * max(1.0, float(np.max(np.abs(aug))))))
     notes = []
+    from .cautions import method_cautions, warn_cautions
+    cautions = method_cautions(ens)
+    warn_cautions(cautions)
+    notes.extend("method caution: " + c.message for c in cautions)
+    if species is None and n_species > 1:
+        notes.append(f"the ensemble holds {n_species} species that exchange slowly on the NMR "
+                     "time scale (separate signal sets); this fit pools them: pass species= "
+                     "to fit the signal set the data belong to")
     if rank < len(reps):
         notes.append(f"underdetermined: {len(reps)} conformers predict distinct observables but "
                      f"the {len(observations)} observations and the sum rule give only {rank} "
