@@ -485,6 +485,8 @@ def _run_couplings(args: argparse.Namespace) -> int:
                                for cid, r in frame.iterrows()],
                 "residuals": [{k: _plain(v) for k, v in r.items()}
                               for _, r in fit.residuals.iterrows()],
+                "families": [{k: _plain(v) for k, v in r.items()}
+                             for _, r in fit.families.iterrows()],
             }
         print(json.dumps(payload, indent=2, ensure_ascii=False, default=str))
         return 0
@@ -526,6 +528,13 @@ def _run_couplings(args: argparse.Namespace) -> int:
         if fit.minimal_subset:
             lines.append(f"smallest conformer set explaining the data within the noise: "
                          f"{list(fit.minimal_subset)} (chi2 {fit.minimal_subset_chi2:.2f})")
+        fixed = fit.families[fit.families["determined"]] if fit.families is not None else []
+        if len(fixed):
+            lines.append("rotamer families the data determine (population ± bootstrap std; "
+                         "g+ 0..120, g- -120..0, t beyond ±120 degrees):")
+            for r in fixed.itertuples():
+                lines.append(f"{r.torsion:>24}  {r.family:<3} {r.population:6.3f} ± "
+                             f"{r.population_std:5.3f}  (Boltzmann {r.boltzmann:.3f})")
         if fit.warning:
             lines.append("warning: " + fit.warning)
     if args.plot:
