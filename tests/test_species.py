@@ -135,6 +135,12 @@ def test_interconversion_across_the_slow_bond(amide):
     assert "relax along the scan" in ic.message
     assert 13.5 <= ic.barrier_forward <= 24.5
     assert ic.barrier_reverse < ic.barrier_forward       # from the lower species
+    # single points at the scan's extrema with the scan's own method change nothing (identity);
+    # the scan-point barrier agrees with the fitted one to the grid's resolution
+    from confpop.torsion import rescore_barrier
+    same = rescore_barrier(ic.profile, method="mmff94s")
+    assert same.correction == pytest.approx(0.0, abs=1e-6)
+    assert same.barrier_scan == pytest.approx(ic.barrier_forward, abs=1.5)
 
 
 def test_no_species_split_without_slow_bonds():
