@@ -26,9 +26,12 @@ for shift differences above about 30 Hz, so these conformers are not averaged. U
 (N-C(=O)-N, barriers of about 10-13 kcal/mol, from memory) and plain single bonds are
 treated as fast.
 
-E/Z isomers of imines, oximes and hydrazones, and configurations at stereocentres, are not
-conformers: the input fixes them (see :func:`confpop.molecule.load_molecule`, ``stereo``),
-so they never share an ensemble.
+E/Z isomers of imines (C=N isomerization 15-27 kcal/mol, lowest for N-aryl imines),
+oximes and hydrazones (> 25), alkenes, and the configurations of stereocentres are
+normally fixed by the input (see :func:`confpop.molecule.load_molecule`, ``stereo``). An
+ensemble read or built with ``stereo="ignore"`` can mix them; conformers that disagree on
+any of them are then split into species too (:func:`configuration_elements`): such
+isomers never average on the NMR time scale (most never interconvert at all).
 
 Method error: where a barrier is computed rather than taken from the class (a relaxed
 GFN2-xTB scan, :func:`confpop.torsion.exchange_summary`), GFN2-xTB puts amide C-N barriers
@@ -48,7 +51,8 @@ from rdkit import Chem
 
 from .errors import InputError
 
-__all__ = ["SlowBond", "slow_bonds", "species_table", "species_populations",
+__all__ = ["SlowBond", "slow_bonds", "configuration_elements", "species_table",
+           "species_populations", "CONFIGURATION_CLASSES",
            "AMIDE_BARRIER_ERROR_KCAL", "SLOW_CLASSES"]
 
 #: GFN2-xTB amide C-N rotation barriers minus experiment, kcal/mol (issue 14 measurement:
@@ -61,7 +65,15 @@ SLOW_CLASSES = {
     "thioamide": (18.0, 25.0),
     "carbamate": (14.0, 17.0),
     "hindered biaryl": (15.0, 30.0),
+    "imine E/Z": (15.0, 27.0),
+    "oxime/hydrazone E/Z": (25.0, float("inf")),
+    "alkene E/Z": (40.0, float("inf")),
+    "stereocentre": (float("inf"), float("inf")),
 }
+
+#: classes that are configurations (set by the input's stereo): they split species only
+#: where the conformers of one ensemble disagree (an input read with stereo="ignore")
+CONFIGURATION_CLASSES = ("imine E/Z", "oxime/hydrazone E/Z", "alkene E/Z", "stereocentre")
 
 
 @dataclass(frozen=True)
@@ -92,7 +104,11 @@ class SlowBond:
         from .nmr.karplus import dihedral
         i, j, k, l = self.atoms
         phi = dihedral(positions[:, i], positions[:, j], positions[:, k], positions[:, l])
-        if self.kind == "hindered biaryl":
+        if self.kind in ("hindered biaryl", "stereocentre"):
+            if self.kind == "stereocentre":  # sign of the triple product of three neighbours
+                c = positions[:, j]
+                phi = np.einsum("...i,...i->...", positions[:, i] - c,
+                                np.cross(positions[:, k] - c, positions[:, l] - c))
             return np.where(phi >= 0.0, "+", "-")
         return np.where(np.abs(phi) < 90.0, "cis", "trans")
 
@@ -101,6 +117,10 @@ class SlowBond:
         sym = [f"{mol.GetAtomWithIdx(a).GetSymbol()}{a}" for a in self.atoms]
         if self.kind == "hindered biaryl":
             return f"{sym[1]}-{sym[2]} axis {state}"
+        if self.kind == "stereocentre":
+            return f"{sym[1]} configuration {state}"
+        if self.kind in CONFIGURATION_CLASSES:
+            return f"{sym[1]}={sym[2]} {sym[0]} {state} to {sym[3]}"
         return f"{sym[1]}-{sym[2]} {sym[0]} {state} to {sym[3]}"
 
 
@@ -191,6 +211,60 @@ def _biaryl_bonds(mol, ranks):
     return out
 
 
+def _double_bonds(mol, ranks):
+    """Stereogenic non-ring double bonds C=C and C=N (E/Z), reference atoms the
+    higher-ranked substituent on each end."""
+    out = []
+    for bond in mol.GetBonds():
+        if bond.GetBondType() != Chem.BondType.DOUBLE or bond.IsInRing():
+            continue
+        a, b = bond.GetBeginAtom(), bond.GetEndAtom()
+        if {a.GetAtomicNum(), b.GetAtomicNum()} not in ({6}, {6, 7}):
+            continue
+        refs = []
+        for atom, other in ((a, b), (b, a)):
+            subs = [n for n in atom.GetNeighbors() if n.GetIdx() != other.GetIdx()]
+            if not subs or (len(subs) == 2 and ranks[subs[0].GetIdx()] == ranks[subs[1].GetIdx()]):
+                refs = []
+                break
+            refs.append(max(subs, key=lambda n: (n.GetAtomicNum() > 1, ranks[n.GetIdx()])).GetIdx())
+        if len(refs) != 2:
+            continue
+        if {a.GetAtomicNum(), b.GetAtomicNum()} == {6}:
+            kind = "alkene E/Z"
+        else:
+            n_atom = a if a.GetAtomicNum() == 7 else b
+            hetero = any(x.GetAtomicNum() in (7, 8) for x in n_atom.GetNeighbors()
+                         if x.GetIdx() not in (a.GetIdx(), b.GetIdx()))
+            kind = "oxime/hydrazone E/Z" if hetero else "imine E/Z"
+        label = f"{a.GetSymbol()}{a.GetIdx()}={b.GetSymbol()}{b.GetIdx()}"
+        out.append(SlowBond(kind, (refs[0], a.GetIdx(), b.GetIdx(), refs[1]), label,
+                            SLOW_CLASSES[kind]))
+    return out
+
+
+def _stereocentres(mol):
+    """Tetrahedral stereocentres (assigned or not): their configuration is fixed."""
+    out = []
+    for idx, _ in Chem.FindMolChiralCenters(mol, includeUnassigned=True,
+                                             useLegacyImplementation=False):
+        nbrs = [n.GetIdx() for n in mol.GetAtomWithIdx(idx).GetNeighbors()]
+        if len(nbrs) < 3:
+            continue
+        label = f"{mol.GetAtomWithIdx(idx).GetSymbol()}{idx}"
+        out.append(SlowBond("stereocentre", (nbrs[0], idx, nbrs[1], nbrs[2]), label,
+                            SLOW_CLASSES["stereocentre"]))
+    return out
+
+
+def configuration_elements(mol: Chem.Mol) -> list[SlowBond]:
+    """Stereogenic double bonds (C=C, C=N) and stereocentres: configurations that do not
+    interconvert (or only over barriers of 15-27 kcal/mol for imines) and split species
+    where conformers of one ensemble disagree on them."""
+    ranks = list(Chem.CanonicalRankAtoms(mol, breakTies=False, includeChirality=False))
+    return _double_bonds(mol, ranks) + _stereocentres(mol)
+
+
 def slow_bonds(mol: Chem.Mol) -> list[SlowBond]:
     """The bonds of ``mol`` whose rotation is slow on the NMR time scale (see module notes).
 
@@ -234,10 +308,17 @@ def species_table(ens, ids=None) -> pd.DataFrame:
     ids = all_ids if ids is None else [int(i) for i in ids]
     index = pd.Index(ids, name="conformer")
     bonds = slow_bonds(mol)
-    if not bonds or not ids:
+    configs = configuration_elements(mol) if ids else []
+    if not (bonds or configs) or not ids:
         return pd.DataFrame({"species": np.zeros(len(ids), dtype=int), "species_label": ""},
                             index=index)
     pos = np.stack([np.asarray(mol.GetConformer(int(i)).GetPositions()) for i in ids])
+    # configurations count only where the conformers disagree (mixed stereoisomers)
+    varying = [b for b in configs if len(set(b.state(pos))) > 1]
+    bonds = bonds + varying
+    if not bonds:
+        return pd.DataFrame({"species": np.zeros(len(ids), dtype=int), "species_label": ""},
+                            index=index)
     states = np.stack([b.state(pos) for b in bonds], axis=1)  # (n_conf, n_bonds)
     labels = ["; ".join(b.describe(s, mol) for b, s in zip(bonds, row)) for row in states]
     order = list(range(len(ids)))

@@ -201,3 +201,24 @@ def test_couplings_command_shows_species_and_cautions(amide, tmp_path, capsys):
     assert main(["couplings", str(gsdf)]) == 0
     out = capsys.readouterr().out
     assert "method caution: GFN2-xTB with implicit water" in out
+
+
+def test_mixed_configurations_split_into_species():
+    # an ensemble embedded without stereo (as stereo="ignore" allows) mixes E/Z imines and
+    # both configurations of a stereocentre: isomers that never average on the NMR time scale
+    # (imine C=N isomerization 15-27 kcal/mol, from memory; a stereocentre not at all)
+    from confpop.species import configuration_elements
+    for smiles, kind in (("CC=NC", "imine E/Z"), ("CC=CC", "alkene E/Z"),
+                         ("CC(O)CC", "stereocentre"), ("CC=NO", "oxime/hydrazone E/Z")):
+        mol = Chem.AddHs(Chem.MolFromSmiles(smiles))
+        AllChem.EmbedMultipleConfs(mol, 12, randomSeed=2)
+        assert [b.kind for b in configuration_elements(mol)] == [kind]
+        states = {b.state(np.stack([c.GetPositions() for c in mol.GetConformers()]))[0]
+                  for b in configuration_elements(mol)}
+        table = species_table(mol)
+        assert table["species"].nunique() == 2, smiles
+        assert states <= {"cis", "trans", "+", "-"}
+    # a configuration shared by every conformer adds nothing (the amide tests' labels hold)
+    mol = Chem.AddHs(Chem.MolFromSmiles("C/C=N/C"))
+    AllChem.EmbedMultipleConfs(mol, 6, randomSeed=2)
+    assert set(species_table(mol)["species_label"]) == {""}
