@@ -470,7 +470,8 @@ def _run_couplings(args: argparse.Namespace) -> int:
                    "method_cautions": [c.message for c in cautions]}
         if spread is not None:
             payload["spread"] = {"energy_sigma_kcal_mol": args.energy_sigma, "rows": [
-                {"key": r["group"] if args.by == "group" else r["label"], "temperature_K": r["temperature"],
+                {"key": r["group"] if args.by == "group" else r["label"],
+                 "species": int(r["species"]), "temperature_K": r["temperature"],
                  **{k: _json_number(r[k]) for k in ("value", "mean", "std", "p05", "p95")}}
                 for _, r in spread.iterrows()]}
         if fit is not None:
@@ -510,7 +511,8 @@ def _run_couplings(args: argparse.Namespace) -> int:
         lines.append(f"spread from a {args.energy_sigma:g} kcal/mol energy error "
                      f"(Monte Carlo, at {temps[0]:g} K): 5-95 % interval in Hz")
         for _, r in spread[spread["temperature"] == temps[0]].iterrows():
-            lines.append(f"{str(r[key]):<{width}}  {r['p05']:>6.2f} - {r['p95']:<6.2f}")
+            where = f"  (species {int(r['species'])})" if len(species) > 1 else ""
+            lines.append(f"{str(r[key]):<{width}}  {r['p05']:>6.2f} - {r['p95']:<6.2f}{where}")
     if fit is not None:
         lines.append(f"fit to {fit.n_observations} observations at {fit.temperature:g} K: "
                      f"chi2 {fit.chi2:.2f} (Boltzmann populations: {fit.chi2_boltzmann:.2f}); "

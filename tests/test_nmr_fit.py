@@ -127,7 +127,7 @@ def test_noe_observations_join_the_fit(butanol, synthetic):
     noe = noe_distances(butanol, 298.15, pairs=[(5, 10), (5, 11)], populations=pops)
     obs = {("J", 8, 10): synthetic[(8, 10)]}
     for row in noe.itertuples():
-        obs[("noe", row.atom_a, row.atom_b)] = (float(row[7]), 0.05)
+        obs[("noe", row.atom_a, row.atom_b)] = (float(noe.loc[row.Index, 298.15]), 0.05)
     fit = fit_populations(butanol, obs, n_bootstrap=0)
     np.testing.assert_allclose(fit.populations.to_numpy(), TRUTH, atol=0.02)
     assert set(fit.residuals["unit"]) == {"Hz", "angstrom"}

@@ -222,3 +222,29 @@ def test_mixed_configurations_split_into_species():
     mol = Chem.AddHs(Chem.MolFromSmiles("C/C=N/C"))
     AllChem.EmbedMultipleConfs(mol, 6, randomSeed=2)
     assert set(species_table(mol)["species_label"]) == {""}
+
+
+def test_noe_and_spread_within_species(amide):
+    from confpop.nmr import coupling_spread, noe_distances
+    # the acetyl CH3 (C0) to the N-CH2 (C5): near in one amide rotamer, far in the other
+    noe = noe_distances(amide, [298.15], pairs=[(9, 15)])
+    assert sorted(noe["species"]) == [0, 1]
+    pops = amide.populations([298.15])[298.15]
+    sp = species_table(amide)["species"]
+    pos = {c: amide.positions(c) for c in pops.index}
+    for s in (0, 1):
+        ids = [i for i in pops.index if sp[i] == s]
+        w = pops[ids] / pops[ids].sum()
+        # brute force: group sums r^-6 over the methyl's and the CH2's protons, then r^-6 mean
+        methyl = [9, 10, 11]      # on C0
+        ch2 = [15, 16]            # on C5
+        s6 = [sum(np.linalg.norm(pos[c][a] - pos[c][b]) ** -6 for a in methyl for b in ch2)
+              for c in ids]
+        expected = float(np.dot(w, s6)) ** (-1 / 6)
+        got = float(noe.loc[noe["species"] == s, 298.15].iloc[0])
+        assert got == pytest.approx(expected, rel=1e-9)
+    spread = coupling_spread(amide, [298.15], energy_sigma=0.0, n_samples=20, by="group")
+    table = average_couplings(amide, [298.15], by="group")
+    merged = spread.merge(table, on=["group", "species"])
+    np.testing.assert_allclose(merged["value"], merged[298.15], atol=1e-12)
+    np.testing.assert_allclose(merged["mean"], merged[298.15], atol=1e-12)

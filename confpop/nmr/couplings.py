@@ -717,19 +717,24 @@ def population_spread(ens, temperatures, energy: str = "auto", energy_sigma: flo
 
 def coupling_spread(ens, temperatures, parameters="auto", energy: str = "auto",
                     energy_sigma: float = 1.0, n_samples: int = 1000, seed: int = 0,
-                    by: str = "pair") -> pd.DataFrame:
+                    by: str = "pair", species: bool = True) -> pd.DataFrame:
     """Averaged couplings with a spread from the energy method's error (Monte Carlo).
 
     The per-conformer couplings are fixed; the populations are resampled as in
     :func:`population_spread`. A narrow 5-95 % interval means the prediction does not hinge
     on energy differences the method cannot resolve.
 
+    Parameters
+    ----------
+    species : bool
+        As for :func:`average_couplings`: averages (nominal and sampled) within each species.
+
     Returns
     -------
     pandas.DataFrame
-        Long format, one row per (pair or group, temperature): the identification columns
-        of :func:`average_couplings` (``by``), ``temperature``, ``value`` (nominal <J>),
-        ``mean``, ``std``, ``p05``, ``p95`` in Hz.
+        Long format, one row per (pair or group, species, temperature): the identification
+        columns of :func:`average_couplings` (``by``), ``species``, ``temperature``, ``value``
+        (nominal <J>), ``mean``, ``std``, ``p05``, ``p95`` in Hz.
     """
     if by not in ("pair", "group"):
         raise InputError(f"by must be 'pair' or 'group', got {by!r}")
@@ -742,12 +747,21 @@ def coupling_spread(ens, temperatures, parameters="auto", energy: str = "auto",
     else:
         id_cols = list(_PAIR_COLUMNS)
     jmat = table[ids].to_numpy(dtype=float)
+    sp = _species(ens, ids) if species else None
+    members = {0: np.ones(len(ids), bool)} if sp is None else \
+        {int(v): (sp.to_numpy() == v) for v in sorted(sp.unique())}
     frames = []
     for k, t in enumerate(temps):
-        s = _summaries(jmat @ nominal[k], samples[k] @ jmat.T)
-        frame = table[id_cols].copy()
-        frame["temperature"] = t
-        for name, v in s.items():
-            frame[name] = v
-        frames.append(frame)
+        for number, mask in members.items():
+            nom = nominal[k] * mask
+            smp = samples[k] * mask[None, :]
+            nom = nom / nom.sum()
+            smp = smp / smp.sum(axis=1, keepdims=True)
+            s = _summaries(jmat @ nom, smp @ jmat.T)
+            frame = table[id_cols].copy()
+            frame["species"] = number
+            frame["temperature"] = t
+            for name, v in s.items():
+                frame[name] = v
+            frames.append(frame)
     return pd.concat(frames, ignore_index=True)
