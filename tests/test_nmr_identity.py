@@ -169,3 +169,30 @@ def test_noe_uses_the_common_identity():
         r6.append(np.linalg.norm(pos[k, 17] - pos[k, pro_r]) ** -6)
     expected = np.mean(r6) ** (-1 / 6)
     assert float(direct[298.15].iloc[0]) == pytest.approx(expected, rel=1e-6)
+
+
+def test_vinyl_protons_get_z_and_e():
+    # allyl alcohol C=CCO: the terminal =CH2 protons (H4, H5 on C0) are cis or trans to the
+    # CH2OH group; by the CIP rules (common practice) the proton cis to it, marked as D, makes
+    # the double bond Z. The embedding places them either way; after the reordering H4 is the
+    # Z proton (dihedral H4-C0-C1-C2 near 0) in every conformer.
+    from confpop.nmr.karplus import dihedral
+    mol, _ = embedded("C=CCO", 8, seed=4)
+
+    def cis(m):
+        return [abs(float(dihedral(*(c.GetPositions()[i] for i in (4, 0, 1, 2))))) < 90
+                for c in m.GetConformers()]
+
+    assert not all(cis(mol)) and any(cis(mol))
+    fixed = consistent_proton_identity(mol)
+    assert all(cis(fixed))
+    labels = prochiral_labels(fixed)
+    assert labels[4] == "Z" and labels[5] == "E"
+    # legacy CIP on the D-marked copy agrees: H4 -> D gives the Z alkene
+    m = Chem.Mol(fixed)
+    m.GetAtomWithIdx(4).SetIsotope(2)
+    Chem.AssignStereochemistryFrom3D(m, confId=fixed.GetConformers()[0].GetId())
+    assert m.GetBondBetweenAtoms(0, 1).GetStereo() == Chem.BondStereo.STEREOZ
+    # isobutene's =CH2 protons are homotopic: nothing to do
+    mol, _ = embedded("C=C(C)C", 4, seed=4)
+    assert prochiral_pairs(mol) == []

@@ -22,6 +22,11 @@ CIP labeller runs once per centre and every conformer is checked by that sign.
 Homotopic pairs (the CIP labeller gives no label: propane's CH2, cyclohexane's CH2) are
 left as they are: any order is the same molecule.
 
+The two ligands of a trigonal centre X=Y (the protons of a vinyl CH2=, the methyls of an
+isopropylidene group) are treated the same way: the one that makes the double bond Z when
+marked as the heavier isotope (cis to the higher-priority group across the double bond) is
+labelled "Z", the other "E", and the lower index is made the Z ligand in every conformer.
+
 Conformers whose real stereocentres differ from the first conformer's (an ensemble built
 with ``stereo="ignore"`` that mixes stereoisomers) are not reordered and a
 :class:`ProtonIdentityWarning` says so: their protons have no common identity.
@@ -82,9 +87,22 @@ class ProchiralPair:
 
     @property
     def labels(self) -> dict:
-        """{atom: "pro-R"/"pro-S"} (lower case r/s for pseudo-asymmetric centres)."""
+        """{atom: "pro-R"/"pro-S"} (lower case r/s for pseudo-asymmetric centres; "Z"/"E"
+        for the two ligands of a trigonal centre, see :func:`prochiral_pairs`)."""
+        if self.descriptor == "Z":
+            return {self.pro_r: "Z", self.pro_s: "E"}
         r, s = ("pro-R", "pro-S") if self.descriptor == "R" else ("pro-r", "pro-s")
         return {self.pro_r: r, self.pro_s: s}
+
+    def orientation(self, positions: np.ndarray) -> np.ndarray:
+        """+1/-1 per conformer ((..., n_atoms, 3) positions): which of the two places holds
+        ``pro_r`` (compare with ``sign``)."""
+        if self.descriptor == "Z":  # trigonal: cis (+1) or trans (-1) to others[1] across X=Y
+            from .karplus import dihedral
+            phi = dihedral(positions[..., self.pro_r, :], positions[..., self.centre, :],
+                           positions[..., self.others[0], :], positions[..., self.others[1], :])
+            return np.where(np.abs(phi) < 90.0, 1.0, -1.0)
+        return _triple(positions, self.centre, self.others[0], self.others[1], self.pro_r)
 
 
 # --------------------------------------------------------------------------- candidates
@@ -105,7 +123,12 @@ def _candidates(mol: Chem.Mol):
     ranks = list(Chem.CanonicalRankAtoms(mol, breakTies=False, includeChirality=False))
     out = []
     for atom in mol.GetAtoms():
-        if atom.GetDegree() != 4 or atom.GetAtomicNum() == 1:
+        if atom.GetAtomicNum() == 1:
+            continue
+        if atom.GetDegree() == 3 and not atom.GetIsAromatic():
+            out.extend(_trigonal_candidates(mol, atom, ranks))
+            continue
+        if atom.GetDegree() != 4:
             continue
         nbrs = [n for n in atom.GetNeighbors()]
         by_rank: dict[int, list] = {}
@@ -125,6 +148,26 @@ def _candidates(mol: Chem.Mol):
     return out
 
 
+def _trigonal_candidates(mol, atom, ranks):
+    """X(=Y) with two graph-equivalent terminal ligands: (centre, (a, ha), (b, hb), (Y, W))
+    with W a fixed neighbour of Y (not X)."""
+    double = [b for b in atom.GetBonds() if b.GetBondType() == Chem.BondType.DOUBLE]
+    if len(double) != 1 or double[0].IsInRing():
+        return []
+    y = double[0].GetOtherAtom(atom)
+    ligands = [n for n in atom.GetNeighbors() if n.GetIdx() != y.GetIdx()]
+    if len(ligands) != 2 or ranks[ligands[0].GetIdx()] != ranks[ligands[1].GetIdx()]:
+        return []
+    groups = [_terminal_group(n, atom.GetIdx()) for n in ligands]
+    if any(g is None for g in groups):
+        return []
+    ws = sorted(n.GetIdx() for n in y.GetNeighbors() if n.GetIdx() != atom.GetIdx())
+    if not ws:
+        return []
+    (a, ha), (b, hb) = sorted(groups)
+    return [(atom.GetIdx(), (a, ha), (b, hb), (y.GetIdx(), ws[0]))]
+
+
 def _descriptor(mol: Chem.Mol, centre: int, marked: int, conf_id: int) -> str | None:
     """CIP label of ``centre`` with ``marked`` as the heavier isotope, read from conf_id."""
     m = Chem.Mol(mol)
@@ -132,12 +175,18 @@ def _descriptor(mol: Chem.Mol, centre: int, marked: int, conf_id: int) -> str | 
     atom.SetIsotope(2 if atom.GetAtomicNum() == 1 else
                     int(round(Chem.GetPeriodicTable().GetMostCommonIsotopeMass(atom.GetAtomicNum()))) + 1)
     Chem.AssignStereochemistryFrom3D(m, confId=conf_id, replaceExistingTags=True)
+    c = m.GetAtomWithIdx(centre)
+    double = [b for b in c.GetBonds() if b.GetBondType() == Chem.BondType.DOUBLE]
+    trigonal = c.GetDegree() == 3 and len(double) == 1
     try:
-        rdCIPLabeler.AssignCIPLabels(m, atomsToLabel=[centre])
+        if trigonal:
+            rdCIPLabeler.AssignCIPLabels(m, atomsToLabel=[], bondsToLabel=[double[0].GetIdx()])
+        else:
+            rdCIPLabeler.AssignCIPLabels(m, atomsToLabel=[centre])
     except (RuntimeError, ValueError):  # the labeller gives up on some large ring systems
         return None
-    c = m.GetAtomWithIdx(centre)
-    return c.GetProp("_CIPCode") if c.HasProp("_CIPCode") else None
+    item = double[0] if trigonal else c
+    return item.GetProp("_CIPCode") if item.HasProp("_CIPCode") else None
 
 
 def _triple(pos, x, o1, o2, a):
@@ -194,16 +243,17 @@ def prochiral_pairs(mol: Chem.Mol, conf_id: int | None = None) -> list[Prochiral
     pairs = []
     for centre, (a, ha), (b, hb), others in _candidates(mol):
         label = _descriptor(mol, centre, a, conf_id)
-        if label not in ("R", "S", "r", "s"):
+        if label not in ("R", "S", "r", "s", "E", "Z"):
             continue
-        # the sign that a has where a is pro-R
-        s = float(_triple(pos, centre, others[0], others[1], a))
+        descriptor = "R" if label in ("R", "S") else ("r" if label in ("r", "s") else "Z")
+        trial = ProchiralPair(centre, a, b, others, descriptor, 1.0, ha, hb)
+        # the orientation a has where a is pro-R (or Z)
+        s = float(trial.orientation(pos))
         if s == 0.0:
             continue
-        if label in ("S", "s"):
+        if label in ("S", "s", "E"):
             s = -s
-        pairs.append(ProchiralPair(centre, a, b, others, "R" if label in ("R", "S") else "r",
-                                   s, ha, hb))
+        pairs.append(ProchiralPair(centre, a, b, others, descriptor, s, ha, hb))
     return pairs
 
 
@@ -255,7 +305,7 @@ def consistent_proton_identity(mol: Chem.Mol, reference: str = "cip") -> Chem.Mo
         raise InputError(f"reference must be 'cip' or 'first', got {reference!r}")
     changed = np.zeros(len(confs), bool)
     for p in pairs:
-        s = _triple(pos, p.centre, p.others[0], p.others[1], p.pro_r)
+        s = p.orientation(pos)
         target = p.sign if reference == "cip" or s[0] == 0 else s[0]
         swap = (s != target) & (s != 0) & ~mixed
         if not swap.any():
@@ -324,7 +374,7 @@ def prochiral_labels(mol: Chem.Mol, conf_id: int | None = None) -> dict[int, str
     labels: dict[int, str] = {}
     for p in _cached_pairs(m):
         names = p.labels
-        if float(_triple(pos, p.centre, p.others[0], p.others[1], p.pro_r)) != p.sign:
+        if float(p.orientation(pos)) != p.sign:
             names = {p.pro_r: names[p.pro_s], p.pro_s: names[p.pro_r]}
         labels.update(names)
     return labels
