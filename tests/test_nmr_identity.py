@@ -196,3 +196,12 @@ def test_vinyl_protons_get_z_and_e():
     # isobutene's =CH2 protons are homotopic: nothing to do
     mol, _ = embedded("C=C(C)C", 4, seed=4)
     assert prochiral_pairs(mol) == []
+
+
+def test_the_sdf_written_carries_the_identity(tmp_path):
+    # read back with plain RDKit (not confpop): every record has H18 as the pro-R H6
+    mol, _ = embedded(GLUCOSIDE, 6, seed=1)
+    Ensemble.from_mol(mol).to_sdf(tmp_path / "g.sdf")
+    records = [m for m in Chem.SDMolSupplier(str(tmp_path / "g.sdf"), removeHs=False)]
+    assert len(records) == 6
+    assert "".join(legacy_cip(r, 5, 18, r.GetConformer().GetId()) for r in records) == "R" * 6
