@@ -248,3 +248,32 @@ def test_noe_and_spread_within_species(amide):
     merged = spread.merge(table, on=["group", "species"])
     np.testing.assert_allclose(merged["value"], merged[298.15], atol=1e-12)
     np.testing.assert_allclose(merged["mean"], merged[298.15], atol=1e-12)
+
+
+def test_exchange_summary_scans_the_slow_bond_once(amide):
+    # three conformers: the lowest of species 0 and two of species 1 that differ from it in
+    # the amide and other torsions. Before, every such pair was skipped ("differ in several
+    # torsions"); now the amide bond is scanned once from species 0's lowest conformer and
+    # both cross-species pairs get its barrier. Reference class range as above.
+    from confpop.torsion import exchange_summary
+    table = amide.table()
+    a = int(table.index[table["species"] == 0][0])
+    ones = [int(c) for c in table.index[table["species"] == 1]]
+    picked = [c for c in ones if (torsion_changes(amide, a, c)["difference"] > 60).sum() >= 2]
+    b = picked[0]
+    c = next((x for x in picked[1:]
+              if (torsion_changes(amide, b, x)["difference"] > 60).sum() >= 2), None)
+    assert c is not None
+    small = amide.select([a, b, c])
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", MethodWarning)   # a force-field scan: no GFN2 caution
+        out = exchange_summary(small, [298.15], delta_nu_hz=50.0, method="mmff94s")
+    cross = out[out["species_a"] != out["species_b"]]
+    assert len(cross) == 2
+    assert set(cross["torsion"]) == {"O2-C1-N3-C5"}
+    assert (cross["barrier_ab"] > 13.5).all() and (cross["barrier_ab"] < 24.5).all()
+    assert cross["note"].str.contains("slow bond scanned from conformer").all()
+    assert set(cross["regime"]) <= {"slow", "intermediate"}
+    # the pair inside species 1 differs in several fast torsions only: skipped, as before
+    assert [tuple(s[:2]) for s in out.attrs["skipped"]] == [(b, c)] or \
+        [tuple(s[:2]) for s in out.attrs["skipped"]] == [(c, b)]
