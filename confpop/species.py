@@ -313,14 +313,16 @@ def species_table(ens, ids=None) -> pd.DataFrame:
         return pd.DataFrame({"species": np.zeros(len(ids), dtype=int), "species_label": ""},
                             index=index)
     pos = np.stack([np.asarray(mol.GetConformer(int(i)).GetPositions()) for i in ids])
+    finite = np.isfinite(pos).all(axis=(1, 2))
     # configurations count only where the conformers disagree (mixed stereoisomers)
-    varying = [b for b in configs if len(set(b.state(pos))) > 1]
+    varying = [b for b in configs if len(set(b.state(pos[finite]))) > 1] if finite.any() else []
     bonds = bonds + varying
     if not bonds:
         return pd.DataFrame({"species": np.zeros(len(ids), dtype=int), "species_label": ""},
                             index=index)
     states = np.stack([b.state(pos) for b in bonds], axis=1)  # (n_conf, n_bonds)
-    labels = ["; ".join(b.describe(s, mol) for b, s in zip(bonds, row)) for row in states]
+    labels = ["; ".join(b.describe(s, mol) for b, s in zip(bonds, row)) if ok
+              else "no coordinates" for row, ok in zip(states, finite)]
     order = list(range(len(ids)))
     if not isinstance(ens, Chem.Mol):
         try:

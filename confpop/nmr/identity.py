@@ -237,8 +237,11 @@ def prochiral_pairs(mol: Chem.Mol, conf_id: int | None = None) -> list[Prochiral
     """
     if mol.GetNumConformers() == 0:
         return []
-    if conf_id is None:
-        conf_id = mol.GetConformers()[0].GetId()
+    if conf_id is None:  # the first conformer with usable coordinates
+        conf_id = next((c.GetId() for c in mol.GetConformers()
+                        if np.isfinite(np.asarray(c.GetPositions())).all()), None)
+        if conf_id is None:
+            return []
     pos = np.asarray(mol.GetConformer(int(conf_id)).GetPositions())
     pairs = []
     for centre, (a, ha), (b, hb), others in _candidates(mol):
@@ -294,8 +297,12 @@ def consistent_proton_identity(mol: Chem.Mol, reference: str = "cip") -> Chem.Mo
         return out
     confs = list(out.GetConformers())
     pos = np.stack([np.asarray(c.GetPositions()) for c in confs])
+    finite = np.isfinite(pos).all(axis=(1, 2))
+    if not finite.any():
+        return out
     sig = _stereo_signature(out, pos)
-    mixed = np.any(sig != sig[0], axis=1) if sig.shape[1] else np.zeros(len(confs), bool)
+    ref = sig[int(np.argmax(finite))]
+    mixed = (np.any(sig != ref, axis=1) if sig.shape[1] else np.zeros(len(confs), bool)) & finite
     if mixed.any():
         warnings.warn(f"{int(mixed.sum())} of {len(confs)} conformers have a stereocentre "
                       "configured differently from the first conformer (mixed stereoisomers); "
@@ -306,8 +313,9 @@ def consistent_proton_identity(mol: Chem.Mol, reference: str = "cip") -> Chem.Mo
     changed = np.zeros(len(confs), bool)
     for p in pairs:
         s = p.orientation(pos)
-        target = p.sign if reference == "cip" or s[0] == 0 else s[0]
-        swap = (s != target) & (s != 0) & ~mixed
+        first = s[int(np.argmax(finite))]
+        target = p.sign if reference == "cip" or first == 0 else first
+        swap = (s != target) & (s != 0) & ~mixed & finite
         if not swap.any():
             continue
         src = [p.pro_r, *p.hydrogens_r, p.pro_s, *p.hydrogens_s]
