@@ -312,10 +312,13 @@ class Ensemble:
         pops = self.populations([temperature], energy=energy)
         return float(thermo.effective_conformer_count(pops.iloc[:, 0].to_numpy()))
 
-    def species(self, temperatures=298.15, energy: str = "auto") -> pd.DataFrame:
-        """Shares of the species (conformer sets separated by slow bond rotations); see
-        :func:`confpop.species.species_populations`."""
-        from .species import species_populations
+    def species(self, temperatures=298.15, energy: str = "auto", within: bool = False) -> pd.DataFrame:
+        """Shares of the species (conformer sets separated by slow bond rotations), or with
+        ``within`` the conformer populations normalized within each species; see
+        :mod:`confpop.species`."""
+        from .species import species_populations, within_species_populations
+        if within:
+            return within_species_populations(self, temperatures, energy=energy)
         return species_populations(self, temperatures, energy=energy)
 
     # ----------------------------------------------------------------- derived ensembles

@@ -52,7 +52,7 @@ from rdkit import Chem
 from .errors import InputError
 
 __all__ = ["SlowBond", "slow_bonds", "configuration_elements", "species_table",
-           "species_populations", "CONFIGURATION_CLASSES",
+           "species_populations", "within_species_populations", "CONFIGURATION_CLASSES",
            "AMIDE_BARRIER_ERROR_KCAL", "SLOW_CLASSES"]
 
 #: GFN2-xTB amide C-N rotation barriers minus experiment, kcal/mol (issue 14 measurement:
@@ -337,6 +337,23 @@ def species_table(ens, ids=None) -> pd.DataFrame:
         number.setdefault(labels[k], len(number))
     return pd.DataFrame({"species": [number[lab] for lab in labels], "species_label": labels},
                         index=index)
+
+
+def within_species_populations(ens, temperatures, energy: str = "auto") -> pd.DataFrame:
+    """Conformer populations normalized within each species.
+
+    Returns
+    -------
+    pandas.DataFrame
+        Index: conformer id; ``species`` and one float column per temperature; within each
+        species the populations sum to 1 (the weights of that species' NMR averages).
+    """
+    pops = ens.populations(temperatures, energy=energy)
+    table = species_table(ens, ids=list(pops.index))
+    totals = pops.groupby(table["species"]).transform("sum")
+    out = pops / totals
+    out.insert(0, "species", table["species"])
+    return out
 
 
 def species_populations(ens, temperatures, energy: str = "auto") -> pd.DataFrame:

@@ -80,6 +80,14 @@ def test_species_column_and_shares(amide):
         np.testing.assert_allclose(shares[t].to_numpy(), brute.sort_index().to_numpy(), atol=1e-12)
         assert shares[t].sum() == pytest.approx(1.0, abs=1e-12)
     assert list(shares["n_conformers"]) == list(table["species"].value_counts().sort_index())
+    # within each species the conformer populations sum to 1 and keep their ratios
+    within = amide.species(temps, within=True)
+    for t in temps:
+        np.testing.assert_allclose(within.groupby("species")[t].sum().to_numpy(), 1.0, atol=1e-12)
+        for s in (0, 1):
+            ids = within.index[within["species"] == s]
+            np.testing.assert_allclose(within.loc[ids, t], pops.loc[ids, t] / pops.loc[ids, t].sum(),
+                                       atol=1e-12)
 
 
 def test_couplings_are_averaged_within_species(amide):
