@@ -13,7 +13,12 @@ Measured cases (issue 14; the numbers are repeated in README "Method cautions"):
   GFN2-xTB + ALPB(water), two sampling seeds: the hydroxymethyl group comes out 47-69 % tg
   (measured in water: gt and gg, tg at most about 10 %), up to 22 % of the population off
   the 4C1 chair, and J(H5,H6proR) / J(H5,H6proS) = 2.7-3.5 / 6.2-8.1 Hz against about
-  5.8 / 2.1 Hz measured [from memory], errors of 2.3-6.0 Hz.
+  5.8 / 2.1 Hz measured [from memory], errors of 2.3-6.0 Hz. Re-ranking the two lowest
+  conformers of each hydroxymethyl family (seed 0) with B3LYP-D3(BJ)/def2-SVP + PCM(water)
+  single points moved tg from 0.69 to 0.43 but left gt at 0.02 (GFN2: 0.04): J5,6R / J5,6S
+  1.87 / 6.43 Hz against 2.69 / 8.12 Hz at GFN2 on the same conformers, errors 3.9 / 4.3 Hz
+  against 3.1 / 6.0: no real improvement (implicit solvent misses water's hydrogen bonds to
+  the hydroxymethyl group).
 - **Amide C-N barriers, tight-binding level.** GFN2-xTB barriers are 1.4-3.2 kcal/mol
   below experiment (N,N-dimethylacetamide gas 13.8 vs 15.6; DMF in chloroform 19.6 vs
   about 21): rates 10-200 times too fast (see :mod:`confpop.species`).
@@ -63,8 +68,10 @@ POLYOL_WATER = (
     "GFN2-xTB with implicit water misranks polyol and sugar conformers: for methyl "
     "beta-D-glucopyranoside it gave the hydroxymethyl group 47-69 % tg (measured: gt/gg, "
     "tg <= ~10 %), up to 22 % non-chair ring, and H5-H6 couplings 2.3-6.0 Hz off the "
-    "measured values. Treat the averages as qualitative; compare with experiment or re-rank "
-    "with DFT (ens.rescore('dft')) before drawing conclusions.")
+    "measured values; re-ranking with DFT and implicit water (B3LYP-D3(BJ)/def2-SVP/PCM) "
+    "did not fix it (tg 43 %, gt 2 %, errors 3.9 and 4.3 Hz). Treat the averages as "
+    "qualitative and rely on the measured couplings (fit_populations reports the rotamer "
+    "families they determine).")
 
 AMIDE_BARRIER = (
     "GFN2-xTB amide C-N rotation barriers are 1.4-3.2 kcal/mol below experiment (measured: "
