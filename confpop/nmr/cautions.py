@@ -10,7 +10,7 @@ experiment and qualified judgement.
 Measured cases (issue 14; the numbers are repeated in README "Method cautions"):
 
 - **Polyols and sugars in water, tight-binding level.** Methyl beta-D-glucopyranoside,
-  GFN2-xTB + ALPB(water), two sampling seeds: the hydroxymethyl group comes out 47-69 % tg
+  GFN2-xTB + GBSA(water), two sampling seeds: the hydroxymethyl group comes out 47-69 % tg
   (measured in water: gt and gg, tg at most about 10 %), up to 22 % of the population off
   the 4C1 chair, and J(H5,H6proR) / J(H5,H6proS) = 2.7-3.5 / 6.2-8.1 Hz against about
   5.8 / 2.1 Hz measured [from memory], errors of 2.3-6.0 Hz. Re-ranking the two lowest
