@@ -8,7 +8,7 @@ pro-S in the next. Averages taken per atom index then mix two different protons.
 
 :func:`consistent_proton_identity` puts every conformer in one order: for each prochiral
 centre X with two interchangeable terminal ligands a < b (two H, or two terminal groups such
-as the methyls of an isopropyl or tert-butyl-free gem-dimethyl), the lower index ``a`` is
+as the methyls of an isopropyl group or of a gem-dimethyl carbon), the lower index ``a`` is
 made the pro-R (or pro-r) ligand in every conformer, by swapping the coordinates of a and b
 (and of their hydrogens) where the conformer has them the other way round. The assignment
 is by the CIP rules: one of the two ligands is marked as the heavier isotope (deuterium for
@@ -26,6 +26,10 @@ The two ligands of a trigonal centre X=Y (the protons of a vinyl CH2=, the methy
 isopropylidene group) are treated the same way: the one that makes the double bond Z when
 marked as the heavier isotope (cis to the higher-priority group across the double bond) is
 labelled "Z", the other "E", and the lower index is made the Z ligand in every conformer.
+
+Only terminal ligands are reordered (H, or a heavy atom whose other neighbours are all
+terminal: CH3, CF3); two larger equivalent groups on a prochiral centre (the ethyls of a
+3-pentyl group) are left as embedded.
 
 Conformers whose real stereocentres differ from the first conformer's (an ensemble built
 with ``stereo="ignore"`` that mixes stereoisomers) are not reordered and a
