@@ -7,7 +7,6 @@ itself: the isotope-marked ligand is pro-R when the marked centre is R (IUPAC
 recommendations for prochirality, common practice).
 """
 
-import warnings
 
 import numpy as np
 import pytest

@@ -10,7 +10,6 @@ averages from the per-conformer couplings and populations.
 import warnings
 
 import numpy as np
-import pandas as pd
 import pytest
 from rdkit import Chem
 from rdkit.Chem import AllChem
