@@ -1656,7 +1656,10 @@ def exchange_summary(ens, temperatures, *, delta_nu_hz: float, method=None,
     """For every pair of conformers that differ in one torsion: do they average on the NMR time scale?
 
     Each such torsion is scanned once from the lower-energy conformer of the pair (scans are
-    reused between pairs that share torsion and starting conformer).
+    reused between pairs that share torsion and starting conformer). Pairs that differ in
+    several torsions of which exactly one is a slow bond (amide C-N, hindered biaryl axis;
+    :mod:`confpop.species`) are handled through that bond: it is scanned once per species
+    from the species' lowest conformer, the other torsions relaxing along the scan.
 
     Parameters
     ----------
@@ -1676,7 +1679,8 @@ def exchange_summary(ens, temperatures, *, delta_nu_hz: float, method=None,
         temperature, barrier_ab, barrier_ba (``unit``), k_ab, k_ba, k_exchange (s⁻¹),
         regime ("fast", "intermediate", "slow"; "same well" when the scan joins them), note.
         ``attrs["note"]`` holds the barrier caveat; ``attrs["skipped"]`` the pairs that
-        differ in more than one torsion.
+        differ in more than one torsion and not in exactly one slow bond, as (a, b, torsion
+        labels, reason).
     """
     from . import kinetics
     unit = normalize_unit(unit)
@@ -1701,7 +1705,10 @@ def exchange_summary(ens, temperatures, *, delta_nu_hz: float, method=None,
             if len(big) > 1:
                 slow = _slow_change(ens.mol, big)
                 if slow is None:
-                    skipped.append((a, b, list(big["label"])))
+                    reason = ("same species: several fast torsions (fast by bond class)"
+                              if species[a] == species[b] else
+                              "several slow bonds differ: scan each with scan_torsion")
+                    skipped.append((a, b, list(big["label"]), reason))
                     continue
                 big = big[big["label"] == slow.label]
                 via_slow = True
