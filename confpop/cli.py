@@ -437,6 +437,8 @@ def _run_couplings(args: argparse.Namespace) -> int:
     table = nmr.average_couplings(ens, temps, parameters=args.parameters, by=args.by)
     id_cols = [c for c in table.columns if not isinstance(c, float)]
     species = table.attrs.get("species", {})
+    if args.species is not None and not args.observed:
+        raise InputError("--species chooses the signal set to fit and needs --observed FILE.csv")
     if args.species is not None and args.species not in species:
         raise InputError(f"--species must be one of {sorted(species)} (as printed), got {args.species}")
     cautions = nmr.method_cautions(ens)

@@ -201,6 +201,8 @@ def test_couplings_command_shows_species_and_cautions(amide, tmp_path, capsys):
     assert {r["species"] for r in payload["couplings"]} == {0, 1}
     assert main(["couplings", str(sdf), "--species", "7", "--observed", str(sdf)]) == 2
     assert "--species must be one of [0, 1]" in capsys.readouterr().err
+    assert main(["couplings", str(sdf), "--species", "1"]) == 2
+    assert "needs --observed" in capsys.readouterr().err
     # a tight-binding polyol in water: the caution is printed
     glycerol = mmff_ensemble("OCC(O)CO", n=10, level="gfn2", solvent="water")
     gsdf = tmp_path / "glycerol.sdf"
