@@ -491,6 +491,9 @@ def _add_couplings(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--energy-sigma", type=_finite_float, default=None, metavar="KCAL",
                         help="add a Monte Carlo spread (5-95 %%) from this per-conformer energy "
                              "error in kcal/mol (1 is typical for GFN2-xTB)")
+    parser.add_argument("--species", type=int, default=None, metavar="N",
+                        help="with --observed: fit only species N (conformers separated by a slow "
+                             "amide or biaryl rotation give separate signal sets; numbers as printed)")
     parser.add_argument("--method", default="gfn2", help="method for a SMILES input (default gfn2)")
     parser.add_argument("--solvent", default=None, help="implicit solvent for a SMILES input")
     parser.add_argument("--seed", type=int, default=0, help="seed for sampling, spread and bootstrap")
@@ -570,8 +573,16 @@ def _run_couplings(args: argparse.Namespace) -> int:
     if args.observed:  # read before any work: a bad file fails at once
         observed = _read_observed(args.observed)
     ens = _couplings_ensemble(args)
+    import warnings
+    warnings.simplefilter("ignore", nmr.MethodWarning)  # printed below as "method caution:"
     table = nmr.average_couplings(ens, temps, parameters=args.parameters, by=args.by)
     id_cols = [c for c in table.columns if not isinstance(c, float)]
+    species = table.attrs.get("species", {})
+    if args.species is not None and not args.observed:
+        raise InputError("--species chooses the signal set to fit and needs --observed FILE.csv")
+    if args.species is not None and args.species not in species:
+        raise InputError(f"--species must be one of {sorted(species)} (as printed), got {args.species}")
+    cautions = nmr.method_cautions(ens)
     spread = None
     if args.energy_sigma is not None:
         spread = nmr.coupling_spread(ens, temps, parameters=args.parameters, by=args.by,
@@ -579,7 +590,7 @@ def _run_couplings(args: argparse.Namespace) -> int:
     fit = None
     if observed is not None:
         fit = nmr.fit_populations(ens, observed, temperature=temps[0], parameters=args.parameters,
-                                  seed=args.seed)
+                                  seed=args.seed, species=args.species)
     if args.plot:
         from . import plot
         if fit is not None:
@@ -594,10 +605,15 @@ def _run_couplings(args: argparse.Namespace) -> int:
             item["J_hz"] = {format(t, "g"): _json_number(row[t]) for t in temps}
             rows.append(item)
         payload = {"temperatures_K": temps, "parameters": args.parameters, "by": args.by,
-                   "couplings": rows, "caution": _COUPLINGS_CAUTION}
+                   "species": [{"species": int(k), "label": v["label"],
+                                "share": {format(t, "g"): _json_number(x) for t, x in v["share"].items()}}
+                               for k, v in species.items()],
+                   "couplings": rows, "caution": _COUPLINGS_CAUTION,
+                   "method_cautions": [c.message for c in cautions]}
         if spread is not None:
             payload["spread"] = {"energy_sigma_kcal_mol": args.energy_sigma, "rows": [
-                {"key": r["group"] if args.by == "group" else r["label"], "temperature_K": r["temperature"],
+                {"key": r["group"] if args.by == "group" else r["label"],
+                 "species": int(r["species"]), "temperature_K": r["temperature"],
                  **{k: _json_number(r[k]) for k in ("value", "mean", "std", "p05", "p95")}}
                 for _, r in spread.iterrows()]}
         if fit is not None:
@@ -612,6 +628,8 @@ def _run_couplings(args: argparse.Namespace) -> int:
                                for cid, r in frame.iterrows()],
                 "residuals": [{k: _plain(v) for k, v in r.items()}
                               for _, r in fit.residuals.iterrows()],
+                "families": [{k: _plain(v) for k, v in r.items()}
+                             for _, r in fit.families.iterrows()],
             }
         print(json.dumps(payload, indent=2, ensure_ascii=False, default=str))
         return 0
@@ -621,14 +639,22 @@ def _run_couplings(args: argparse.Namespace) -> int:
     lines = [f"{len(ens)} conformers ({ens.level}); population-averaged vicinal 3J(H,H) in Hz; "
              "atom indices 0-based",
              f"{key:<{width}}  {'set':<16}" + "".join(f"  {format(t, 'g') + ' K':>9}" for t in temps)]
-    for _, row in table.iterrows():
-        lines.append(f"{str(row[key]):<{width}}  {str(row['parameter_set']):<16}"
-                     + "".join(f"  {row[t]:>9.2f}" for t in temps))
+    for number, sub in table.groupby("species", sort=True):
+        if len(species) > 1:
+            info = species[int(number)]
+            lines.append(f"species {int(number)} ({info['label']}): "
+                         + ", ".join(f"{info['share'][t]:.2f} of the population at {t:g} K"
+                                     for t in temps)
+                         + "; slow exchange with the other species, averaged within it only")
+        for _, row in sub.iterrows():
+            lines.append(f"{str(row[key]):<{width}}  {str(row['parameter_set']):<16}"
+                         + "".join(f"  {row[t]:>9.2f}" for t in temps))
     if spread is not None:
         lines.append(f"spread from a {args.energy_sigma:g} kcal/mol energy error "
                      f"(Monte Carlo, at {temps[0]:g} K): 5-95 % interval in Hz")
         for _, r in spread[spread["temperature"] == temps[0]].iterrows():
-            lines.append(f"{str(r[key]):<{width}}  {r['p05']:>6.2f} - {r['p95']:<6.2f}")
+            where = f"  (species {int(r['species'])})" if len(species) > 1 else ""
+            lines.append(f"{str(r[key]):<{width}}  {r['p05']:>6.2f} - {r['p95']:<6.2f}{where}")
     if fit is not None:
         lines.append(f"fit to {fit.n_observations} observations at {fit.temperature:g} K: "
                      f"chi2 {fit.chi2:.2f} (Boltzmann populations: {fit.chi2_boltzmann:.2f}); "
@@ -646,10 +672,19 @@ def _run_couplings(args: argparse.Namespace) -> int:
         if fit.minimal_subset:
             lines.append(f"smallest conformer set explaining the data within the noise: "
                          f"{list(fit.minimal_subset)} (chi2 {fit.minimal_subset_chi2:.2f})")
+        fixed = fit.families[fit.families["determined"]] if fit.families is not None else []
+        if len(fixed):
+            lines.append("rotamer families the data determine (population ± bootstrap std; "
+                         "g+ 0..120, g- -120..0, t beyond ±120 degrees):")
+            for r in fixed.itertuples():
+                lines.append(f"{r.torsion:>24}  {r.family:<3} {r.population:6.3f} ± "
+                             f"{r.population_std:5.3f}  (Boltzmann {r.boltzmann:.3f})")
         if fit.warning:
             lines.append("warning: " + fit.warning)
     if args.plot:
         lines.append(f"wrote {args.plot}")
+    for c in cautions:
+        lines.append("method caution: " + c.message)
     lines.append(_COUPLINGS_CAUTION)
     print("\n".join(lines))
     return 0

@@ -75,7 +75,9 @@ class Ensemble:
         if f"energy_{level}" not in table.columns:
             raise InputError(f"ensemble has no energy column for level {level!r}; "
                              f"columns: {list(table.columns)}")
-        self._mol = Chem.Mol(mol)
+        # one atom index = one pro-R/pro-S proton in every conformer (confpop.nmr.identity)
+        from .nmr.identity import consistent_proton_identity
+        self._mol = consistent_proton_identity(mol)
         self._table = table.copy()
         self._table.index.name = "conformer"
         self.level = level
@@ -198,8 +200,10 @@ class Ensemble:
         Every ``energy_<level>`` column is shown relative to the lowest active conformer at
         that level (absolute hartree values stay in :attr:`raw_table`); ``gcorr_``/``hcorr_``
         corrections and ``zpe`` are converted but not shifted, ``entropy_`` columns are in
-        ``unit``/K. Rows are sorted by relative energy; failed
-        conformers come last with their reason.
+        ``unit``/K. ``species`` numbers the sets of conformers that interconvert fast on the
+        NMR time scale (0 holds the lowest conformer; see :mod:`confpop.species`) and
+        ``species_label`` names the slow bonds' states. Rows are sorted by relative energy;
+        failed conformers come last with their reason.
         """
         unit = normalize_unit(unit)
         out = self._table.copy()
@@ -214,6 +218,9 @@ class Ensemble:
                     if np.isfinite(np.where(active, values, np.nan)).any() else values
             out[c] = values
         ref = out.loc[active, f"energy_{self.level}"].min() if active.any() else np.nan
+        if "species" not in out.columns:  # conformers that exchange slowly on the NMR time scale
+            from .species import species_table
+            out = out.join(species_table(self))
         out.insert(0, "relative_energy", out[f"energy_{self.level}"] - ref)
         out.loc[~active, "relative_energy"] = np.nan
         out.attrs["unit"] = unit
@@ -304,6 +311,15 @@ class Ensemble:
         """Kish effective number of conformers, 1/Σp² (1 when one conformer dominates)."""
         pops = self.populations([temperature], energy=energy)
         return float(thermo.effective_conformer_count(pops.iloc[:, 0].to_numpy()))
+
+    def species(self, temperatures=298.15, energy: str = "auto", within: bool = False) -> pd.DataFrame:
+        """Shares of the species (conformer sets separated by slow bond rotations), or with
+        ``within`` the conformer populations normalized within each species; see
+        :mod:`confpop.species`."""
+        from .species import species_populations, within_species_populations
+        if within:
+            return within_species_populations(self, temperatures, energy=energy)
+        return species_populations(self, temperatures, energy=energy)
 
     # ----------------------------------------------------------------- derived ensembles
     def with_column(self, name: str, values, step: dict | None = None) -> "Ensemble":

@@ -41,7 +41,7 @@ from .units import convert, normalize_unit
 
 __all__ = ["Torsion", "TorsionProfile", "Interconversion", "scan_torsion", "rotatable_torsions",
            "dihedral_angle", "set_dihedral", "interconversion", "exchange_summary",
-           "BARRIER_NOTE"]
+           "BarrierCorrection", "rescore_barrier", "BARRIER_NOTE"]
 
 log = logging.getLogger(__name__)
 
@@ -1476,6 +1476,34 @@ def _default_method(ens, method):
     return level if level in available_backends() else "gfn2"
 
 
+def _slow_change(mol, big: pd.DataFrame):
+    """The one row of ``big`` (changed torsions) that turns a slow bond (amide C-N, hindered
+    biaryl axis; :func:`confpop.species.slow_bonds`), or None when there is not exactly one.
+
+    When conformers differ in several torsions and one of them is slow, that one sets the
+    rate: the others relax along a relaxed scan of it and are crossed much faster."""
+    from .species import slow_bonds
+    slow = {frozenset(b.atoms[1:3]) for b in slow_bonds(mol)}
+    rows = [r for r in big.itertuples() if frozenset(r.atoms[1:3]) in slow]
+    return rows[0] if len(rows) == 1 else None
+
+
+def _barrier_caution(mol, atoms, method) -> str:
+    """The amide-barrier method caution (issued as a MethodWarning) when a tight-binding
+    method scanned an amide, thioamide or carbamate C-N bond; "" otherwise."""
+    from .nmr.cautions import amide_barrier_caution, warn_cautions
+    from .species import slow_bonds
+    bond = frozenset(atoms[1:3])
+    kinds = [b.kind for b in slow_bonds(mol) if frozenset(b.atoms[1:3]) == bond]
+    if not kinds and _bond_kind(mol, mol.GetBondBetweenAtoms(*atoms[1:3])) == "amide":
+        kinds = ["amide"]  # symmetric amides (NMe2) are no species split but still amides
+    caution = amide_barrier_caution(method, kinds[0]) if kinds else None
+    if caution is None:
+        return ""
+    warn_cautions([caution], stacklevel=4)
+    return " " + caution.message
+
+
 def _pair_barrier(profile: TorsionProfile, angle_a: float, angle_b: float):
     """Wells of angle_a and angle_b on the profile and the lower of the two paths between them."""
     ext = profile._extrema()
@@ -1582,12 +1610,21 @@ def interconversion(ens, i: int, j: int, method=None, temperatures=(298.15,), *,
                                empty_rates, unit, "the molecule has no rotatable torsion", "")
     big = changes[changes["difference"] > threshold]
     top = changes.iloc[0]
+    relaxing = ""
     if len(big) >= 2:
         listing = ", ".join(f"{r.label} ({r.difference:.0f} deg)" for r in big.itertuples())
-        msg = (f"conformers {i} and {j} differ in {len(big)} torsions by more than "
-               f"{threshold:g} degrees ({listing}): not a single-torsion interconversion")
-        return Interconversion((i, j), False, changes, tuple(top["atoms"]), top["label"], None,
-                               nan, nan, nan, nan, nan, empty_rates, unit, msg, "")
+        slow = _slow_change(ens.mol, big)
+        if slow is None:
+            msg = (f"conformers {i} and {j} differ in {len(big)} torsions by more than "
+                   f"{threshold:g} degrees ({listing}) and not in exactly one slow bond "
+                   "(amide C-N, hindered biaryl axis): not a single-torsion interconversion")
+            return Interconversion((i, j), False, changes, tuple(top["atoms"]), top["label"],
+                                   None, nan, nan, nan, nan, nan, empty_rates, unit, msg, "")
+        # the slow bond sets the rate; the other torsions relax along its relaxed scan
+        top = changes[changes["label"] == slow.label].iloc[0]
+        relaxing = (f"; conformers {i} and {j} also differ in "
+                    + ", ".join(r.label for r in big.itertuples() if r.label != slow.label)
+                    + ", which relax along the scan of the slow bond")
     method = _default_method(ens, method)
     profile = scan_torsion(ens.mol, tuple(top["atoms"]), method=method,
                            solvent=getattr(ens, "solvent", None), step=step, conf_id=i,
@@ -1606,9 +1643,11 @@ def interconversion(ens, i: int, j: int, method=None, temperatures=(298.15,), *,
     else:
         msg = (f"{top['label']}: {i} -> {j} over {pb['barrier_forward']:.2f} {unit} "
                f"(reverse {pb['barrier_reverse']:.2f}) via {pb['via_max']:.0f} deg")
+    msg += relaxing
+    caution = _barrier_caution(ens.mol, tuple(top["atoms"]), method)
     return Interconversion((i, j), True, changes, tuple(top["atoms"]), top["label"], profile,
                            pb["from_min"], pb["to_min"], pb["via_max"], pb["barrier_forward"],
-                           pb["barrier_reverse"], rates, unit, msg, profile.note)
+                           pb["barrier_reverse"], rates, unit, msg, profile.note + caution)
 
 
 def exchange_summary(ens, temperatures, *, delta_nu_hz: float, method=None,
@@ -1617,7 +1656,10 @@ def exchange_summary(ens, temperatures, *, delta_nu_hz: float, method=None,
     """For every pair of conformers that differ in one torsion: do they average on the NMR time scale?
 
     Each such torsion is scanned once from the lower-energy conformer of the pair (scans are
-    reused between pairs that share torsion and starting conformer).
+    reused between pairs that share torsion and starting conformer). Pairs that differ in
+    several torsions of which exactly one is a slow bond (amide C-N, hindered biaryl axis;
+    :mod:`confpop.species`) are handled through that bond: it is scanned once per species
+    from the species' lowest conformer, the other torsions relaxing along the scan.
 
     Parameters
     ----------
@@ -1637,7 +1679,8 @@ def exchange_summary(ens, temperatures, *, delta_nu_hz: float, method=None,
         temperature, barrier_ab, barrier_ba (``unit``), k_ab, k_ba, k_exchange (s⁻¹),
         regime ("fast", "intermediate", "slow"; "same well" when the scan joins them), note.
         ``attrs["note"]`` holds the barrier caveat; ``attrs["skipped"]`` the pairs that
-        differ in more than one torsion.
+        differ in more than one torsion and not in exactly one slow bond, as (a, b, torsion
+        labels, reason).
     """
     from . import kinetics
     unit = normalize_unit(unit)
@@ -1649,6 +1692,8 @@ def exchange_summary(ens, temperatures, *, delta_nu_hz: float, method=None,
         rank = {int(c): float(order.loc[c]) for c in order.index}
     except Exception:  # ensembles without energies: keep id order
         rank = {c: float(c) for c in ids}
+    from .species import species_table
+    species = species_table(ens, ids=ids)["species"].to_dict()
     scans: dict = {}
     rows, skipped = [], []
     note = ""
@@ -1656,12 +1701,28 @@ def exchange_summary(ens, temperatures, *, delta_nu_hz: float, method=None,
         for b in ids[a_pos + 1:]:
             changes = torsion_changes(ens, a, b)
             big = changes[changes["difference"] > threshold]
+            via_slow = False
+            if len(big) > 1:
+                slow = _slow_change(ens.mol, big)
+                if slow is None:
+                    reason = ("same species: several fast torsions (fast by bond class)"
+                              if species[a] == species[b] else
+                              "several slow bonds differ: scan each with scan_torsion")
+                    skipped.append((a, b, list(big["label"]), reason))
+                    continue
+                big = big[big["label"] == slow.label]
+                via_slow = True
             if len(big) != 1:
-                if len(big) > 1:
-                    skipped.append((a, b, list(big["label"])))
                 continue
             first, second = (a, b) if rank.get(a, a) <= rank.get(b, b) else (b, a)
+            a_starts = first == a
             tors = big.iloc[0]
+            if via_slow:
+                # one scan per slow bond and species, from the species' lowest conformer
+                same = [c for c in ids if species[c] == species[first]]
+                first = min(same, key=lambda c: rank.get(c, c))
+                if species[a] != species[b]:
+                    a_starts = species[a] == species[first]
             key = (tuple(tors["atoms"]), first)
             if key not in scans:
                 scans[key] = scan_torsion(ens.mol, tuple(tors["atoms"]), method=method,
@@ -1675,11 +1736,12 @@ def exchange_summary(ens, temperatures, *, delta_nu_hz: float, method=None,
             note = prof.note
             target = dihedral_angle(ens.positions(second), tors["atoms"])
             pb = _pair_barrier(prof, prof.start_angle, target)
-            if pb is not None and first != a:  # report a -> b
+            if pb is not None and not a_starts:  # report a -> b
                 pb = {**pb, "barrier_forward": pb["barrier_reverse"],
                       "barrier_reverse": pb["barrier_forward"]}
             for t in temps:
-                row = {"conformer_a": a, "conformer_b": b, "torsion": tors["label"],
+                row = {"conformer_a": a, "conformer_b": b, "species_a": species[a],
+                       "species_b": species[b], "torsion": tors["label"],
                        "atoms": tuple(tors["atoms"]), "temperature": t}
                 if pb is None or pb["same_well"]:
                     row.update(barrier_ab=float("nan"), barrier_ba=float("nan"),
@@ -1692,11 +1754,132 @@ def exchange_summary(ens, temperatures, *, delta_nu_hz: float, method=None,
                     row.update(barrier_ab=pb["barrier_forward"], barrier_ba=pb["barrier_reverse"],
                                k_ab=kab, k_ba=kba, k_exchange=kab + kba,
                                regime=str(kinetics.exchange_regime(0.5 * (kab + kba), delta_nu_hz)),
-                               note="")
+                               note=(f"slow bond scanned from conformer {first}; the other "
+                                     "changed torsions relax along it" if via_slow else ""))
                 rows.append(row)
-    cols = ["conformer_a", "conformer_b", "torsion", "atoms", "temperature", "barrier_ab",
-            "barrier_ba", "k_ab", "k_ba", "k_exchange", "regime", "note"]
+    cols = ["conformer_a", "conformer_b", "species_a", "species_b", "torsion", "atoms",
+            "temperature", "barrier_ab", "barrier_ba", "k_ab", "k_ba", "k_exchange", "regime",
+            "note"]
     out = pd.DataFrame(rows, columns=cols)
-    out.attrs["note"] = note or BARRIER_NOTE.format(kind="relaxed", method=method, extra="")
+    note = note or BARRIER_NOTE.format(kind="relaxed", method=method, extra="")
+    for atoms in dict.fromkeys(k[0] for k in scans):
+        caution = _barrier_caution(ens.mol, atoms, method)
+        if caution and caution not in note:
+            note += caution
+    out.attrs["note"] = note
     out.attrs["skipped"] = skipped
     return out
+
+
+# ----------------------------------------------------------------------------- barrier correction
+@dataclass(frozen=True)
+class BarrierCorrection:
+    """A scan barrier recomputed with single points at another level.
+
+    Attributes
+    ----------
+    label : str
+        The scanned dihedral.
+    scan_method, method : str
+        The level of the scan and of the single points.
+    minimum_angle, maximum_angle : float, degrees
+        The computed scan points used (the well's lowest point and the highest point of the
+        path to the other well).
+    barrier_scan, barrier : float, ``unit``
+        E(max) - E(min) at the scan level and at ``method``, both at the scan geometries.
+    correction : float, ``unit``
+        barrier - barrier_scan: add it to the scan's barriers between these wells.
+    unit : str
+    note : str
+    """
+
+    label: str
+    scan_method: str
+    method: str
+    minimum_angle: float
+    maximum_angle: float
+    barrier_scan: float
+    barrier: float
+    correction: float
+    unit: str
+    note: str
+
+
+def rescore_barrier(profile: TorsionProfile, angle_from: float | None = None,
+                    angle_to: float | None = None, method="dft", *, charge: int | None = None,
+                    multiplicity: int | None = None, unit: str = "kcal/mol",
+                    **backend_options) -> BarrierCorrection:
+    """Recompute a scan barrier with single points at another level (e.g. DFT).
+
+    The scan's computed geometries at the bottom of the starting well and at the top of the
+    path to the other well are recomputed with ``method``; the barrier at that level at the
+    scan-level geometries corrects the scan barrier for the scan method's error (for amide
+    C-N bonds GFN2-xTB is 1.4-3.2 kcal/mol low). Geometries are not re-optimized, so the
+    corrected barrier is an estimate: the maximum at the new level may lie elsewhere.
+
+    Parameters
+    ----------
+    profile : TorsionProfile
+        A relaxed scan with geometries (from :func:`scan_torsion`).
+    angle_from, angle_to : float, degrees, optional
+        Dihedrals in the two wells (default: the scan's starting minimum, and the other
+        well with the lowest barrier from it).
+    method : str
+        Single-point level (default "dft"; any backend name).
+    charge, multiplicity : int, optional
+    unit : str
+    **backend_options
+        Passed to the backend (``basis``, ``functional``, ``solvent``, ...).
+
+    Returns
+    -------
+    BarrierCorrection
+
+    Raises
+    ------
+    InputError
+        When the profile holds no geometries or no barrier separates the wells.
+    """
+    unit = normalize_unit(unit)
+    if profile.positions is None or profile.mol is None:
+        raise InputError("rescore_barrier needs a scan with geometries (from scan_torsion)")
+    start = profile.start_angle if angle_from is None else float(angle_from)
+    if start is None:
+        raise InputError("angle_from is needed: this profile has no starting minimum")
+    if angle_to is None:
+        best = None
+        for x, e, is_min in profile._extrema():
+            if not is_min or float(_circular_difference(x, start)) < 1.0:
+                continue
+            pb = _pair_barrier(profile, start, x)
+            if pb and not pb["same_well"] and (best is None or pb["barrier_forward"] < best["barrier_forward"]):
+                best = pb
+        pb = best
+    else:
+        pb = _pair_barrier(profile, start, float(angle_to))
+    if pb is None or pb["same_well"]:
+        raise InputError(f"no barrier separates the wells on the scan of {profile.label}")
+    ok = np.array([np.all(np.isfinite(p)) for p in profile.positions]) & np.isfinite(profile.energies)
+    angles = np.asarray(profile.achieved_angles if profile.achieved_angles is not None else profile.angles)
+
+    def nearest(target, pick):
+        d = np.array([float(_circular_difference(a, target)) for a in angles])
+        window = ok & (d <= max(profile.step, 1.0) * 1.01)
+        if not window.any():
+            window = ok & (d == d[ok].min())
+        idx = np.flatnonzero(window)
+        return int(idx[pick(profile.energies[idx])])
+
+    i_min = nearest(pb["from_min"], np.argmin)
+    i_max = nearest(pb["via_max"], np.argmax)
+    backend = _make_backend(method, profile.mol, backend_options.pop("solvent", profile.solvent),
+                            charge, multiplicity, backend_options)
+    e_min = backend.compute(profile.positions[i_min], gradient=False).energy
+    e_max = backend.compute(profile.positions[i_max], gradient=False).energy
+    barrier = float(convert(e_max - e_min, "hartree", unit))
+    scan = float(profile.energies[i_max] - profile.energies[i_min])
+    note = (f"single points ({_method_name(method)}) at the {profile.method} scan geometries of "
+            f"{angles[i_min]:.0f} and {angles[i_max]:.0f} degrees; not re-optimized")
+    return BarrierCorrection(profile.label, profile.method, _method_name(method),
+                             float(angles[i_min]), float(angles[i_max]), scan, barrier,
+                             barrier - scan, unit, note)

@@ -310,8 +310,8 @@ def test_spread_zero_sigma_and_seed(butanol):
     # the methyl group coupling hardly depends on the C1-C2 rotamer: robust; H8-H10 is not
     g = coupling_spread(butanol, [298.15], energy_sigma=1.0, n_samples=200, seed=3, by="group")
     g = g.set_index("group")
-    assert g.loc["H5/H6/H7(C0)–H8(C1)", "p95"] - g.loc["H5/H6/H7(C0)–H8(C1)", "p05"] < 0.2
-    assert g.loc["H8(C1)–H10(C2)", "p95"] - g.loc["H8(C1)–H10(C2)", "p05"] > 2.0
+    assert g.loc["H5/H6/H7(C0)–H8(C1,pro-R)", "p95"] - g.loc["H5/H6/H7(C0)–H8(C1,pro-R)", "p05"] < 0.2
+    assert g.loc["H8(C1,pro-R)–H10(C2)", "p95"] - g.loc["H8(C1,pro-R)–H10(C2)", "p05"] > 2.0
     pops = population_spread(butanol, 298.15, energy_sigma=1.0, n_samples=200, seed=3)
     assert pops.groupby("temperature")["mean"].sum().to_numpy() == pytest.approx([1.0], abs=1e-12)
     assert (pops["p05"] <= pops["p95"]).all()

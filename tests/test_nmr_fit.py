@@ -127,7 +127,7 @@ def test_noe_observations_join_the_fit(butanol, synthetic):
     noe = noe_distances(butanol, 298.15, pairs=[(5, 10), (5, 11)], populations=pops)
     obs = {("J", 8, 10): synthetic[(8, 10)]}
     for row in noe.itertuples():
-        obs[("noe", row.atom_a, row.atom_b)] = (float(row[7]), 0.05)
+        obs[("noe", row.atom_a, row.atom_b)] = (float(noe.loc[row.Index, 298.15]), 0.05)
     fit = fit_populations(butanol, obs, n_bootstrap=0)
     np.testing.assert_allclose(fit.populations.to_numpy(), TRUTH, atol=0.02)
     assert set(fit.residuals["unit"]) == {"Hz", "angstrom"}
@@ -199,3 +199,45 @@ def test_couplings_command(butanol, synthetic, tmp_path, capsys):
     status = main(["couplings", str(sdf), "--observed", str(tmp_path / "missing.csv")])
     err = capsys.readouterr().err
     assert status == 2 and err.startswith("confpop: error:") and err.count("\n") == 1
+
+
+# ----------------------------------------------------------------------------- rotamer families
+def test_underdetermined_fit_reports_the_rotamer_families():
+    # Methyl beta-D-glucopyranoside, MMFF94 conformers (ring, hydroxyl and hydroxymethyl
+    # rotamers): two couplings J(H5,H6R), J(H5,H6S) cannot fix dozens of conformer
+    # populations, but they do fix the three hydroxymethyl rotamer families (gg / gt / tg =
+    # g- / g+ / t of O5-C5-C6-O6, atoms 3-4-5-6). Synthetic data from known family populations
+    # (0.55 / 0.40 / 0.05, a typical gg/gt/tg split for glucosides in water [from memory]) with
+    # the conformers of each family in their Boltzmann proportions; the fit must give them back.
+    from rdkit.Chem import AllChem
+    from confpop.torsion import dihedral_angle
+    mol = Chem.AddHs(Chem.MolFromSmiles("CO[C@@H]1O[C@H](CO)[C@@H](O)[C@H](O)[C@H]1O"))
+    AllChem.EmbedMultipleConfs(mol, 40, randomSeed=3)
+    energies = np.array([e for _, e in AllChem.MMFFOptimizeMoleculeConfs(mol, maxIters=5000)])
+    ens = Ensemble.from_mol(mol, energies=energies, level="mmff94", unit="kcal/mol")
+    ids = ens.ids()
+    omega = np.array([dihedral_angle(ens.positions(c), (3, 4, 5, 6)) for c in ids])
+    family = np.where(np.abs(omega) >= 120, "t", np.where(omega >= 0, "g+", "g-"))
+    truth = {"g-": 0.55, "g+": 0.40, "t": 0.05}
+    boltz = ens.populations([298.15])[298.15].to_numpy()
+    p = np.zeros(len(ids))
+    for f, share in truth.items():
+        m = family == f
+        assert m.any()
+        p[m] = share * boltz[m] / boltz[m].sum()
+    table = couplings(ens)
+    observed = {}
+    for h6 in (18, 19):
+        row = table[(table.atom_a == 17) & (table.atom_b == h6)]
+        observed[(17, h6)] = float(row[ids].to_numpy()[0] @ p)
+    fit = fit_populations(ens, observed, sigma=0.3, n_bootstrap=100, seed=1)
+    assert "underdetermined" in fit.warning
+    assert "rotamer-family populations" in fit.warning
+    fam = fit.families[fit.families.torsion == "O3-C4-C5-O6"].set_index("family")
+    assert fam["determined"].all()
+    for f, share in truth.items():
+        assert fam.loc[f, "population"] == pytest.approx(share, abs=0.03)
+        assert 0.0 < fam.loc[f, "population_std"] < 0.1
+    # the methyl-ether torsion does not touch these couplings: not determined
+    other = fit.families[fit.families.torsion == "C0-O1-C2-O3"]
+    assert len(other) and not other["determined"].any()

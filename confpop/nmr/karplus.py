@@ -59,6 +59,8 @@ from ..errors import InputError
 __all__ = [
     "KarplusParameters",
     "GeneralizedKarplus",
+    "ExtendedKarplus",
+    "SUBSTITUENT_SETS",
     "PARAMETER_SETS",
     "HUGGINS_ELECTRONEGATIVITY",
     "get_parameters",
@@ -232,7 +234,94 @@ class GeneralizedKarplus:
         return total
 
 
-ParameterSet = Union[KarplusParameters, GeneralizedKarplus]
+@dataclass(frozen=True)
+class ExtendedKarplus:
+    """The extended Karplus equation of Donders, de Leeuw and Altona (1989) for 3J(H,H) in
+    H-C-C-H, with substituent terms that scale the cos(2 phi) amplitude.
+
+    Attributes
+    ----------
+    name : str
+    c00, c01, c10, c20, c21, s211 : float, Hz
+    p7 : float
+        Weight of the beta-substituent correction used to build each substituent's
+        lambda from Huggins electronegativities (the HLA set B rule, see Notes).
+    reference : str
+
+    Notes
+    -----
+    .. math::
+
+        ^3J = c_{00} + c_{01}\\sum_i\\lambda_i + c_{10}\\cos\\phi
+              + (c_{20} + c_{21}\\sum_i\\lambda_i)\\cos 2\\phi
+              + s_{211}\\sum_i \\xi_i\\lambda_i^2 \\sin 2\\phi
+
+    The published coefficients go with Altona's empirical group substituent constants
+    lambda; those tables were not available here, so lambda is built as in the HLA equation
+    (Huggins electronegativity difference of the alpha atom minus p7 times those of its beta
+    atoms) and xi is the HLA orientation sign (:func:`orientation_sign`). The equation keeps
+    J(phi, {xi}) = J(-phi, {-xi}). With that lambda the set reproduces 13 measured couplings
+    of ethyl and propyl fragments with a mean absolute error of 0.19 Hz where the HLA sets
+    give 0.92 Hz (see ``tests/test_nmr_karplus.py`` and README "Alkyl couplings"); it is used
+    for acyclic CH3-CH2, CH3-CH3 and CH2-CH2 fragments only.
+
+    References
+    ----------
+    L. A. Donders, F. A. A. M. de Leeuw, C. Altona, Magn. Reson. Chem. 1989, 27, 556
+    ["Relationship between proton-proton NMR coupling constants
+    and substituent electronegativities IV. An extended Karplus equation accounting for
+    interactions between substituents ..."; title and coefficients seen on a university NMR
+    course page (Colby College) quoting the paper; journal, volume and page from memory].
+
+    Examples
+    --------
+    >>> dad = get_parameters("donders-altona-1989")
+    >>> round(float(dad.j(180.0)), 2)      # ethane, anti: c00 - c10 + c20
+    15.14
+    """
+
+    name: str
+    c00: float
+    c01: float
+    c10: float
+    c20: float
+    c21: float
+    s211: float
+    p7: float = 0.14
+    pathway: str = "H-C-C-H"
+    reference: str = ("L. A. Donders, F. A. A. M. de Leeuw, C. Altona, Magn. Reson. Chem. "
+                      "1989, 27, 556 [journal details from memory]")
+
+    def __post_init__(self):
+        for field in ("c00", "c01", "c10", "c20", "c21", "s211", "p7"):
+            value = getattr(self, field)
+            if not np.isfinite(value):
+                raise InputError(f"extended Karplus parameter {field} must be finite, "
+                                 f"got {value!r}")
+            object.__setattr__(self, field, float(value))
+
+    def group_electronegativity(self, delta_alpha: float, delta_beta: Iterable[float] = ()) -> float:
+        """lambda of a substituent: alpha - p7 * sum(beta) (Huggins differences to H)."""
+        return float(delta_alpha) - self.p7 * float(sum(delta_beta))
+
+    def j(self, phi, substituents: Sequence[tuple[float, float]] = ()) -> np.ndarray:
+        """Coupling (Hz) at H-C-C-H dihedral ``phi`` (degrees); ``substituents`` as
+        (lambda, xi) pairs, xi may be an array broadcasting with ``phi``."""
+        phi = np.radians(_as_array(phi))
+        lam = 0.0
+        skew = 0.0
+        for delta, xi in substituents:
+            lam = lam + float(delta)
+            skew = skew + _as_array(xi) * float(delta) ** 2
+        return (self.c00 + self.c01 * lam + self.c10 * np.cos(phi)
+                + (self.c20 + self.c21 * lam) * np.cos(2.0 * phi)
+                + self.s211 * skew * np.sin(2.0 * phi))
+
+
+ParameterSet = Union[KarplusParameters, GeneralizedKarplus, ExtendedKarplus]
+
+#: the parameter-set classes whose equation has per-substituent terms
+SUBSTITUENT_SETS = (GeneralizedKarplus, ExtendedKarplus)
 
 _HLA = GeneralizedKarplus.__dataclass_fields__["reference"].default
 
@@ -249,6 +338,10 @@ PARAMETER_SETS: dict[str, ParameterSet] = {
                                      reference=_HLA + "; set D, three non-H substituents"),
     "haasnoot-4": GeneralizedKarplus("haasnoot-4", 13.24, -0.91, 0.0, 0.53, -2.41, 15.5, 0.19, 4,
                                      reference=_HLA + "; set E, four non-H substituents"),
+    # Donders, de Leeuw, Altona 1989 (see ExtendedKarplus): c00, c01, c10, c20, c21, s211
+    # [S: a university NMR course page quoting the paper's "chemical group" coefficients]
+    "donders-altona-1989": ExtendedKarplus("donders-altona-1989", 7.82, -0.79, -0.78, 6.54,
+                                           -0.64, 0.70),
     "karplus-1963": KarplusParameters(
         "karplus-1963", 10.0, -1.0, 2.0, "H-C-C-H",
         reference="M. Karplus, J. Am. Chem. Soc. 1963, 85, 2870, doi:10.1021/ja00901a059; "
@@ -301,7 +394,7 @@ def get_parameters(parameters) -> ParameterSet:
     InputError
         For an unknown name or a malformed coefficient list.
     """
-    if isinstance(parameters, (KarplusParameters, GeneralizedKarplus)):
+    if isinstance(parameters, (KarplusParameters, GeneralizedKarplus, ExtendedKarplus)):
         return parameters
     if isinstance(parameters, str):
         key = parameters.strip().lower()

@@ -86,7 +86,7 @@ def _effective(s: np.ndarray, weights: np.ndarray, averaging: str) -> np.ndarray
 
 
 def noe_distances(ens, temperatures, pairs=None, cutoff: float = 5.0, averaging: str = "r-6",
-                  energy: str = "auto", populations=None) -> pd.DataFrame:
+                  energy: str = "auto", populations=None, species: bool = True) -> pd.DataFrame:
     """Population-averaged effective H-H distances for NOE comparison.
 
     Parameters
@@ -104,14 +104,19 @@ def noe_distances(ens, temperatures, pairs=None, cutoff: float = 5.0, averaging:
     energy : str
         Passed to ``ens.populations``.
     populations : pandas.DataFrame, optional
-        Conformer id x temperature weights to use instead of ``ens.populations``.
+        Conformer id x temperature weights to use instead of ``ens.populations`` (used as
+        given: no species split).
+    species : bool
+        True (default): average within each species (conformers across a slow amide or
+        biaryl rotation, see :mod:`confpop.species`); one block of rows per species.
 
     Returns
     -------
     pandas.DataFrame
-        One row per pair of proton groups: ``atom_a``, ``atom_b`` (lowest index of each
-        group), ``group_a``, ``group_b`` (labels), ``n_a``, ``n_b`` (protons per group), then
-        one float-keyed column per temperature with r_eff in angstrom. Sorted by r_eff.
+        One row per pair of proton groups (and species): ``atom_a``, ``atom_b`` (lowest index
+        of each group), ``group_a``, ``group_b`` (labels), ``n_a``, ``n_b`` (protons per
+        group), ``species`` (0 when there is one), then one float-keyed column per
+        temperature with r_eff in angstrom. Sorted by species, then r_eff.
 
     Notes
     -----
@@ -133,6 +138,7 @@ def noe_distances(ens, temperatures, pairs=None, cutoff: float = 5.0, averaging:
     if not cutoff > 0:
         raise InputError(f"cutoff must be > 0 angstrom, got {cutoff}")
     mol, ids = _mol_and_ids(ens)
+    own_weights = populations is None
     if populations is None:
         if not hasattr(ens, "populations"):
             raise InputError("a bare molecule needs populations= (conformer id x temperature)")
@@ -149,21 +155,33 @@ def noe_distances(ens, temperatures, pairs=None, cutoff: float = 5.0, averaging:
     if not gpairs:
         raise InputError("the molecule has fewer than two groups of inequivalent protons")
     s = np.array([group_distance_matrix(pos, groups[i].atoms, groups[j].atoms) for i, j in gpairs])
-    reff = _effective(s, weights, averaging)
     temps = [float(t) for t in weights_df.columns]
-    out = pd.DataFrame({
-        "atom_a": [groups[i].atoms[0] for i, _ in gpairs],
-        "atom_b": [groups[j].atoms[0] for _, j in gpairs],
-        "group_a": [groups[i].label for i, _ in gpairs],
-        "group_b": [groups[j].label for _, j in gpairs],
-        "n_a": [len(groups[i].atoms) for i, _ in gpairs],
-        "n_b": [len(groups[j].atoms) for _, j in gpairs],
-    })
-    for k, t in enumerate(temps):
-        out[t] = reff[:, k]
-    if pairs is None:
-        out = out[out[temps[0]] < cutoff]
-    return out.sort_values(temps[0], kind="stable").reset_index(drop=True)
+    split = None
+    if species and own_weights:
+        from .couplings import _species
+        split = _species(ens, conf_ids)
+    members = {0: np.ones(len(conf_ids), bool)} if split is None else \
+        {int(v): (split.to_numpy() == v) for v in sorted(split.unique())}
+    blocks = []
+    for number, mask in members.items():
+        w = weights * mask[:, None]
+        w = w / w.sum(axis=0, keepdims=True)
+        reff = _effective(s, w, averaging)
+        out = pd.DataFrame({
+            "atom_a": [groups[i].atoms[0] for i, _ in gpairs],
+            "atom_b": [groups[j].atoms[0] for _, j in gpairs],
+            "group_a": [groups[i].label for i, _ in gpairs],
+            "group_b": [groups[j].label for _, j in gpairs],
+            "n_a": [len(groups[i].atoms) for i, _ in gpairs],
+            "n_b": [len(groups[j].atoms) for _, j in gpairs],
+            "species": number,
+        })
+        for k, t in enumerate(temps):
+            out[t] = reff[:, k]
+        if pairs is None:
+            out = out[out[temps[0]] < cutoff]
+        blocks.append(out.sort_values(temps[0], kind="stable"))
+    return pd.concat(blocks, ignore_index=True)
 
 
 def average_dipole(ens, temperatures, energy: str = "auto") -> pd.DataFrame:
