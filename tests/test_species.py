@@ -199,7 +199,9 @@ def test_couplings_command_shows_species_and_cautions(amide, tmp_path, capsys):
     payload = json.loads(capsys.readouterr().out)
     assert [s["species"] for s in payload["species"]] == [0, 1]
     assert {r["species"] for r in payload["couplings"]} == {0, 1}
-    assert main(["couplings", str(sdf), "--species", "7", "--observed", str(sdf)]) == 2
+    observed = tmp_path / "observed.csv"   # any well-formed file: the species check comes first
+    observed.write_text("atom_i,atom_j,J\n1,2,7.0\n")
+    assert main(["couplings", str(sdf), "--species", "7", "--observed", str(observed)]) == 2
     assert "--species must be one of [0, 1]" in capsys.readouterr().err
     assert main(["couplings", str(sdf), "--species", "1"]) == 2
     assert "needs --observed" in capsys.readouterr().err
