@@ -197,7 +197,7 @@ def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int
            n_trials: int | None = None, temperatures=DEFAULT_TEMPERATURES,
            min_population: float = MIN_POPULATION, screen_margin: float = SCREEN_MARGIN,
            energy_window: float | None = None, ff_window: float = 10.0,
-           screen_window: float | None = None, rmsd: float = 0.05, energy_tolerance: float = 0.05,
+           screen_window: float | None = None, rmsd: float = 0.2, energy_tolerance: float = 0.05,
            merge_mirror_images: bool = True, max_rounds: int = MAX_ROUNDS,
            target_completeness: float | None = TARGET_COMPLETENESS, sampling_method: str = "mmff94s",
            convergence: str = "tight", preoptimize: bool = False, preopt_margin: float = 2.0,
