@@ -1344,7 +1344,7 @@ def _unassigned_stereo(mol):
             i, j = sorted((bond.GetBeginAtomIdx(), bond.GetEndAtomIdx()))
             cumulene = info.type == Chem.StereoType.Bond_Cumulene_Even or _is_cumulated(mol, bond)
             what = "allene/cumulene axis" if cumulene else "double bond"
-            out.append(_StereoElement((i, j), f"bond {i}-{j}: unassigned {what}", cumulene))
+            out.append(_StereoElement((i, j), f"bond {i + 1}-{j + 1}: unassigned {what}", cumulene))
         # other kinds (square-planar, trigonal-bipyramidal, octahedral centres) are flagged
         # by RDKit without regard to identical ligands (SF6 would count): not checked
     return out
@@ -1481,7 +1481,7 @@ def _dihedral(p0, p1, p2, p3):
 def _element_text(mol, key):
     if len(key) == 1:
         return f"atom {_atom(mol, key[0])}"
-    return f"bond {key[0]}-{key[1]}"
+    return f"bond {key[0] + 1}-{key[1] + 1}"
 
 
 # --------------------------------------------------------------------------------------
@@ -1659,8 +1659,9 @@ def _signed(n):
 
 
 def _atom(mol, idx):
+    """"3 (N)": the atom's 1-based number (as molecule viewers count) and its element."""
     atom = mol.GetAtomWithIdx(int(idx))
-    return f"{idx} ({atom.GetSymbol()})"
+    return f"{int(idx) + 1} ({atom.GetSymbol()})"
 
 
 def _get_conformer(mol, conf_id, caller):

@@ -387,6 +387,7 @@ def integrity_problems(mol: Chem.Mol, conf_id: int, reference_stereo=None,
         after = square_planar_trans_pairs(mol, mol.GetConformer(conf_id).GetPositions())
         for centre, pairs in before.items():
             if after.get(centre) != pairs:
-                problems.append(f"square-planar arrangement at {label((centre, centre)).split('-')[0]} "
+                symbol = mol.GetAtomWithIdx(centre).GetSymbol()
+                problems.append(f"square-planar arrangement at {symbol}{centre + 1} (1-based) "
                                 "changed (cis/trans)")
     return problems

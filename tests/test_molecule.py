@@ -208,7 +208,7 @@ def test_xyz_frame_with_a_broken_bond_is_refused(tmp_path):
     rdMolTransforms.SetBondLength(mol.GetConformer(1), 1, 2, 3.0)
     path = tmp_path / "broken.xyz"
     write_xyz(path, mol, [0, 1])
-    with pytest.raises(InputError, match=r"frame 2 .* other bonds than frame 1 \(no bond 1 \(C\)-2 \(O\)\)"):
+    with pytest.raises(InputError, match=r"frame 2 .* other bonds than frame 1 \(no bond 2 \(C\)-3 \(O\)\)"):
         load_molecule(path)
 
 
@@ -275,7 +275,7 @@ def test_sdf_record_with_a_valence_error(tmp_path):
     assert bad != block
     path = tmp_path / "valence.sdf"
     path.write_text(block + "$$$$\n" + bad + "$$$$\n")
-    with pytest.raises(InputError, match=r"record 2 .*atom 0 \(C\) has valence 5, more than allowed"):
+    with pytest.raises(InputError, match=r"record 2 .*atom 1 \(C\) has valence 5, more than allowed"):
         load_molecule(path)
 
 
@@ -286,9 +286,9 @@ def test_sdf_record_with_a_valence_error(tmp_path):
     ("CC(C", r"'\(' branch is never closed"),
     ("CC)C", r"'\)' closes a branch"),
     ("C[Xx]", r"unknown element symbol 'Xx'"),
-    ("C(C)(C)(C)(C)C", r"atom 0 \(C\) has valence 5, more than allowed \(4\)"),
-    ("CC[N](C)(C)(C)C", r"atom 2 \(N\) has valence 5, more than allowed"),
-    ("c1cccc1", r"aromatic atoms 0 \(C\), 1 \(C\)"),
+    ("C(C)(C)(C)(C)C", r"atom 1 \(C\) has valence 5, more than allowed \(4\)"),
+    ("CC[N](C)(C)(C)C", r"atom 3 \(N\) has valence 5, more than allowed"),
+    ("c1cccc1", r"aromatic atoms 1 \(C\), 2 \(C\)"),
     ("*CC", r"atom 0 is a dummy atom"),
     (42, r"source must be a SMILES string, a file path or an RDKit Mol, got int"),
     (None, r"got NoneType"),
@@ -331,7 +331,7 @@ def test_overlapping_atoms_are_refused():
     mol = embedded("CCO")
     conf = mol.GetConformer()
     conf.SetAtomPosition(8, conf.GetAtomPosition(2))
-    with pytest.raises(InputError, match=r"atoms 2 \(O\) and 8 \(H\) are 0.00 angstrom apart"):
+    with pytest.raises(InputError, match=r"atoms 3 \(O\) and 9 \(H\) are 0.00 angstrom apart"):
         load_molecule(mol)
 
 
@@ -382,7 +382,7 @@ def test_overrides_that_fit_the_electron_count_are_kept():
     # one hydrogen atom has one electron: at most a doublet
     ("[H]", {"multiplicity": 4}, r"multiplicity=4 is impossible .* 1 electron \(charge 0\), which allows only multiplicity 2"),
     ("CCO", {"charge": 1}, r"charge=\+1 does not match .* formal charges add up to 0 \(no charged atoms\)"),
-    ("CC(=O)[O-]", {"charge": 0}, r"charge=0 does not match .* add up to -1 \(3 \(O\) -1\)"),
+    ("CC(=O)[O-]", {"charge": 0}, r"charge=0 does not match .* add up to -1 \(4 \(O\) -1\)"),
 ])
 def test_impossible_charge_or_multiplicity(smiles, kwargs, message):
     with pytest.raises(InputError, match=message):
@@ -434,14 +434,14 @@ def test_mmff_refuses_boron_and_names_the_atom():
     # RDKit's MMFF94 has no boron types (MMFF94 covers H C N O F Si P S Cl Br I + ions)
     assert not rdForceFieldHelpers.MMFFHasAllMoleculeParams(Chem.AddHs(Chem.MolFromSmiles(smiles)))
     for method in ("mmff94", "MMFF94s"):
-        with pytest.raises(InputError, match=r"MMFF94s? has no parameters for atom 1 \(B\)"):
+        with pytest.raises(InputError, match=r"MMFF94s? has no parameters for atom 2 \(B\)"):
             load_molecule(smiles, method=method)
     for method in (None, "uff", "gfn2"):  # UFF and GFN2-xTB cover boron
         assert load_molecule(smiles, method=method).GetNumAtoms() == 16  # C6H7BO2
 
 
 def test_mmff_refuses_tin_gfn_accepts_it():
-    with pytest.raises(InputError, match=r"MMFF94 has no parameters for atom 1 \(Sn\)"):
+    with pytest.raises(InputError, match=r"MMFF94 has no parameters for atom 2 \(Sn\)"):
         load_molecule("C[Sn](C)(C)C", method="mmff94")
     assert load_molecule("C[Sn](C)(C)C", method="gfn2").GetNumAtoms() == 17  # Sn is Z = 50
 
@@ -453,10 +453,10 @@ def test_mmff_typing_failure_without_foreign_element():
 
 
 def test_uff_and_gfn_coverage():
-    with pytest.raises(InputError, match=r"UFF has no parameters for atom 0 \(Xe\)"):
+    with pytest.raises(InputError, match=r"UFF has no parameters for atom 1 \(Xe\)"):
         load_molecule("[Xe]", method="uff")
     # uranium is Z = 92, beyond the GFN parametrization (Z = 1-86)
-    with pytest.raises(InputError, match=r"GFN2 has no parameters for atom 1 \(U\) .* Z = 1-86"):
+    with pytest.raises(InputError, match=r"GFN2 has no parameters for atom 2 \(U\) .* Z = 1-86"):
         load_molecule("F[U](F)(F)(F)(F)F", method="gfn2")
     assert load_molecule("F[U](F)(F)(F)(F)F").GetNumAtoms() == 7  # no method: no check
 
@@ -469,8 +469,8 @@ def test_unassigned_stereo_is_refused_with_a_list_and_a_way_out():
     with pytest.raises(InputError) as info:
         load_molecule("CC(O)C=CC")
     message = str(info.value)
-    assert "atom 1 (C): unassigned tetrahedral centre" in message
-    assert "bond 3-4: unassigned double bond" in message
+    assert "atom 2 (C): unassigned tetrahedral centre" in message
+    assert "bond 4-5: unassigned double bond" in message
     assert "--enumerate-stereo" in message and "stereoisomers()" in message
     assert "stereo='ignore'" in message
 
@@ -516,7 +516,7 @@ def test_small_ring_systems_are_not_taken_for_stereoisomers(smiles):
 
 
 def test_chiral_ring_system_is_one_open_element():
-    with pytest.raises(InputError, match=r"^1 stereo element .*atoms 3 \(C\), 6 \(C\): unassigned "
+    with pytest.raises(InputError, match=r"^1 stereo element .*atoms 4 \(C\), 7 \(C\): unassigned "
                                          r"configuration of the ring system \(two mirror-image forms\)"):
         load_molecule("CC1(C)C2CCC1(C)C(=O)C2")  # camphor
     # camphor has two stereoisomers, (1R,4R) and (1S,4S) [from memory]
@@ -543,7 +543,7 @@ def test_given_stereo_is_kept_after_adding_hydrogens():
 def test_stereo_ignore_records_what_is_open(caplog):
     with caplog.at_level(logging.WARNING, logger="confpop.molecule"):
         mol = load_molecule("CC(O)CC", stereo="ignore")
-    assert mol.GetProp("unassigned_stereo") == "atom 1 (C): unassigned tetrahedral centre"
+    assert mol.GetProp("unassigned_stereo") == "atom 2 (C): unassigned tetrahedral centre"
     assert "pick each configuration at random" in caplog.text
 
 
@@ -590,7 +590,7 @@ def test_conformers_of_different_configuration_are_refused():
     mirrored = conf.GetPositions() * np.array([-1.0, 1.0, 1.0])
     for i, xyz in enumerate(mirrored):
         conf.SetAtomPosition(i, xyz.tolist())
-    with pytest.raises(InputError, match=r"conformer 1 is a different stereoisomer \(atom 1 \(C\) is S"):
+    with pytest.raises(InputError, match=r"conformer 1 is a different stereoisomer \(atom 2 \(C\) is S"):
         load_molecule(mol)
 
 
@@ -622,7 +622,7 @@ def test_flags_contradicting_coordinates_are_refused():
     conf = mol.GetConformer()
     for i, xyz in enumerate(conf.GetPositions() * np.array([-1.0, 1.0, 1.0])):
         conf.SetAtomPosition(i, xyz.tolist())
-    with pytest.raises(InputError, match=r"stereo flags say atom 1 \(C\) is R, but the coordinates"):
+    with pytest.raises(InputError, match=r"stereo flags say atom 2 \(C\) is R, but the coordinates"):
         load_molecule(mol)
 
 
