@@ -112,3 +112,16 @@ def test_conformer_of_a_chiral_molecule_is_not_symmetric():
     AllChem.EmbedMolecule(mol, randomSeed=5)
     AllChem.MMFFOptimizeMolecule(mol)
     assert symmetry_of_conformer(mol, mol.GetConformer().GetPositions()) == ""
+
+
+def test_square_planar_trans_pairs_tell_cis_from_trans():
+    # square-planar geometry by hand: ligands at 0, 90, 180, 270 degrees (textbook)
+    from confpop.prune import square_planar_trans_pairs
+    mol = Chem.MolFromSmiles("N[Pt@SP1](N)(Cl)Cl")
+    square = np.array([[2.0, 0, 0], [0, 2.0, 0], [-2.0, 0, 0], [0, -2.0, 0]])
+    pos = np.zeros((5, 3))
+    pos[[0, 2, 3, 4]] = square[[0, 1, 2, 3]]      # N, N adjacent (cis)
+    cis = square_planar_trans_pairs(mol, pos)
+    pos[[0, 2, 3, 4]] = square[[0, 2, 1, 3]]      # N, N opposite (trans)
+    trans = square_planar_trans_pairs(mol, pos)
+    assert cis == {1: {(0, 3), (2, 4)}} and trans == {1: {(0, 2), (3, 4)}}
