@@ -28,3 +28,23 @@ def rotamers(smiles, torsion, angles, seed=7):
         conf.SetId(k)
         out.AddConformer(conf, assignId=False)
     return out, np.array(energies)
+
+
+def mmff_ensemble(smiles, n=40, seed=1, level="mmff94", solvent=None, energy_gap=0.05):
+    """An ensemble of MMFF94 minima from ``n`` ETKDG starts, one structure per distinct
+    energy (kcal/mol apart by more than ``energy_gap``), energies stored at ``level``."""
+    from confpop.ensemble import Ensemble
+    mol = Chem.AddHs(Chem.MolFromSmiles(smiles))
+    AllChem.EmbedMultipleConfs(mol, n, randomSeed=seed)
+    energies = np.array([e for _, e in AllChem.MMFFOptimizeMoleculeConfs(mol, maxIters=5000)])
+    keep, seen = [], []
+    for cid, e in enumerate(energies):        # one structure per distinct MMFF energy
+        if all(abs(e - s) > energy_gap for s in seen):
+            keep.append(cid)
+            seen.append(e)
+    out = Chem.Mol(mol)
+    out.RemoveAllConformers()
+    for cid in keep:
+        out.AddConformer(Chem.Conformer(mol.GetConformer(cid)), assignId=True)
+    return Ensemble.from_mol(out, energies=energies[keep], level=level, unit="kcal/mol",
+                             solvent=solvent)

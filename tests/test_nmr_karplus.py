@@ -13,6 +13,7 @@ from rdkit.Chem import rdMolTransforms
 
 from confpop.errors import InputError
 from confpop.nmr import karplus as kp
+from nmr_molecules import mmff_ensemble
 
 
 # ----------------------------------------------------------------------------- published values
@@ -242,20 +243,7 @@ ALKYL = [
 
 
 def _mmff_ensemble(smiles, n=30, seed=1):
-    from confpop.ensemble import Ensemble
-    mol = Chem.AddHs(Chem.MolFromSmiles(smiles))
-    AllChem.EmbedMultipleConfs(mol, n, randomSeed=seed)
-    energies = np.array([e for _, e in AllChem.MMFFOptimizeMoleculeConfs(mol, maxIters=5000)])
-    keep, seen = [], []
-    for cid, e in enumerate(energies):        # one structure per distinct MMFF energy
-        if all(abs(e - s) > 0.01 for s in seen):
-            keep.append(cid)
-            seen.append(e)
-    out = Chem.Mol(mol)
-    out.RemoveAllConformers()
-    for cid in keep:
-        out.AddConformer(Chem.Conformer(mol.GetConformer(cid)), assignId=True)
-    return Ensemble.from_mol(out, energies=energies[keep], level="mmff94", unit="kcal/mol")
+    return mmff_ensemble(smiles, n=n, seed=seed, energy_gap=0.01)
 
 
 def _fragment_average(ens, carbons, parameters):

@@ -19,23 +19,7 @@ from confpop.nmr import (MethodWarning, average_couplings, couplings, fit_popula
                          method_cautions)
 from confpop.species import slow_bonds, species_populations, species_table
 from confpop.torsion import interconversion, torsion_changes
-
-
-def mmff_ensemble(smiles, n=40, seed=1, level="mmff94", solvent=None):
-    mol = Chem.AddHs(Chem.MolFromSmiles(smiles))
-    AllChem.EmbedMultipleConfs(mol, n, randomSeed=seed)
-    energies = np.array([e for _, e in AllChem.MMFFOptimizeMoleculeConfs(mol, maxIters=5000)])
-    keep, seen = [], []
-    for cid, e in enumerate(energies):      # one structure per distinct MMFF energy
-        if all(abs(e - s) > 0.05 for s in seen):
-            keep.append(cid)
-            seen.append(e)
-    out = Chem.Mol(mol)
-    out.RemoveAllConformers()
-    for cid in keep:
-        out.AddConformer(Chem.Conformer(mol.GetConformer(cid)), assignId=True)
-    return Ensemble.from_mol(out, energies=energies[keep], level=level, unit="kcal/mol",
-                             solvent=solvent)
+from nmr_molecules import mmff_ensemble
 
 
 @pytest.mark.parametrize("smiles, kinds", [
