@@ -72,7 +72,7 @@ BATCH_SUFFIXES = (".smi", ".smiles", ".csv", ".tsv", ".sdf", ".sd")
 
 _PARALLEL = ("auto", "molecules", "conformers")
 # arguments of pipeline.search that search_many sets itself
-_RESERVED = ("molecule", "executor", "workers", "store", "progress")
+_RESERVED = ("molecule", "executor", "workers", "store", "progress", "allow_long")
 _PICKLE_OPTIONS = Chem.PropertyPickleOptions.AllProps | Chem.PropertyPickleOptions.CoordsAsDouble
 _SOURCE_PROP = "batch_input"  # Mol property naming where a record came from
 
@@ -635,8 +635,10 @@ def _search_unit(item: dict) -> dict:
     try:
         molecule = _decode(item["molecule"])
         _check_budget(molecule, item)
+        # the budget was checked just above with the batch's own policy
         ens = search(molecule, method=item["method"], solvent=item["solvent"], seed=item["seed"],
-                     workers=1, store=item["store"], progress=False, **item["options"])
+                     workers=1, store=item["store"], progress=False, allow_long=True,
+                     **item["options"])
     except Exception as exc:  # one molecule's failure must not stop the batch
         return {"ok": False, "error_type": type(exc).__name__, "message": str(exc),
                 "seconds": time.perf_counter() - start}
@@ -707,7 +709,7 @@ def _run_conformers(entries, settings, executor, workers, store, progress, write
                 _check_budget(molecule, settings)
                 ens = search(molecule, method=settings["method"], solvent=settings["solvent"],
                              seed=settings["seed"], store=store, progress=progress, **where,
-                             **settings["options"])
+                             allow_long=True, **settings["options"])
             except Exception as exc:  # one molecule's failure must not stop the batch
                 value = {"ok": False, "error_type": type(exc).__name__, "message": str(exc),
                          "seconds": time.perf_counter() - start}

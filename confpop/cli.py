@@ -392,7 +392,7 @@ def _ensemble_work(args, temps, progress, folder) -> int:
         ens = search(source, method=args.method, solvent=args.solvent, seed=args.seed,
                      n_trials=args.trials, energy_window=args.energy_window,
                      temperatures=temps, min_population=args.min_population,
-                     check_minima=not args.no_minimum_check,
+                     check_minima=not args.no_minimum_check, allow_long=args.allow_long_run,
                      screen_margin=args.screen_margin,
                      max_rounds=args.rounds, screen_window=args.screen_window,
                      target_completeness=args.completeness or None,

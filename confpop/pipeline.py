@@ -204,7 +204,7 @@ def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int
            charge: int | None = None, multiplicity: int | None = None,
            stereo: str = "refuse", keep_largest_fragment: bool = False,
            force_trans_amides: bool = True, method_options: dict | None = None,
-           check_minima: bool = True, executor=None, workers: int | None = None, store=None,
+           check_minima: bool = True, allow_long: bool = False, executor=None, workers: int | None = None, store=None,
            progress: bool = False) -> Ensemble:
     """Find the conformers of a molecule that matter and rank them.
 
@@ -246,6 +246,9 @@ def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int
         One row with degeneracy 2 per mirror-image pair (True) or two rows (False).
     convergence : str
         Optimizer preset ("loose", "normal", "tight", "verytight").
+    allow_long : bool
+        Run even when the cost estimate (:mod:`confpop.budget`: atoms, rotatable bonds,
+        trials, method) is above its bound of 2 CPU hours or ``n_trials`` above 10,000.
     check_minima : bool
         Re-optimize every optimized conformer that has a mirror plane or a symmetry axis
         from a small symmetry-breaking displacement; a saddle point (the re-optimized
@@ -303,6 +306,9 @@ def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int
     mol = load_molecule(molecule, charge=charge, multiplicity=multiplicity, stereo=stereo,
                         keep_largest_fragment=keep_largest_fragment, method=method)
     _refuse_open_square_planar(mol)
+    from .budget import check_search_budget
+    check_search_budget(mol, method=method, n_trials=n_trials, allow_long=allow_long,
+                        label=Chem.MolToSmiles(Chem.RemoveHs(mol))[:40], option="allow_long=True")
     charge = mol.GetIntProp("charge") if mol.HasProp("charge") else Chem.GetFormalCharge(mol)
     multiplicity = mol.GetIntProp("multiplicity") if mol.HasProp("multiplicity") else 1
     if solvent is not None and "solvent" not in backend_class(method).capabilities:

@@ -45,3 +45,10 @@ def test_screen_window_is_the_population_cut_plus_the_margin():
     screen = [p for p in ens.provenance if p["step"] == "screen"][0]
     assert screen["window_kcal"] == pytest.approx(
         population_energy_cut(323.15, MIN_POPULATION) + SCREEN_MARGIN)
+
+
+def test_plain_search_refuses_a_runaway_job():
+    # a 30-residue peptide-like chain (invented): far above the 2 CPU-hour estimate bound
+    chain = "N" + "CC(=O)N" * 60 + "C"
+    with pytest.raises(cp.InputError, match="would take too long.*allow_long=True"):
+        cp.search(chain)
