@@ -318,6 +318,10 @@ def _ensemble_table_text(ens, temps, views=None) -> str:
     head = f"{'conf':>4}  {'dE kcal/mol':>11}  {'deg':>3}  " + "  ".join(
         f"{'p' + ('_' + name if name else '') + '(' + format(t, 'g') + ' K)':>12}" for name, t in labels)
     head += "".join(f"  {label + ' (deg)':>18}" for label, _ in torsions)
+    table = ens.table()
+    species = table["species"] if "species" in table.columns and table["species"].nunique() > 1 else None
+    if species is not None:
+        head += f"  {'species':>7}"
     lines = [head]
     mol = ens.mol
     for cid in ens.ids():
@@ -325,7 +329,14 @@ def _ensemble_table_text(ens, temps, views=None) -> str:
             f"{views[name].loc[cid, t]:>12.3f}" for name, t in labels)
         line += "".join(f"  {rdMolTransforms.GetDihedralDeg(mol.GetConformer(cid), *atoms):>18.0f}"
                         for _, atoms in torsions)
+        if species is not None:
+            line += f"  {int(species[cid]):>7}"
         lines.append(line)
+    if species is not None:
+        shares = ens.species(temps[0])
+        lines.append("species (slow exchange: NMR sees each as its own set of signals; "
+                     f"shares at {temps[0]:g} K): " + "; ".join(
+                         f"{k}: {row['species_label']} {row[temps[0]]:.3f}" for k, row in shares.iterrows()))
     failed = [c for c in ens.ids(active=False) if c not in set(ens.ids())]
     table = ens.raw_table
     for cid in failed:

@@ -272,3 +272,13 @@ def test_exchange_summary_scans_the_slow_bond_once(amide):
     # the pair inside species 1 differs in several fast torsions only: skipped, as before
     assert [tuple(s[:2]) for s in out.attrs["skipped"]] == [(b, c)] or \
         [tuple(s[:2]) for s in out.attrs["skipped"]] == [(c, b)]
+
+
+def test_ensemble_command_shows_species(capsys):
+    # a tertiary amide: E and Z exchange slowly (two NMR signal sets; amide C-N barriers
+    # ~15-21 kcal/mol, from memory), so the ensemble table shows them as two species
+    from confpop.cli import main
+    assert main(["ensemble", "CC(=O)N(C)Cc1ccccc1", "--method", "mmff94s", "--seed", "1"]) == 0
+    out = capsys.readouterr().out
+    assert "species" in out.splitlines()[1]
+    assert "species (slow exchange" in out and "cis to C5" in out and "trans to C5" in out
