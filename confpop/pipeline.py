@@ -305,6 +305,7 @@ def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int
     t_start = time.perf_counter()
     mol = load_molecule(molecule, charge=charge, multiplicity=multiplicity, stereo=stereo,
                         keep_largest_fragment=keep_largest_fragment, method=method)
+    _warn_implicit_ligand_hydrogens(mol)
     _refuse_open_square_planar(mol)
     from .budget import check_search_budget
     check_search_budget(mol, method=method, n_trials=n_trials, allow_long=allow_long,
@@ -419,6 +420,31 @@ def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int
 
 # d8 centres that are square planar with four ligands (Pt(II), Pd(II), Au(III), Rh(I), Ir(I))
 _SQUARE_PLANAR_METALS = frozenset({78, 46, 79, 45, 77})
+
+
+def _warn_implicit_ligand_hydrogens(mol: Chem.Mol) -> None:
+    """A ligand atom written without brackets next to a metal ("N[Pt]") gets the hydrogens
+    of its normal valence minus the metal bond: an amido NH2, not an ammine NH3. Say so."""
+    import warnings
+
+    from .backends.forcefield import _has_metal, is_metal
+    from .errors import ConfpopWarning
+
+    if not _has_metal(mol):
+        return
+    for atom in mol.GetAtoms():
+        if atom.GetAtomicNum() not in (7, 8, 15, 16) or atom.GetFormalCharge() != 0:
+            continue
+        metals = [n for n in atom.GetNeighbors() if is_metal(n.GetAtomicNum())]
+        if not metals or any(b.GetBondType() == Chem.BondType.DATIVE for b in atom.GetBonds()):
+            continue
+        n_h = atom.GetTotalNumHs(includeNeighbors=True)
+        full = {7: "NH3", 8: "OH2", 15: "PH3", 16: "SH2"}[atom.GetAtomicNum()]
+        warnings.warn(
+            f"{atom.GetSymbol()}{atom.GetIdx() + 1} bonded to {metals[0].GetSymbol()}"
+            f"{metals[0].GetIdx() + 1} was read with {n_h} H (an anionic ligand such as amido "
+            f"or hydroxido); for a neutral ligand write [{full}] or a dative bond, e.g. "
+            f"{atom.GetSymbol()}->[{metals[0].GetSymbol()}]", ConfpopWarning, stacklevel=3)
 
 
 def _refuse_open_square_planar(mol: Chem.Mol) -> None:

@@ -80,20 +80,20 @@ def test_cisplatin_stays_cis_square_planar(capfd):
     # cis-diamminedichloridoplatinum(II): square planar, the two N cis (textbook
     # coordination chemistry); MMFF94s has no Pt parameters, so the trial structures are
     # relaxed with GFN-FF and the search says so; RDKit's C++ typer lines stay off stderr
-    ens = cp.search("N[Pt@SP1](N)(Cl)Cl", seed=1, n_trials=10, max_rounds=2)
+    ens = cp.search("[NH3][Pt@SP1]([NH3])(Cl)Cl", seed=1, n_trials=10, max_rounds=2)
     sample = [p for p in ens.provenance if p["step"] == "sample"][0]
     assert sample["force_field"] == "gfnff" and "Pt2" in sample["force_field_reason"]
     assert len(ens) >= 1
     for cid in ens.ids():
         pos = ens.positions(cid)
-        assert _angle(pos, 0, 1, 2) < 135.0                       # N-Pt-N cis
+        assert _angle(pos, 0, 1, 2) < 135.0                       # N-Pt-N cis (99 here)
         assert _angle(pos, 0, 1, 3) > 135.0 and _angle(pos, 2, 1, 4) > 135.0  # N trans to Cl
     assert "UFFTYPER" not in capfd.readouterr().err
 
 
 def test_unassigned_square_planar_centre_is_refused():
     with pytest.raises(cp.InputError, match=r"Pt2 has four unlike ligands.*\[Pt@SP1\]"):
-        cp.search("N[Pt](N)(Cl)Cl")
+        cp.search("[NH3][Pt]([NH3])(Cl)Cl")
 
 
 def test_hypervalent_phosphorus_is_sampled_with_uff(capfd):
@@ -125,3 +125,10 @@ def test_square_planar_trans_pairs_tell_cis_from_trans():
     pos[[0, 2, 3, 4]] = square[[0, 2, 1, 3]]      # N, N opposite (trans)
     trans = square_planar_trans_pairs(mol, pos)
     assert cis == {1: {(0, 3), (2, 4)}} and trans == {1: {(0, 2), (3, 4)}}
+
+
+def test_ligand_written_without_brackets_is_flagged():
+    # "N[Pt]" is an amido ligand (NH2, 2 H) to RDKit; cisplatin's ammines are [NH3]
+    with pytest.warns(cp.errors.ConfpopWarning, match=r"N1 bonded to Pt2 was read with 2 H"):
+        with pytest.raises(cp.InputError):              # and the arrangement is still open
+            cp.search("[NH3][Pt]([NH3])(Cl)Cl")

@@ -71,9 +71,13 @@ def _uff_types(mol: Chem.Mol) -> bool:
 SAMPLING_FALLBACKS = ("uff", "gfnff")
 
 
+def is_metal(z: int) -> bool:
+    """d- and f-block elements (Sc-Zn, Y-Cd, La-Hg, Ac-Cn)."""
+    return 21 <= z <= 30 or 39 <= z <= 48 or 57 <= z <= 80 or 89 <= z <= 112
+
+
 def _has_metal(mol: Chem.Mol) -> bool:
-    return any(21 <= z <= 30 or 39 <= z <= 48 or 57 <= z <= 80 or 89 <= z <= 112
-               for z in (a.GetAtomicNum() for a in mol.GetAtoms()))
+    return any(is_metal(a.GetAtomicNum()) for a in mol.GetAtoms())
 
 
 def sampling_force_field(mol: Chem.Mol, preferred: str = "mmff94s") -> tuple[str, str]:
