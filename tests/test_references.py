@@ -60,11 +60,11 @@ def test_no_tracked_file_cites_an_outside_references_file():
                            capture_output=True, text=True)
     if probe.returncode != 0:
         pytest.skip("not a git checkout")
-    name = "REFERENCES" + ".md"  # built here so that this file does not match itself
+    name = "REFERENCE" + "S.md"  # built here so that this file does not match itself
     found = subprocess.run([git, "grep", "-n", "-F", name], cwd=ROOT, capture_output=True,
                            text=True)
     assert found.returncode == 1, f"{name} is cited in tracked files:\n{found.stdout}"
-    # also the bare upper-case name used as a citation ("... REFERENCES]")
+    # also the bare upper-case name, as in a citation "[from memory; <name>]"
     bare = subprocess.run([git, "grep", "-n", "-w", "REFERENCE" + "S"], cwd=ROOT,
                           capture_output=True, text=True)
     assert bare.returncode == 1, f"an outside notes file is cited:\n{bare.stdout}"
