@@ -21,6 +21,7 @@ from confpop.errors import InputError  # noqa: E402
 from confpop.freeenergy import rescore  # noqa: E402
 from confpop.optimize import optimize_structure  # noqa: E402
 from confpop.units import EBOHR_DEBYE, convert  # noqa: E402
+from reference_values import value as refval  # noqa: E402
 
 pytestmark = pytest.mark.slow
 
@@ -147,20 +148,20 @@ def test_errors(water):
 # ---------------------------------------------------------------------------------- physics
 def test_ethane_barrier():
     # ethane rotational barrier 2.9 kcal/mol (Weiss & Leroi, J. Chem. Phys. 1968, 48, 962,
-    # REFERENCES.md [S]); B3LYP-D3(BJ)/def2-SVP single points at GFN2 geometries give 2.93,
+    # primary); B3LYP-D3(BJ)/def2-SVP single points at GFN2 geometries give 2.93,
     # GFN2 itself 2.59 [measured here]
     staggered = _gfn2_minimum("CC", (2, 0, 1, 5), 60.0)
     eclipsed = _gfn2_minimum("CC", (2, 0, 1, 5), 0.0, constrain=True)
     ens = rescore(_two_conformers(staggered, eclipsed, [1, 1]), "dft", basis="def2-svp",
                   grid_level=1, workers=1)
     assert ens.level == "dft"
-    assert ens.energies()[1] == pytest.approx(2.9, abs=0.4)
+    assert ens.energies()[1] == pytest.approx(refval("ethane_rotational_barrier"), abs=0.4)
 
 
 def test_difluoroethane_gauche_effect():
     # 1,2-difluoroethane, gas: gauche lies 0.6-0.8 kcal/mol below anti (experiment, [from
-    # memory]). GFN2 gets this wrong (REFERENCES.md: "the fluorine gauche effect in the gas
-    # phase"): measured here +0.94 kcal/mol (anti lower), gauche minimum at 86° instead of
+    # memory]). GFN2 gets the gas-phase fluorine gauche effect wrong (a known weakness of the
+    # method [from memory]): measured here +0.94 kcal/mol (anti lower), gauche minimum at 86° instead of
     # ~70°. B3LYP-D3(BJ)/def2-SVPD (the default level) single points at the GFN2 geometries
     # put gauche lower by 0.36 (def2-SVP, without diffuse functions, would not: +0.29)
     # [measured here]; the tolerance allows the GFN2 geometries and the functional.

@@ -11,21 +11,23 @@ from rdkit.Chem import AllChem
 from confpop.ensemble import Ensemble
 from confpop.errors import InputError
 from confpop.io import read_ensemble, write_xyz
+from reference_values import value as refval
 
 
 @pytest.fixture()
 def three():
     mol = Chem.AddHs(Chem.MolFromSmiles("CCCO"))
     AllChem.EmbedMultipleConfs(mol, 3, randomSeed=5)
-    # three states G = (0, 0.5, 1.2) kcal/mol with g = (1, 2, 1): REFERENCES.md worked values
+    # three states G = (0, 0.5, 1.2) kcal/mol with g = (1, 2, 1): worked values in
+    # tests/reference_values.py (three_state_*)
     return Ensemble.from_mol(mol, [0.0, 0.5, 1.2], level="test", unit="kcal/mol",
                              degeneracy=[1, 2, 1])
 
 
 def test_populations_match_worked_three_state_values(three):
     pops = three.populations([298.15])
-    # computed from the Boltzmann formula [C] in REFERENCES.md
-    np.testing.assert_allclose(pops[298.15].to_numpy(), [0.5020073, 0.4317551, 0.0662375], atol=1e-7)
+    # computed from the Boltzmann formula (tests/reference_values.py)
+    np.testing.assert_allclose(pops[298.15].to_numpy(), refval("three_state_populations"), atol=1e-7)
     assert list(pops.columns) == [298.15]
 
 

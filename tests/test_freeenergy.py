@@ -14,6 +14,7 @@ from confpop.freeenergy import add_free_energies, rescore
 from confpop.optimize import optimize_structure
 from confpop.thermo import boltzmann_weights, standard_state_correction
 from confpop.units import convert
+from reference_values import value as refval
 
 TEMPS = [200.0, 298.15, 400.0]
 
@@ -83,11 +84,11 @@ def test_free_populations_use_e_plus_gcorr(butane):
 
 def test_butane_enthalpy_gap_matches_experiment(butane):
     # n-butane gauche - anti ΔH = 0.67 ± 0.10 kcal/mol (gas; Herrebout et al., J. Phys. Chem.
-    # 1995, 99, 578) and 0.66 ± 0.02 (Balabin, J. Phys. Chem. A 2009, 113, 1012), REFERENCES.md
-    # [S]. GFN2 conformer energies carry 0.5-1.5 kcal/mol errors in general (REFERENCES.md);
-    # measured here: ΔE 0.60, ΔH(298.15 K) 0.63 kcal/mol.
+    # 1995, 99, 578) and 0.66 ± 0.02 (Balabin, J. Phys. Chem. A 2009, 113, 1012), both
+    # primary. GFN2 conformer energies carry 0.5-1.5 kcal/mol errors in general (common
+    # practice); measured here: ΔE 0.60, ΔH(298.15 K) 0.63 kcal/mol.
     dh = butane.energies(energy="enthalpy", temperature=298.15)
-    assert dh[1] == pytest.approx(0.67, abs=0.3)
+    assert dh[1] == pytest.approx(refval("butane_gauche_anti_dh_herrebout"), abs=0.3)
 
 
 def test_free_energy_gap_differs_from_energy_gap(butane):
@@ -109,23 +110,23 @@ def test_free_energy_gap_differs_from_energy_gap(butane):
 
 
 def test_water_entropy_column_against_janaf(water):
-    # S°(H2O, g, 298.15 K, 1 bar) = 188.84 J/(mol K) (JANAF via NIST CCCBDB, REFERENCES.md [S]);
+    # S°(H2O, g, 298.15 K, 1 bar) = 188.84 J/(mol K) (JANAF via NIST CCCBDB, primary);
     # GFN2 RRHO gives 188.6 [measured here]; the method error is below ~1 J/(mol K) because
     # the stiff modes contribute almost nothing
     out = add_free_energies(water, "gfn2", temperatures=[298.15], low_mode="rrho", workers=1)
     s = convert(out.column("entropy_298.15")[0], "hartree", "kJ/mol") * 1000
-    assert s == pytest.approx(188.84, abs=2.0)
-    assert int(out.column("symmetry_number")[0]) == 2
+    assert s == pytest.approx(refval("water_standard_entropy"), abs=2.0)
+    assert int(out.column("symmetry_number")[0]) == refval("symmetry_number_water")
 
 
 def test_standard_state_shift(water):
-    # 1 bar -> 1 mol/L at 298.15 K: RT ln(24.79) = 1.9021 kcal/mol (REFERENCES.md, [C])
+    # 1 bar -> 1 mol/L at 298.15 K: RT ln(24.79) = 1.9021 kcal/mol (computed, CODATA 2022 R)
     gas = add_free_energies(water, "gfn2", temperatures=[298.15], workers=1)
     molar = add_free_energies(water, "gfn2", temperatures=[298.15], workers=1,
                               standard_state="1 M")
     shift = convert(molar.column("gcorr_298.15")[0] - gas.column("gcorr_298.15")[0],
                     "hartree", "kcal/mol")
-    assert shift == pytest.approx(1.9021, abs=1e-4)
+    assert shift == pytest.approx(refval("standard_state_1_bar_to_1_M_298"), abs=1e-4)
     assert shift == pytest.approx(standard_state_correction(298.15, "1 bar", "1 M"), rel=1e-9)
     assert gas.provenance[-1]["standard_state"] == "1 bar"
 
@@ -135,7 +136,7 @@ def test_saddle_point_flagged_and_displaced():
     # eclipsed ethane (torsion held at 0°) is the top of the rotational barrier: one imaginary
     # mode. Displacing along it and re-optimizing reaches staggered ethane, lower by the
     # barrier: 2.9 kcal/mol experimentally (Weiss & Leroi, J. Chem. Phys. 1968, 48, 962,
-    # REFERENCES.md [S]); tolerance for the GFN2 method error.
+    # primary); tolerance for the GFN2 method error.
     eclipsed = _conformer("CC", (2, 0, 1, 5), 0.0, constrain=True)
     ens = _ensemble([eclipsed])
     flagged = add_free_energies(ens, "gfn2", workers=1)
@@ -196,7 +197,7 @@ def test_solvent_from_ensemble_and_ensemble_methods(water):
     assert step["solvent"] == "water" and step["standard_state"] == "1 M"
     gas = add_free_energies(wet, temperatures=[298.15], workers=1, solvent="gas")
     assert gas.provenance[-1]["standard_state"] == "1 bar"
-    # the difference is mostly the 1.90 kcal/mol standard-state term (REFERENCES.md [C]),
+    # the difference is mostly the 1.90 kcal/mol standard-state term (computed, CODATA 2022 R),
     # plus a small change of the frequencies in the continuum
     diff = convert(out.column("gcorr_298.15")[0] - gas.column("gcorr_298.15")[0],
                    "hartree", "kcal/mol")

@@ -22,6 +22,7 @@ from confpop.kinetics import (
     half_life,
     mean_residence_time,
 )
+from reference_values import value as refval
 
 R_KCAL = sc.R / 4184.0
 YEAR = sc.Julian_year
@@ -29,17 +30,20 @@ MINUTE = 60.0
 
 
 def test_prefactor_kt_over_h():
-    # k_B T / h = 6.2124e12 s^-1 at 298.15 K [C] REFERENCES.md
-    assert eyring_rate(0.0, 298.15) == pytest.approx(6.2124e12, rel=1e-5)
+    # k_B T / h = 6.2124e12 s^-1 at 298.15 K, computed from CODATA 2022 constants
+    assert eyring_rate(0.0, 298.15) == pytest.approx(refval("eyring_prefactor_298"), rel=1e-5)
     assert eyring_rate(0.0, 298.15) == pytest.approx(sc.k * 298.15 / sc.h, rel=1e-14)
 
 
 @pytest.mark.parametrize(
     "barrier, low, high",
     [
-        (5.0, 1e-10, 1e-8),  # ~5 kcal/mol: about a nanosecond (common practice)
-        (20.0, 1.0, 2 * MINUTE),  # ~20 kcal/mol: seconds to a minute (common practice)
-        (30.0, 1 * YEAR, 100 * YEAR),  # ~30 kcal/mol: years (common practice)
+        # ~5 kcal/mol: about a nanosecond (common practice)
+        (5.0, *refval("time_scale_5_kcal_room_temperature")),
+        # ~20 kcal/mol: seconds to a minute (common practice)
+        (20.0, *refval("time_scale_20_kcal_room_temperature")),
+        # ~30 kcal/mol: years (common practice)
+        (30.0, *(YEAR * t for t in refval("time_scale_30_kcal_room_temperature"))),
     ],
 )
 def test_room_temperature_rules_of_thumb(barrier, low, high):
@@ -50,10 +54,11 @@ def test_room_temperature_rules_of_thumb(barrier, low, high):
 @pytest.mark.parametrize(
     "barrier, temperature, expected",
     [
-        (20.0, 298.15, 51.0),  # [C] REFERENCES.md: t½ ≈ 51 s
-        (30.0, 298.15, 34.6 * YEAR),  # [C] ≈ 34.6 yr
-        (20.0, 310.15, 13.3),  # [C] 13.3 s
-        (30.0, 310.15, 4.68 * YEAR),  # [C] 4.68 yr
+        # computed from the Eyring equation (tests/reference_values.py)
+        (20.0, 298.15, refval("half_life_20_kcal_298")),  # t½ ≈ 51 s
+        (30.0, 298.15, refval("half_life_30_kcal_298") * YEAR),  # ≈ 34.6 yr
+        (20.0, 310.15, refval("half_life_20_kcal_310")),  # 13.3 s
+        (30.0, 310.15, refval("half_life_30_kcal_310") * YEAR),  # 4.68 yr
     ],
 )
 def test_exact_eyring_half_lives(barrier, temperature, expected):
@@ -109,7 +114,8 @@ def test_atropisomer_class_thresholds():
     # LaPlante et al., J. Med. Chem. 2011, 54, 7005 (doi:10.1021/jm200584g): at 37 °C,
     # class 1 t½ < 60 s, class 2 60 s to 4.5 yr, class 3 > 4.5 yr [S: as summarised in
     # Acc. Chem. Res. 2022, 55, 2904]
-    assert ATROPISOMER_CLASS_LIMITS == (60.0, pytest.approx(4.5 * YEAR, rel=1e-15))
+    class_1_limit_s, class_3_limit_yr = refval("atropisomer_class_limits_37C")
+    assert ATROPISOMER_CLASS_LIMITS == (class_1_limit_s, pytest.approx(class_3_limit_yr * YEAR, rel=1e-15))
     b1 = barrier_for_half_life(60.0, 310.15)
     b2 = barrier_for_half_life(4.5 * YEAR, 310.15)
     # the barriers usually quoted with the classes: ~20 and ~30 kcal/mol (LaPlante 2011)
@@ -136,12 +142,14 @@ def test_atropisomer_class_racemization_halves_the_half_life():
 
 
 def test_coalescence_worked_values():
-    # Gutowsky & Holm, J. Chem. Phys. 1956, 25, 1228 [M]; check values [C] REFERENCES.md:
+    # Gutowsky & Holm, J. Chem. Phys. 1956, 25, 1228 [M]; check values computed from the
+    # formula (tests/reference_values.py):
     # Δν = 100 Hz, T_c = 300 K -> k_c = 222.14 s^-1, ΔG‡ = 14.34 kcal/mol
-    assert coalescence_rate(100.0) == pytest.approx(222.14, abs=0.005)
-    assert coalescence_barrier(300.0, 100.0) == pytest.approx(14.34, abs=0.005)
+    assert coalescence_rate(100.0) == pytest.approx(refval("coalescence_rate_100_hz"), abs=0.005)
+    assert coalescence_barrier(300.0, 100.0) == pytest.approx(
+        refval("coalescence_barrier_300_K_100_hz"), abs=0.005)
     # the textbook shortcut ΔG‡ = R T_c [22.96 + ln(T_c/Δν)] J/mol agrees to ~0.01%
-    shortcut = sc.R * 300.0 * (22.96 + math.log(300.0 / 100.0)) / 4184.0
+    shortcut = sc.R * 300.0 * (refval("coalescence_shortcut_constant") + math.log(300.0 / 100.0)) / 4184.0
     assert coalescence_barrier(300.0, 100.0) == pytest.approx(shortcut, rel=2e-4)
     # Eyring at k_c gives back the rate
     assert eyring_rate(coalescence_barrier(300.0, 100.0), 300.0) == pytest.approx(

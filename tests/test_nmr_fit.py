@@ -21,6 +21,7 @@ from nmr_molecules import rotamers
 from confpop.ensemble import Ensemble
 from confpop.errors import InputError
 from confpop.nmr import couplings, fit_populations, group_couplings, noe_distances, read_observations
+from reference_values import value as refval
 
 
 TRUTH = np.array([0.6, 0.3, 0.1])
@@ -51,7 +52,7 @@ def test_recovers_known_populations(butanol, synthetic):
     assert list(fit.residuals.columns) == ["kind", "atom_a", "atom_b", "group", "observed",
                                            "predicted", "boltzmann", "residual", "sigma", "unit"]
     # implied free energies: G_i - G_j = -RT ln(p_i / p_j) (degeneracy 1) [C]
-    rt = 1.987204258640832e-3 * 298.15  # REFERENCES: R in kcal/(mol K)
+    rt = refval("gas_constant_kcal") * 298.15  # R in kcal/(mol K), CODATA 2022
     expected = -rt * np.log(fit.populations.to_numpy() / fit.populations.max())
     np.testing.assert_allclose(fit.free_energies.to_numpy(), expected, atol=1e-9)
     assert fit.free_energies.min() == 0.0

@@ -14,17 +14,18 @@ from rdkit.Chem import rdMolTransforms
 from confpop.errors import InputError
 from confpop.nmr import karplus as kp
 from nmr_molecules import mmff_ensemble
+from reference_values import value as refval
 
 
 # ----------------------------------------------------------------------------- published values
 @pytest.mark.parametrize("name, expected", [
     # Haasnoot, de Leeuw, Altona, Tetrahedron 1980, 36, 2783 (P1..P7) [S: public code quoting
-    # the paper's table; also REFERENCES.md "Vicinal couplings"]
-    ("haasnoot-a", (13.86, -0.81, 0.0, 0.56, -2.32, 17.9, 0.0)),
-    ("haasnoot-general", (13.70, -0.73, 0.0, 0.56, -2.47, 16.9, 0.14)),
-    ("haasnoot-2", (13.89, -0.98, 0.0, 1.02, -3.40, 14.9, 0.24)),
-    ("haasnoot-3", (13.22, -0.99, 0.0, 0.87, -2.46, 19.9, 0.0)),
-    ("haasnoot-4", (13.24, -0.91, 0.0, 0.53, -2.41, 15.5, 0.19)),
+    # the paper's table; tagged "secondary" in tests/reference_values.py]
+    ("haasnoot-a", refval("haasnoot_a")),
+    ("haasnoot-general", refval("haasnoot_general")),
+    ("haasnoot-2", refval("haasnoot_2")),
+    ("haasnoot-3", refval("haasnoot_3")),
+    ("haasnoot-4", refval("haasnoot_4")),
 ])
 def test_haasnoot_coefficients(name, expected):
     p = kp.PARAMETER_SETS[name]
@@ -33,8 +34,8 @@ def test_haasnoot_coefficients(name, expected):
 
 
 @pytest.mark.parametrize("name, expected", [
-    ("vuister-bax-1993", (6.51, -1.76, 1.60)),   # Vuister & Bax, JACS 1993, 115, 7772 [S]
-    ("hu-bax-1997", (7.09, -1.42, 1.55)),        # Hu & Bax, JACS 1997, 119, 6360 [S]
+    ("vuister-bax-1993", refval("vuister_bax_1993")),  # Vuister & Bax, JACS 1993, 115, 7772 [S]
+    ("hu-bax-1997", refval("hu_bax_1997")),            # Hu & Bax, JACS 1997, 119, 6360 [S]
 ])
 def test_hn_ha_coefficients(name, expected):
     p = kp.PARAMETER_SETS[name]
@@ -43,17 +44,18 @@ def test_hn_ha_coefficients(name, expected):
 
 
 def test_vuister_bax_worked_values():
-    # REFERENCES.md [C]: Vuister set, phi = -120 deg -> 9.87 Hz; phi = -60 deg -> 4.11 Hz
+    # computed from the Vuister & Bax 1993 set: phi = -120 deg -> 9.87 Hz; phi = -60 deg -> 4.11 Hz
     p = kp.get_parameters("vuister-bax-1993")
-    assert float(p.j_backbone(-120.0)) == pytest.approx(9.87, abs=0.005)
-    assert float(p.j_backbone(-60.0)) == pytest.approx(4.11, abs=0.005)
+    assert float(p.j_backbone(-120.0)) == pytest.approx(refval("vuister_bax_j_at_phi_minus_120"), abs=0.005)
+    assert float(p.j_backbone(-60.0)) == pytest.approx(refval("vuister_bax_j_at_phi_minus_60"), abs=0.005)
 
 
 def test_wasylishen_schaefer_matches_published_cosine_form():
     # Wasylishen & Schaefer, Can. J. Chem. 1973, 51, 961: 4.26 - 1.00 cos(phi) + 3.56 cos(2 phi)
-    # [S: quoted with the citation in public viewer source; REFERENCES.md says M]
+    # [S: quoted with the citation in public viewer source; tagged "secondary"]
     phi = np.linspace(-180, 180, 37)
-    published = 4.26 - 1.00 * np.cos(np.radians(phi)) + 3.56 * np.cos(np.radians(2 * phi))
+    c0, c1, c2 = refval("wasylishen_schaefer_1973")
+    published = c0 + c1 * np.cos(np.radians(phi)) + c2 * np.cos(np.radians(2 * phi))
     np.testing.assert_allclose(kp.get_parameters("wasylishen-schaefer-1973").j(phi), published,
                                rtol=0, atol=1e-12)
 
@@ -97,7 +99,7 @@ SUBS = [(1.30, 1.0), (0.40, -1.0), (1.30 - 0.14 * 0.40, 1.0)]  # O, C, O with a 
 
 @pytest.mark.parametrize("name", SETS)
 def test_mirror_invariance(name):
-    # inverting a structure flips phi and every xi: J(phi, {xi}) = J(-phi, {-xi}) (REFERENCES)
+    # inverting a structure flips phi and every xi: J(phi, {xi}) = J(-phi, {-xi}) (HLA 1980 form)
     p = kp.PARAMETER_SETS[name]
     phi = np.linspace(-180, 180, 73)
     mirrored = [(d, -x) for d, x in SUBS]
@@ -106,7 +108,7 @@ def test_mirror_invariance(name):
 
 @pytest.mark.parametrize("name", SETS)
 def test_xi_independent_at_180(name):
-    # at phi = 180 deg cos^2(+-180 + c) = cos^2(c): no dependence on xi (REFERENCES)
+    # at phi = 180 deg cos^2(+-180 + c) = cos^2(c): no dependence on xi (HLA 1980 form)
     p = kp.PARAMETER_SETS[name]
     for d in (0.4, 1.3):
         four = [float(p.j(180.0, [(d, x1), (0.4, x2)])) for x1 in (1, -1) for x2 in (1, -1)]
@@ -129,7 +131,7 @@ def test_hla_worked_value():
 
 
 def test_beta_correction():
-    # Delta chi = Delta chi_alpha - P7 sum Delta chi_beta (HLA 1980; REFERENCES): CH2OH on
+    # Delta chi = Delta chi_alpha - P7 sum Delta chi_beta (HLA 1980): CH2OH on
     # the fragment: 0.40 - 0.24 * 1.30 with set C
     p = kp.get_parameters("haasnoot-2")
     assert p.group_electronegativity(0.40, [1.30, 0.0, 0.0]) == pytest.approx(0.40 - 0.24 * 1.30, abs=1e-12)
@@ -164,7 +166,7 @@ def _newman(front, back, bond=1.54, length=1.09, tilt=109.47):
 
 
 def test_orientation_sign_booth_rule():
-    # Booth's rule (REFERENCES): a gauche coupling is smallest when an electronegative
+    # Booth's rule (common practice): a gauche coupling is smallest when an electronegative
     # substituent is antiperiplanar to one of the coupled protons. With phi = +60 deg the
     # substituent anti to the other proton must get the sign that lowers J most.
     x, y, f, b = _newman([0, 120, 240], [60, 180, 300])

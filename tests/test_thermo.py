@@ -24,30 +24,34 @@ from confpop.thermo import (
     standard_state_correction,
 )
 from confpop.units import gas_constant
+from reference_values import value as refval
 
 R_KCAL = sc.R / 4184.0
-KCAL_PER_HARTREE = 627.509474063  # CODATA (REFERENCES.md, "Constants")
+KCAL_PER_HARTREE = refval("hartree_in_kcal_per_mol")  # CODATA 2022
 
 # ----------------------------------------------------------------------- Boltzmann weights
 
 
 def test_two_states_reference_values():
-    # [C] REFERENCES.md: ΔG = 0 and 1 kcal/mol, g = 1, 298.15 K
+    # computed from the Boltzmann formula: ΔG = 0 and 1 kcal/mol, g = 1, 298.15 K
     p = boltzmann_weights([0.0, 1.0], 298.15)
-    np.testing.assert_allclose(p, [0.8439355, 0.1560645], rtol=0, atol=5e-8)
-    assert ensemble_free_energy([0.0, 1.0], 298.15) == pytest.approx(-0.1005324, abs=5e-8)
+    np.testing.assert_allclose(p, refval("two_state_populations"), rtol=0, atol=5e-8)
+    assert ensemble_free_energy([0.0, 1.0], 298.15) == pytest.approx(
+        refval("two_state_ensemble_free_energy"), abs=5e-8)
     # S_conf = 0.86063 cal/(mol K)
-    assert conformational_entropy(p) * 1000 == pytest.approx(0.86063, abs=5e-6)
+    assert conformational_entropy(p) * 1000 == pytest.approx(
+        refval("two_state_conformational_entropy"), abs=5e-6)
 
 
 def test_three_states_with_degeneracy_reference_values():
-    # [C] REFERENCES.md: G = (0, 0.5, 1.2) kcal/mol, g = (1, 2, 1), 298.15 K
+    # computed from the Boltzmann formula: G = (0, 0.5, 1.2) kcal/mol, g = (1, 2, 1), 298.15 K
     g = [1, 2, 1]
     p = boltzmann_weights([0.0, 0.5, 1.2], 298.15, degeneracy=g)
-    np.testing.assert_allclose(p, [0.5020073, 0.4317551, 0.0662375], rtol=0, atol=5e-8)
+    np.testing.assert_allclose(p, refval("three_state_populations"), rtol=0, atol=5e-8)
     assert ensemble_free_energy([0.0, 0.5, 1.2], 298.15, degeneracy=g) == pytest.approx(
-        -0.4083054, abs=5e-8)
-    assert conformational_entropy(p) * 1000 == pytest.approx(1.76540, abs=5e-6)
+        refval("three_state_ensemble_free_energy"), abs=5e-8)
+    assert conformational_entropy(p) * 1000 == pytest.approx(
+        refval("three_state_conformational_entropy"), abs=5e-6)
 
 
 def test_matches_direct_formula_and_scipy_logsumexp():
@@ -156,7 +160,7 @@ def test_extreme_degeneracy_ratios_agree_with_log_space():
 
 
 def test_ensemble_free_energy_identity_with_mixing_entropy():
-    # G_ens = Σ p G - T S_mix with S_mix = -R Σ p ln(p/g) (REFERENCES.md identity)
+    # G_ens = Σ p G - T S_mix with S_mix = -R Σ p ln(p/g) (follows from the Boltzmann formula)
     e = np.array([0.0, 0.5, 1.2, 2.0])
     g = np.array([1, 2, 1, 4])
     temps = np.array([200.0, 298.15, 600.0])
@@ -306,9 +310,10 @@ def test_conformational_entropy_units_and_rows():
 
 
 def test_free_energy_gap_and_population_ratio():
-    # [C] two-state populations of REFERENCES.md correspond to a 1 kcal/mol gap
-    assert free_energy_gap(0.1560645, 0.8439355, 298.15) == pytest.approx(1.0, abs=2e-7)
-    assert free_energy_gap(0.8439355, 0.1560645, 298.15) == pytest.approx(-1.0, abs=2e-7)
+    # the computed two-state populations (tests/reference_values.py) belong to a 1 kcal/mol gap
+    p_low, p_high = refval("two_state_populations")
+    assert free_energy_gap(p_high, p_low, 298.15) == pytest.approx(1.0, abs=2e-7)
+    assert free_energy_gap(p_low, p_high, 298.15) == pytest.approx(-1.0, abs=2e-7)
     assert free_energy_gap(3.0, 1.0, 300.0, unit="kJ/mol") == pytest.approx(
         -sc.R * 300.0 * math.log(3.0) / 1000, rel=1e-13)
     gaps = np.array([-2.0, 0.0, 0.5, 3.0])
@@ -343,9 +348,13 @@ METHANE = dict(frequencies=[2917.0, 1534.0, 1534.0] + [3019.0] * 3 + [1306.0] * 
 @pytest.mark.parametrize(
     "molecule, reference, rrho",
     [
-        (WATER, 188.84, 188.71),  # S° [S: NIST CCCBDB]; RRHO value [C] REFERENCES.md
-        (CARBON_DIOXIDE, 213.785, 213.78),  # S° [S: NIST WebBook]
-        (METHANE, 186.251, 186.31),  # S° [M: JANAF]
+        # S° [S: NIST CCCBDB]; RRHO value computed
+        (WATER, refval("water_standard_entropy"), refval("water_rrho_entropy")),
+        # S° [S: NIST WebBook]
+        (CARBON_DIOXIDE, refval("carbon_dioxide_standard_entropy"),
+         refval("carbon_dioxide_rrho_entropy")),
+        # S° [M: JANAF]
+        (METHANE, refval("methane_standard_entropy"), refval("methane_rrho_entropy")),
     ],
 )
 def test_standard_entropy_against_nist_janaf(molecule, reference, rrho):
@@ -371,8 +380,9 @@ def test_atom_and_triplet_oxygen():
 def test_pressure_one_atm_and_heat_capacity_of_water():
     bar = ideal_gas_thermo(**WATER, unit="kJ/mol")
     atm = ideal_gas_thermo(**WATER, pressure=101325.0, unit="kJ/mol")
-    # S(1 atm) = S(1 bar) - 0.10944 J/(mol K) [C] REFERENCES.md
-    assert (atm.entropy - bar.entropy) * 1000 == pytest.approx(-0.10944, abs=2e-5)
+    # S(1 atm) = S(1 bar) - 0.10944 J/(mol K), computed: -R ln(1.01325)
+    assert (atm.entropy - bar.entropy) * 1000 == pytest.approx(
+        refval("entropy_1_atm_minus_1_bar"), abs=2e-5)
     # Cp° of water vapour 33.59 J/(mol K) [M: JANAF]; RRHO misses anharmonicity slightly
     assert bar.heat_capacity * 1000 == pytest.approx(33.59, abs=0.3)
 
@@ -458,10 +468,11 @@ def test_linear_molecule_recognised_by_a_zero_or_infinite_constant():
     assert not ideal_gas_thermo(**WATER).linear
 
 
-# qRRHO single-mode checks at 298.15 K [C] REFERENCES.md (Grimme, Chem. Eur. J. 2012, 18,
-# 9955): S_HO, S with the free-rotor interpolation, J/(mol K)
-@pytest.mark.parametrize("nu, s_ho, s_qrrho", [(50.0, 20.1559, 15.1381), (100.0, 14.4529, 13.1985),
-                                               (200.0, 8.9249, 8.9330)])
+# qRRHO single-mode checks at 298.15 K, computed from the formulas of Grimme, Chem. Eur. J.
+# 2012, 18, 9955: S_HO, S with the free-rotor interpolation, J/(mol K)
+@pytest.mark.parametrize("nu, s_ho, s_qrrho", [
+    (nu, refval(f"qrrho_mode_{nu:.0f}")[0], refval(f"qrrho_mode_{nu:.0f}")[2])
+    for nu in (50.0, 100.0, 200.0)])
 def test_qrrho_single_mode_entropy(nu, s_ho, s_qrrho):
     common = dict(mass=50.0, rotational_constants=[], symmetry_number=1, unit="kJ/mol")
     rrho = ideal_gas_thermo([nu], **common)
@@ -538,9 +549,10 @@ def test_ideal_gas_bad_input(changes, message):
 
 
 def test_standard_state_corrections():
-    # gas 1 atm -> 1 mol/L: RT ln(24.4654) = 1.8943 kcal/mol at 298.15 K [C] REFERENCES.md
-    assert standard_state_correction(298.15, "1 atm", "1 M") == pytest.approx(1.8943, abs=5e-5)
-    assert R_KCAL * 298.15 * math.log(24.4654) == pytest.approx(1.8943, abs=5e-5)
+    # gas 1 atm -> 1 mol/L: RT ln(24.4654) = 1.8943 kcal/mol at 298.15 K (computed)
+    expected = refval("standard_state_1_atm_to_1_M_298")
+    assert standard_state_correction(298.15, "1 atm", "1 M") == pytest.approx(expected, abs=5e-5)
+    assert R_KCAL * 298.15 * math.log(24.4654) == pytest.approx(expected, abs=5e-5)
     # from 1 bar the molar volume is 24.7896 L [C]
     assert standard_state_correction(298.15, "1 bar", "1 M") == pytest.approx(
         R_KCAL * 298.15 * math.log(sc.R * 298.15 / 1e5 * 1000), rel=1e-12)

@@ -3,8 +3,8 @@ identities with the kinetics module, and published barriers (ethane, butane) wit
 error of GFN2-xTB.
 
 Tolerances for the GFN2 checks are the method's error, not the tool's: GFN2-xTB conformer
-energies typically fall within 0.5-1.5 kcal/mol of high-level references (REFERENCES.md,
-common practice), and its eclipsing barriers of alkanes run low by up to ~1 kcal/mol.
+energies typically fall within 0.5-1.5 kcal/mol of high-level references (common practice;
+tests/reference_values.py), and its eclipsing barriers of alkanes run low by up to ~1 kcal/mol.
 """
 
 import json
@@ -34,6 +34,7 @@ from confpop.torsion import (
     torsion_for_bond,
 )
 from confpop.units import convert
+from reference_values import value as refval
 
 BUTANE = (0, 1, 2, 3)
 ETHANE_HCCH = (2, 0, 1, 5)  # the dihedral that carries the model backend's ethane rotor term
@@ -136,7 +137,7 @@ def test_barrier_table_is_consistent_around_the_circle():
 
 
 def test_half_life_from_profile_equals_kinetics_module():
-    # a twofold profile with a 20 kcal/mol barrier; t1/2 at 298.15 K is ~51 s (REFERENCES.md [C])
+    # a twofold profile with a 20 kcal/mol barrier; t1/2 at 298.15 K is ~51 s (Eyring, computed)
     phi = np.arange(-180.0, 180.0, 30.0)
     prof = TorsionProfile.from_energies(phi, 10.0 * (1 - np.cos(np.radians(2 * phi))))
     rates = prof.rates([298.15, 310.15], delta_nu_hz=100.0)
@@ -149,7 +150,7 @@ def test_half_life_from_profile_equals_kinetics_module():
             kinetics.eyring_rate(20.0, row["temperature"]), rel=1e-12)
         assert row["exchange_regime"] == "slow"  # k ~ 0.01 s^-1 << k_c = 222 s^-1
     at_298 = rates[rates["temperature"] == 298.15].iloc[0]
-    assert at_298["half_life_forward"] == pytest.approx(51.0, rel=0.02)  # REFERENCES.md [C]
+    assert at_298["half_life_forward"] == pytest.approx(refval("half_life_20_kcal_298"), rel=0.02)
     # 20 kcal/mol: class 1 (t1/2 13 s at 37 °C < 60 s; LaPlante et al. 2011 via kinetics)
     assert prof.atropisomer_class() == 1
     assert "ΔG‡" in prof.note and "±1 kcal/mol" in prof.note
@@ -307,7 +308,7 @@ def test_ethane_gfn2_barrier_and_threefold_fit():
     # Weiss & Leroi, J. Chem. Phys. 1968, 48, 962: 2.9 kcal/mol [S]; allowance ±0.6 for the
     # method (GFN2 torsion barriers of small molecules fall within ~0.5 kcal/mol of reference
     # values, common practice; measured here 2.59)
-    np.testing.assert_allclose(barriers["barrier_forward"], 2.9, atol=0.6)
+    np.testing.assert_allclose(barriers["barrier_forward"], refval("ethane_rotational_barrier"), atol=0.6)
     # the three barriers are equal by symmetry
     assert np.ptp(barriers["barrier_forward"]) == pytest.approx(0.0, abs=0.01)
     terms = prof.fourier_terms().set_index("n")
@@ -330,7 +331,7 @@ def test_butane_gfn2_minima_and_barriers():
     assert anti["angle"] % 360.0 == pytest.approx(180.0, abs=1.0)
     # gauche - anti: CCSD(T) 0.59 kcal/mol (Smith & Jaffe, J. Phys. Chem. 1996, 100, 18718 [S]);
     # allowance ±0.4 (GFN2 conformer energies of alkanes, common practice; measured here 0.60)
-    np.testing.assert_allclose(gauche - anti["energy"], 0.59, atol=0.4)
+    np.testing.assert_allclose(gauche - anti["energy"], refval("butane_gauche_anti_ccsdt"), atol=0.4)
     # syn barrier: CCSD(T) 5.48 kcal/mol (same source); allowance ±1.0: GFN2 eclipsing barriers
     # run low by up to ~1 kcal/mol (measured here 4.95)
     syn = prof.maxima().loc[prof.maxima()["angle"].abs().idxmin()]

@@ -9,18 +9,19 @@ import scipy.constants as sc
 from confpop import units
 from confpop.errors import InputError
 from confpop.units import UNITS, convert, gas_constant, normalize_unit
+from reference_values import value as refval
 
 
 # CODATA 2022 as printed in the NIST constants tables (identical to CODATA 2018 at 1e-9):
 # 1 hartree = 627.509474063 kcal/mol, 2625.49963948 kJ/mol, 27.211386245981 eV,
-# 219474.6313632 cm^-1 (see REFERENCES.md, "Constants").
+# 219474.6313632 cm^-1 (tests/reference_values.py).
 @pytest.mark.parametrize(
     "unit, value",
     [
-        ("kcal/mol", 627.509474063),
-        ("kJ/mol", 2625.49963948),
-        ("eV", 27.211386245981),
-        ("cm-1", 219474.6313632),
+        ("kcal/mol", refval("hartree_in_kcal_per_mol")),
+        ("kJ/mol", refval("hartree_in_kj_per_mol")),
+        ("eV", refval("hartree_in_ev")),
+        ("cm-1", refval("hartree_in_wavenumber")),
         ("hartree", 1.0),
     ],
 )
@@ -58,7 +59,7 @@ def test_constants_match_scipy_codata():
 @pytest.mark.parametrize(
     "unit, reference",
     [
-        ("kcal/mol", sc.R / 4184.0),  # R in kcal/(mol K) (REFERENCES: 1.987204258640832e-3)
+        ("kcal/mol", sc.R / 4184.0),  # R in kcal/(mol K) (1.987204258640832e-3)
         ("kJ/mol", sc.R / 1000.0),
         ("hartree", sc.k / sc.physical_constants["Hartree energy"][0]),  # per molecule
         ("eV", sc.physical_constants["Boltzmann constant in eV/K"][0]),
@@ -70,9 +71,9 @@ def test_gas_constant_in_each_unit(unit, reference):
 
 
 def test_rt_at_room_temperature():
-    # RT(298.15 K) = 0.59248495 kcal/mol [C] (REFERENCES.md)
-    assert gas_constant("kcal/mol") * 298.15 == pytest.approx(0.59248495, rel=1e-8)
-    assert gas_constant() == pytest.approx(1.987204258640832e-3, rel=1e-12)
+    # RT(298.15 K) = 0.59248495 kcal/mol, computed from CODATA 2022 R
+    assert gas_constant("kcal/mol") * 298.15 == pytest.approx(refval("rt_298"), rel=1e-8)
+    assert gas_constant() == pytest.approx(refval("gas_constant_kcal"), rel=1e-12)
 
 
 @pytest.mark.parametrize("a, b", list(itertools.permutations(sorted(UNITS), 2)))

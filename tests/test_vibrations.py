@@ -27,6 +27,7 @@ from confpop.vibrations import (
     rotational_constants,
     symmetry_number,
 )
+from reference_values import value as refval
 
 ase = pytest.importorskip("ase")
 
@@ -69,8 +70,8 @@ def _ase_frequencies(mol, tmp_path, name):
 
 # ---------------------------------------------------------------------------------- constants
 def test_wavenumber_factor():
-    # ν̃ = 5140.487 √λ cm⁻¹ for λ in hartree bohr⁻² amu⁻¹ (REFERENCES.md, computed [C])
-    assert WAVENUMBER_FACTOR == pytest.approx(5140.487, rel=2e-7)
+    # ν̃ = 5140.487 √λ cm⁻¹ for λ in hartree bohr⁻² amu⁻¹ (computed from CODATA 2022 constants)
+    assert WAVENUMBER_FACTOR == pytest.approx(refval("wavenumber_factor"), rel=2e-7)
 
 
 # ---------------------------------------------------------------------------------- vs ASE
@@ -146,12 +147,12 @@ def test_diatomic_frequency_from_energy_curvature():
 
 
 def test_water_entropy_close_to_janaf(gfn2_minima):
-    # S°(H2O, g, 298.15 K, 1 bar) = 188.84 J/(mol K) (JANAF / NIST CCCBDB, REFERENCES.md [S]).
+    # S°(H2O, g, 298.15 K, 1 bar) = 188.84 J/(mol K) (JANAF / NIST CCCBDB, primary).
     # GFN2 harmonic frequencies (~1540, 3640, 3650 cm⁻¹) and geometry give 188.6; the
     # vibrational part is only 0.03 J/(mol K), so the method error stays below ~1 J/(mol K).
     res = harmonic_analysis(gfn2_minima["O"], "gfn2")
     th = res.thermo(298.15, low_mode="rrho", unit="kJ/mol")
-    assert th.entropy * 1000 == pytest.approx(188.84, abs=2.0)
+    assert th.entropy * 1000 == pytest.approx(refval("water_standard_entropy"), abs=2.0)
 
 
 def test_rotational_constants_match_ase_moments(gfn2_minima):
@@ -185,12 +186,14 @@ def test_result_is_read_only(gfn2_minima):
 
 
 # ---------------------------------------------------------------------------------- symmetry
-# Rotational symmetry numbers from the point groups (REFERENCES.md [from memory]):
+# Rotational symmetry numbers from the point groups [from memory; tests/reference_values.py]:
 # H2O C2v 2, NH3 C3v 3, CH4 Td 12, benzene D6h 12, staggered ethane D3d 6, CO2 D∞h 2,
 # HCN C∞v 1, ethylene D2h 4, cyclohexane chair D3d 6, ethanol C1/Cs 1.
 @pytest.mark.parametrize("smiles, sigma", [
-    ("O", 2), ("N", 3), ("C", 12), ("c1ccccc1", 12), ("CC", 6), ("O=C=O", 2),
-    ("C#N", 1), ("C=C", 4), ("C1CCCCC1", 6), ("CCO", 1),
+    (smiles, refval(f"symmetry_number_{name}")) for smiles, name in [
+        ("O", "water"), ("N", "ammonia"), ("C", "methane"), ("c1ccccc1", "benzene"),
+        ("CC", "ethane"), ("O=C=O", "carbon_dioxide"), ("C#N", "hydrogen_cyanide"),
+        ("C=C", "ethylene"), ("C1CCCCC1", "cyclohexane_chair"), ("CCO", "ethanol")]
 ])
 def test_symmetry_numbers(smiles, sigma):
     assert symmetry_number(_mmff(smiles)) == sigma

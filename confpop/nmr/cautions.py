@@ -27,7 +27,7 @@ Measured cases (issue 14; the numbers are repeated in README "Method cautions"):
   the way to experiment.
 - **Fluorine gauche effect in the gas phase, tight-binding level.** 1,2-Difluoroethane,
   GFN2-xTB gas phase: anti 0.94 kcal/mol below gauche, where experiment puts gauche about
-  0.6-0.8 kcal/mol below anti [from memory; REFERENCES]: an error of about 1.5-1.7 kcal/mol
+  0.6-0.8 kcal/mol below anti [from memory]: an error of about 1.5-1.7 kcal/mol
   with the wrong sign (gauche population 0.29 instead of about 0.85).
 """
 

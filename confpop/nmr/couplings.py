@@ -694,7 +694,7 @@ def population_spread(ens, temperatures, energy: str = "auto", energy_sigma: flo
         Passed to ``ens.populations`` / ``ens.energies``.
     energy_sigma : float, kcal/mol
         Standard deviation of the per-conformer energy error; 1 kcal/mol is a typical
-        GFN2-xTB conformer-energy error (REFERENCES: 0.5-1.5 kcal/mol).
+        GFN2-xTB conformer-energy error (0.5-1.5 kcal/mol, common practice).
     n_samples : int
     seed : int
         Seeds a private ``numpy.random.Generator``.

@@ -8,7 +8,8 @@ Two kinds of parameter set, both frozen dataclasses (data, not code):
 - :class:`GeneralizedKarplus`, the Haasnoot-de Leeuw-Altona equation for H-C-C-H with one
   term per non-hydrogen substituent (electronegativity, beta correction, orientation sign xi).
 
-Where the numbers come from (checked for this module; tags as in the project's REFERENCES):
+Where the numbers come from (checked for this module; tags as in tests/reference_values.py,
+[S] meaning seen in the named source, [M] from memory):
 
 - Haasnoot-de Leeuw-Altona sets. The paper itself was not available here. Sets "B" (general,
   with the beta correction) and the sets for two, three and four non-H substituents were
@@ -17,8 +18,9 @@ Where the numbers come from (checked for this module; tags as in the project's R
   independently, in a public carbohydrate MD-analysis script citing the paper, and set D
   (three substituents) in a public nucleic-acid analysis script citing it. Set "A" (the
   six-parameter form without the beta correction) was seen in two independent public code
-  files citing the paper. All five agree with REFERENCES.md. [S: public code quoting the
-  paper's table, not the paper itself]
+  files citing the paper. All five agree with the project's table of outside values
+  (tests/reference_values.py, tagged "secondary"). [S: public code quoting the paper's
+  table, not the paper itself]
 - The orientation sign xi: the rule implemented here (see :func:`orientation_sign`) was not
   read from the paper. It is fixed by the physics the paper's term encodes (Booth's rule: a
   gauche coupling is smallest when an electronegative substituent is antiperiplanar to one of
