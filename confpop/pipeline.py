@@ -432,19 +432,24 @@ def _warn_implicit_ligand_hydrogens(mol: Chem.Mol) -> None:
 
     if not _has_metal(mol):
         return
+    found = []
     for atom in mol.GetAtoms():
         if atom.GetAtomicNum() not in (7, 8, 15, 16) or atom.GetFormalCharge() != 0:
             continue
         metals = [n for n in atom.GetNeighbors() if is_metal(n.GetAtomicNum())]
         if not metals or any(b.GetBondType() == Chem.BondType.DATIVE for b in atom.GetBonds()):
             continue
-        n_h = atom.GetTotalNumHs(includeNeighbors=True)
         full = {7: "NH3", 8: "OH2", 15: "PH3", 16: "SH2"}[atom.GetAtomicNum()]
-        warnings.warn(
-            f"{atom.GetSymbol()}{atom.GetIdx() + 1} bonded to {metals[0].GetSymbol()}"
-            f"{metals[0].GetIdx() + 1} was read with {n_h} H (an anionic ligand such as amido "
-            f"or hydroxido); for a neutral ligand write [{full}] or a dative bond, e.g. "
-            f"{atom.GetSymbol()}->[{metals[0].GetSymbol()}]", ConfpopWarning, stacklevel=3)
+        found.append((f"{atom.GetSymbol()}{atom.GetIdx() + 1}",
+                      atom.GetTotalNumHs(includeNeighbors=True),
+                      f"{metals[0].GetSymbol()}{metals[0].GetIdx() + 1}", full,
+                      f"{atom.GetSymbol()}->[{metals[0].GetSymbol()}]"))
+    if found:
+        listing = ", ".join(f"{a} (bonded to {m}) with {h} H" for a, h, m, _, _ in found)
+        _, _, _, full, dative = found[0]
+        warnings.warn(f"read {listing}: anionic ligands such as amido or hydroxido; for a "
+                      f"neutral ligand write [{full}] or a dative bond, e.g. {dative}",
+                      ConfpopWarning, stacklevel=3)
 
 
 def _refuse_open_square_planar(mol: Chem.Mol) -> None:

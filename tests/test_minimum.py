@@ -130,6 +130,6 @@ def test_square_planar_trans_pairs_tell_cis_from_trans():
 
 def test_ligand_written_without_brackets_is_flagged():
     # "N[Pt]" is an amido ligand (NH2, 2 H) to RDKit; cisplatin's ammines are [NH3]
-    with pytest.warns(cp.errors.ConfpopWarning, match=r"N1 bonded to Pt2 was read with 2 H"):
+    with pytest.warns(cp.errors.ConfpopWarning, match=r"read N1 \(bonded to Pt2\) with 2 H, N3 \(bonded to Pt2\) with 2 H"):
         with pytest.raises(cp.InputError):              # and the arrangement is still open
             cp.search("N[Pt](N)(Cl)Cl", stereo="ignore")
