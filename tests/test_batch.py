@@ -123,6 +123,7 @@ def test_out_dir_files_round_trip(batch):
 
 
 # -- ways of running --------------------------------------------------------------------------
+@pytest.mark.slow
 def test_local_pool_gives_the_serial_summary_and_exact_geometries(batch):
     result, _ = batch
     pooled = search_many(MOLECULES, method="mmff94s", workers=2, temperatures=[298.15, 350.0])

@@ -161,6 +161,7 @@ def _session_processes(sid: int) -> list[int]:
 
 @pytest.mark.skipif(not sys.platform.startswith("linux"), reason="reads /proc")
 @pytest.mark.parametrize("signum", [signal.SIGTERM, signal.SIGHUP])
+@pytest.mark.slow
 def test_a_terminated_run_leaves_no_process_behind(tmp_path, signum):
     script = tmp_path / "run.py"
     script.write_text(textwrap.dedent(SCRIPT))

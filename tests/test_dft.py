@@ -158,6 +158,7 @@ def test_ethane_barrier():
     assert ens.energies()[1] == pytest.approx(refval("ethane_rotational_barrier"), abs=0.4)
 
 
+@pytest.mark.slow
 def test_difluoroethane_gauche_effect():
     # 1,2-difluoroethane, gas: gauche lies 0.6-0.8 kcal/mol below anti (experiment, [from
     # memory]). GFN2 gets the gas-phase fluorine gauche effect wrong (a known weakness of the

@@ -23,6 +23,7 @@ def phenylcyclohexane():
             cp.search("C1CCC(CC1)c1ccccc1", seed=1, min_population=1e-5, check_minima=False))
 
 
+@pytest.mark.slow
 def test_axial_phenyl_saddle_is_left_for_the_mirror_pair(phenylcyclohexane):
     ens, unchecked = phenylcyclohexane
     gaps = ens.free_energy_gaps(298.15)

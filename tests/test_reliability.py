@@ -122,12 +122,14 @@ def counted(tmp_path_factory):
 
 
 # -- the same answer wherever it runs ---------------------------------------------------------
+@pytest.mark.slow
 def test_local_pool_gives_the_serial_ensemble(reference):
     from confpop import search
 
     assert_same_ensemble(search(MOLECULE, method="gfn2", seed=0, workers=2), reference)
 
 
+@pytest.mark.slow
 def test_dask_cluster_gives_the_serial_ensemble(reference, cluster):
     from confpop import search
 
@@ -173,6 +175,7 @@ search(MOLECULE, method=COUNTING, seed=0, workers=1, store=sys.argv[1])
 """
 
 
+@pytest.mark.slow
 def test_a_killed_run_resumes_to_the_uninterrupted_result(counted, tmp_path, monkeypatch):
     from confpop import ResultStore, search
 

@@ -128,6 +128,7 @@ def test_repeated_structures_are_not_counted_as_found_again():
     assert mol.GetNumConformers() == 4 and distinct_structures(mol) == [0]
 
 
+@pytest.mark.slow
 def test_seed_zero_samples_as_deeply_as_other_seeds():
     # 1-hexanol: with the seed passed raw, seed 0 found 38 distinct MMFF94s conformers
     # against 58-72 at seeds 1-3 (its first round collapsed to one structure). Seed 0 must

@@ -107,6 +107,7 @@ def test_fit_one_species(amide):
         fit_populations(amide, observed, n_bootstrap=0, species=5)
 
 
+@pytest.mark.slow
 def test_interconversion_across_the_slow_bond(amide):
     # species 0 and 1 conformers that also differ in other torsions: before, this was refused
     # ("differ in 3 torsions"); now the amide C-N is scanned (MMFF94s, relaxed) and the others
@@ -245,6 +246,7 @@ def test_noe_and_spread_within_species(amide):
     np.testing.assert_allclose(merged["mean"], merged[298.15], atol=1e-12)
 
 
+@pytest.mark.slow
 def test_exchange_summary_scans_the_slow_bond_once(amide):
     # three conformers: the lowest of species 0 and two of species 1 that differ from it in
     # the amide and other torsions. Before, every such pair was skipped ("differ in several

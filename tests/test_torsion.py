@@ -317,6 +317,7 @@ def test_ethane_gfn2_barrier_and_threefold_fit():
     assert terms.drop(index=[0, 3])["V"].max() < 0.05 * v3
 
 
+@pytest.mark.slow
 def test_butane_gfn2_minima_and_barriers():
     prof = scan_torsion("CCCC", BUTANE, method="gfn2", step=30)
     assert prof.converged.all() and prof.hysteresis == ()
