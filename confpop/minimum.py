@@ -38,7 +38,7 @@ glycol in water 6.3 % (24 of 379), an aryl ether-amide and propranolol 0 %.
 from __future__ import annotations
 
 import logging
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import numpy as np
 from rdkit import Chem

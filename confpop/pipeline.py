@@ -65,7 +65,6 @@ from __future__ import annotations
 import logging
 import os
 import time
-from dataclasses import asdict
 
 import numpy as np
 import pandas as pd
@@ -73,7 +72,7 @@ from rdkit import Chem
 
 from .backends import backend_class, get_backend
 from .ensemble import Ensemble, step_record
-from .errors import CalculationFailed, InputError
+from .errors import InputError
 from .prune import PruneSettings, find_duplicates, integrity_problems, is_achiral
 from .sampling import sample_conformers
 from .units import EBOHR_DEBYE, convert

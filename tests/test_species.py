@@ -14,7 +14,6 @@ import pytest
 from rdkit import Chem
 from rdkit.Chem import AllChem
 
-from confpop.ensemble import Ensemble
 from confpop.nmr import (MethodWarning, average_couplings, couplings, fit_populations,
                          method_cautions)
 from confpop.species import slow_bonds, species_populations, species_table
