@@ -263,6 +263,18 @@ def _cap_workers(workers):
     return workers
 
 
+def _temperatures(values) -> list:
+    """--temperature values, checked; a value below 150 K gets a note (kelvin, not °C)."""
+    from .thermo import check_temperatures
+
+    temps = check_temperatures(values, "--temperature")
+    low = [t for t in temps if t < 150.0]
+    if low:
+        print(f"{_PROG}: note: --temperature {low[0]:g} K is below 150 K; temperatures are in "
+              f"kelvin ({low[0]:g} °C would be {low[0] + 273.15:g} K)", file=sys.stderr)
+    return temps
+
+
 def _check_search_cost(args) -> None:
     """Refuse, before any work, a search estimated above the bound (confpop.budget)."""
     from .budget import check_search_budget
@@ -345,8 +357,7 @@ def _ensemble_table_text(ens, temps, views=None) -> str:
 
 
 def _run_ensemble(args: argparse.Namespace) -> int:
-    from .thermo import check_temperatures
-    temps = check_temperatures(args.temperature, "--temperature")
+    temps = _temperatures(args.temperature)
     if not 0.0 <= args.completeness < 1.0:
         raise InputError(f"--completeness must be >= 0 and < 1, got {args.completeness}")
     if args.rounds < 1:
@@ -581,8 +592,7 @@ def _couplings_ensemble(args):
 def _run_couplings(args: argparse.Namespace) -> int:
     from . import nmr
 
-    from .thermo import check_temperatures
-    temps = check_temperatures(args.temperature, "--temperature")
+    temps = _temperatures(args.temperature)
     if args.plot:
         _check_plot_path(args.plot)
     observed = None
@@ -826,8 +836,7 @@ def _run_batch(args: argparse.Namespace) -> int:
 
     from .batch import read_batch_input, search_many
 
-    from .thermo import check_temperatures
-    temps = check_temperatures(args.temperature, "--temperature")
+    temps = _temperatures(args.temperature)
     if args.scheduler is not None and args.workers is not None:
         raise InputError("give either --scheduler or --workers, not both")
     args.workers = _cap_workers(args.workers)

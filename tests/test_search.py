@@ -209,3 +209,10 @@ def test_cli_sampling_defaults_match_search_and_bad_values_are_named(capsys):
     sample = next(p for p in json.loads(capsys.readouterr().out)["provenance"]
                   if p["step"] == "sample")
     assert sample["rounds"] == 1 and sample["trials"] == 12
+
+
+def test_cli_notes_a_temperature_that_looks_like_celsius(capsys):
+    # -T 25 is 25 K: allowed (cryogenic work exists) but named, with the kelvin it may have meant
+    assert main(["ensemble", "CCCC", "--method", "mmff94s", "-T", "25", "298.15"]) == 0
+    err = capsys.readouterr().err
+    assert "--temperature 25 K is below 150 K" in err and "298.15 K" in err
