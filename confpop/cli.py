@@ -44,6 +44,20 @@ _MIN_POPULATION = 1e-4
 _SCREEN_MARGIN = 3.0
 
 
+class _Once(argparse.Action):
+    """Store a list option, refusing it a second time (``-T 298 --temperature 310`` kept only
+    310 before, silently)."""
+
+    def __call__(self, parser, namespace, values, option_string=None):
+        seen = getattr(namespace, "_given_once", set())
+        if self.dest in seen:
+            raise InputError(f"{option_string} given twice; give every value after one "
+                             f"{'/'.join(self.option_strings)}, e.g. -T 273.15 298.15")
+        seen.add(self.dest)
+        namespace._given_once = seen
+        setattr(namespace, self.dest, values)
+
+
 def _finite_float(text: str) -> float:
     try:
         value = float(text)
@@ -74,7 +88,7 @@ def _add_rates(parser: argparse.ArgumentParser) -> None:
         help="free energy of activation ΔG‡ of one direction (A -> B), in --unit",
     )
     parser.add_argument(
-        "--temperature", "-T", metavar="T", nargs="+", type=_finite_float, default=[298.15],
+        "--temperature", "-T", metavar="T", nargs="+", type=_finite_float, default=[298.15], action=_Once,
         help="temperature(s) in K (default 298.15)",
     )
     parser.add_argument(
@@ -184,7 +198,7 @@ def _add_ensemble(parser: argparse.ArgumentParser) -> None:
                         help="final level: gfn2 (default), gfn1, gfnff, tblite-gfn2, mmff94s, mmff94, uff")
     parser.add_argument("--solvent", default=None,
                         help="implicit solvent (ALPB) for tight-binding methods, e.g. water, chloroform")
-    parser.add_argument("--temperature", "-T", nargs="+", type=_finite_float, default=[298.15],
+    parser.add_argument("--temperature", "-T", nargs="+", type=_finite_float, default=[298.15], action=_Once,
                         metavar="K", help="temperatures in kelvin (default 298.15)")
     parser.add_argument("--seed", type=int, default=0, help="sampling seed (default 0)")
     parser.add_argument("--trials", type=int, default=None,
@@ -505,7 +519,7 @@ def _add_couplings(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("input", metavar="INPUT",
                         help="an ensemble SDF written by confpop, or a SMILES (then a conformer "
                              "search with default settings runs first)")
-    parser.add_argument("--temperature", "-T", nargs="+", type=_finite_float, default=[298.15],
+    parser.add_argument("--temperature", "-T", nargs="+", type=_finite_float, default=[298.15], action=_Once,
                         metavar="K", help="temperatures in kelvin (default 298.15); the fit uses the first")
     parser.add_argument("--observed", metavar="FILE.csv", default=None,
                         help="measured couplings, CSV columns atom_a, atom_b, J_hz [, sigma_hz] "
@@ -745,7 +759,7 @@ def _add_batch(parser: argparse.ArgumentParser) -> None:
                         help="final level: gfn2 (default), gfn1, gfnff, tblite-gfn2, mmff94s, mmff94, uff")
     parser.add_argument("--solvent", default=None,
                         help="implicit solvent for tight-binding methods, e.g. water, chloroform")
-    parser.add_argument("--temperature", "-T", nargs="+", type=_finite_float, default=[298.15],
+    parser.add_argument("--temperature", "-T", nargs="+", type=_finite_float, default=[298.15], action=_Once,
                         metavar="K", help="temperatures in kelvin (default 298.15); the "
                                           "effective number of conformers is at the first")
     parser.add_argument("--seed", type=int, default=0, help="sampling seed (default 0)")
@@ -919,7 +933,7 @@ def _add_scan(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--convergence", default="tight",
                         choices=["loose", "normal", "tight", "verytight"],
                         help="optimizer convergence at each point (default tight)")
-    parser.add_argument("--temperature", "-T", nargs="+", type=_finite_float, default=[298.15],
+    parser.add_argument("--temperature", "-T", nargs="+", type=_finite_float, default=[298.15], action=_Once,
                         metavar="K", help="temperatures in kelvin for the rates (default 298.15)")
     parser.add_argument("--delta-nu", metavar="HZ", type=_finite_float, default=100.0,
                         help="NMR signal separation in Hz for the exchange regime (default 100)")

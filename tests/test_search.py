@@ -216,3 +216,9 @@ def test_cli_notes_a_temperature_that_looks_like_celsius(capsys):
     assert main(["ensemble", "CCCC", "--method", "mmff94s", "-T", "25", "298.15"]) == 0
     err = capsys.readouterr().err
     assert "--temperature 25 K is below 150 K" in err and "298.15 K" in err
+
+
+def test_cli_temperature_given_twice_is_refused(capsys):
+    # argparse kept only the last of -T 298 --temperature 310, silently
+    assert main(["ensemble", "CCCC", "--method", "mmff94s", "-T", "298", "--temperature", "310"]) == 2
+    assert "--temperature given twice" in capsys.readouterr().err
