@@ -319,15 +319,15 @@ def _population_views(ens, temps, free: bool, dft: bool) -> dict:
 def _key_torsions(ens, count: int = 2):
     """The rotatable dihedrals that differ most between the conformers: [(label, atoms)]."""
     import numpy as np
-    from rdkit.Chem import rdMolTransforms
 
+    from .geometry import dihedral_at
     from .torsion import rotatable_torsions
 
     mol = ens.mol
     ids = ens.ids()
     scored = []
     for t in rotatable_torsions(mol):
-        values = np.radians([rdMolTransforms.GetDihedralDeg(mol.GetConformer(c), *t.atoms) for c in ids])
+        values = np.radians([dihedral_at(mol.GetConformer(c).GetPositions(), t.atoms) for c in ids])
         spread = 1.0 - abs(np.mean(np.exp(1j * values))) if len(values) else 0.0
         scored.append((spread, t.label, t.atoms))
     scored.sort(key=lambda s: -s[0])
@@ -335,7 +335,7 @@ def _key_torsions(ens, count: int = 2):
 
 
 def _ensemble_table_text(ens, temps, views=None) -> str:
-    from rdkit.Chem import rdMolTransforms
+    from .geometry import dihedral_at
 
     rel = ens.energies("kcal/mol")
     views = views or {"": ens.populations(temps)}
@@ -353,7 +353,7 @@ def _ensemble_table_text(ens, temps, views=None) -> str:
     for cid in ens.ids():
         line = f"{cid:>4}  {rel[cid]:>11.2f}  {int(ens.degeneracy[cid]):>3}  " + "  ".join(
             f"{views[name].loc[cid, t]:>12.3f}" for name, t in labels)
-        line += "".join(f"  {rdMolTransforms.GetDihedralDeg(mol.GetConformer(cid), *atoms):>18.0f}"
+        line += "".join(f"  {dihedral_at(mol.GetConformer(cid).GetPositions(), atoms):>18.0f}"
                         for _, atoms in torsions)
         if species is not None:
             line += f"  {int(species[cid]):>7}"

@@ -44,6 +44,7 @@ import numpy as np
 from rdkit import Chem
 
 from .errors import InputError
+from .geometry import centered, kabsch_rmsd
 
 __all__ = ["soft_directions", "symmetry_of_conformer", "relax_to_minimum", "MinimumOutcome",
            "DEFAULT_KICK", "DEFAULT_SYMMETRY_RMSD"]
@@ -132,7 +133,7 @@ def symmetry_of_conformer(mol: Chem.Mol, positions, *, perms=None,
     Uses the resonance-aware graph symmetry of :func:`confpop.prune.automorphisms` over
     heavy atoms and polar hydrogens.
     """
-    from .prune import _kabsch_rmsd, automorphisms, best_rmsd, rmsd_atoms
+    from .prune import automorphisms, best_rmsd, rmsd_atoms
 
     pos = np.asarray(positions, dtype=float)
     atoms = rmsd_atoms(mol)
@@ -146,10 +147,8 @@ def symmetry_of_conformer(mol: Chem.Mol, positions, *, perms=None,
     heavy = np.array([mol.GetAtomWithIdx(int(a)).GetAtomicNum() > 1 for a in order])
     moving = np.array([p for p in perms if np.any(p[heavy] != order[heavy])])
     if len(moving):
-        ref = pos[order] - pos[order].mean(axis=0)
-        probes = pos[moving]
-        probes = probes - probes.mean(axis=1, keepdims=True)
-        if _kabsch_rmsd(ref, probes, allow_reflection=False).min() < tolerance:
+        probes = centered(pos[moving])
+        if kabsch_rmsd(centered(pos[order]), probes, allow_reflection=False).min() < tolerance:
             return "rotation"
     return ""
 

@@ -43,6 +43,7 @@ from rdkit.Chem.EnumerateStereoisomers import EnumerateStereoisomers, StereoEnum
 from scipy.spatial import cKDTree
 
 from .errors import InputError
+from .geometry import dihedral_at
 
 __all__ = [
     "load_molecule",
@@ -1454,7 +1455,9 @@ def _cis_trans_from_coordinates(mol, bond, conf):
     if na is None or nb is None:
         return "?"
     p = conf.GetPositions()
-    angle = _dihedral(p[na], p[a.GetIdx()], p[b.GetIdx()], p[nb])
+    angle = dihedral_at(p, (na, a.GetIdx(), b.GetIdx(), nb))
+    if np.isnan(angle):  # a linear bond angle at the double bond: no cis or trans
+        return "?"
     return "cis" if abs(angle) < 90.0 else "trans"
 
 
@@ -1468,14 +1471,6 @@ def _cis_trans_from_flags(bond):
         atoms[1] != _lowest_other_neighbour(b, a.GetIdx()))
     cis = (stereo == Chem.BondStereo.STEREOCIS) ^ bool(flips % 2)
     return "cis" if cis else "trans"
-
-
-def _dihedral(p0, p1, p2, p3):
-    b0, b1, b2 = p0 - p1, p2 - p1, p3 - p2
-    b1n = b1 / np.linalg.norm(b1)
-    v = b0 - np.dot(b0, b1n) * b1n
-    w = b2 - np.dot(b2, b1n) * b1n
-    return math.degrees(math.atan2(np.dot(np.cross(b1n, v), w), np.dot(v, w)))
 
 
 def _element_text(mol, key):

@@ -102,6 +102,7 @@ import numpy as np
 
 from .backends.base import Backend
 from .errors import CalculationFailed, ConfpopError, InputError
+from .geometry import dihedral_at, wrap_degrees
 from .units import ANGSTROM_BOHR, BOHR_ANGSTROM
 
 __all__ = ["OptimizationResult", "optimize_positions", "optimize_structure",
@@ -219,15 +220,6 @@ def _check_constraints(dihedral_constraints, frozen_atoms, n_atoms: int):
         dihedrals.append((atoms, target))
     frozen = sorted({_check_index(a, n_atoms, "frozen_atoms") for a in (frozen_atoms or ())})
     return dihedrals, frozen
-
-
-def _dihedral_degrees(positions: np.ndarray, atoms) -> float:
-    p0, p1, p2, p3 = (positions[a] for a in atoms)
-    b0, b1, b2 = p0 - p1, p2 - p1, p3 - p2
-    b1 = b1 / np.linalg.norm(b1)
-    v = b0 - np.dot(b0, b1) * b1
-    w = b2 - np.dot(b2, b1) * b1
-    return float(np.degrees(np.arctan2(np.dot(np.cross(b1, v), w), np.dot(v, w))))
 
 
 @contextlib.contextmanager
@@ -465,7 +457,12 @@ def _angle_values(x, at):
 
 
 def _torsion_values(x, at):
-    # geomeTRIC's Dihedral.value (also used for OutOfPlane)
+    # geomeTRIC's Dihedral.value (also used for OutOfPlane), deliberately not
+    # confpop.geometry.dihedral: geomeTRIC's own formula (atan2 of |v2| v1.(v2 x v3) and
+    # (v2 x v3).(v1 x v2)), its range [-pi, pi] and no guard for linear arrangements, so that
+    # the accelerated coordinates give bit-for-bit the values geomeTRIC's classes give and the
+    # optimizer takes exactly geomeTRIC's steps. The same holds for the distance, angle and
+    # derivative functions here and for the periodic difference rule below.
     v1 = x[at[:, 1]] - x[at[:, 0]]
     v2 = x[at[:, 2]] - x[at[:, 1]]
     v3 = x[at[:, 3]] - x[at[:, 2]]
@@ -632,11 +629,14 @@ def _run_geometric(backend, pos, crit, preset, max_steps, dihedrals, frozen, coo
         result = backend.compute(final_pos, gradient=True)
         calls += 1
     for atoms, target in driven:
-        reached = _dihedral_degrees(final_pos, atoms)
-        miss = (reached - target + 180.0) % 360.0 - 180.0
-        if converged and abs(miss) > 0.1:
+        reached = float(dihedral_at(final_pos, atoms))
+        miss = wrap_degrees(reached - target)
+        if converged and not abs(miss) <= 0.1:  # NaN: a bond angle ended linear
             converged = False
-            message = f"dihedral {atoms} ended at {reached:.2f} deg, target {target:.2f} deg"
+            message = (f"dihedral {atoms} ended at {reached:.2f} deg, target {target:.2f} deg"
+                       if math.isfinite(reached) else
+                       f"dihedral {atoms} ended undefined (a bond angle became linear), "
+                       f"target {target:.2f} deg")
     return _summary(final_pos, result, steps, calls, converged, message)
 
 

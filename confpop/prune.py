@@ -22,6 +22,7 @@ import numpy as np
 from rdkit import Chem
 
 from .errors import InputError
+from .geometry import centered, kabsch_rmsd
 from .units import convert
 
 __all__ = ["PruneSettings", "rmsd_atoms", "resonance_hybrid", "automorphisms", "best_rmsd", "is_achiral",
@@ -186,20 +187,6 @@ def automorphisms(mol: Chem.Mol, atoms: np.ndarray, max_count: int = 5000) -> np
     return np.unique(order[np.array(matches, dtype=int)], axis=0)
 
 
-def _kabsch_rmsd(ref: np.ndarray, probes: np.ndarray, allow_reflection: bool) -> np.ndarray:
-    """RMSD after optimal superposition of each probe (P, n, 3) onto ref (n, 3), centred."""
-    h = np.einsum("pni,nj->pij", probes, ref)
-    u, s, vt = np.linalg.svd(h)
-    if allow_reflection:
-        trace = s.sum(axis=1)
-    else:
-        d = np.sign(np.linalg.det(np.matmul(u, vt)))
-        trace = s[:, 0] + s[:, 1] + d * s[:, 2]
-    n = ref.shape[0]
-    msd = (np.sum(ref * ref) + np.einsum("pni,pni->p", probes, probes) - 2.0 * trace) / n
-    return np.sqrt(np.clip(msd, 0.0, None))
-
-
 def best_rmsd(ref: np.ndarray, probe: np.ndarray, perms: np.ndarray,
               allow_reflection: bool = False) -> float:
     """Symmetry-aware RMSD of two conformers over the compared atoms.
@@ -214,10 +201,8 @@ def best_rmsd(ref: np.ndarray, probe: np.ndarray, perms: np.ndarray,
         Also allow improper superposition (the mirror image of ``probe``).
     """
     atoms = perms[0] if len(perms) == 1 else np.sort(perms[0])
-    r = ref[atoms] - ref[atoms].mean(axis=0)
-    p = probe[perms]
-    p = p - p.mean(axis=1, keepdims=True)
-    return float(_kabsch_rmsd(r, p, allow_reflection).min())
+    probes = centered(probe[perms])
+    return float(kabsch_rmsd(centered(ref[atoms]), probes, allow_reflection=allow_reflection).min())
 
 
 def is_achiral(mol: Chem.Mol) -> bool:

@@ -50,6 +50,7 @@ import pandas as pd
 from rdkit import Chem
 
 from .errors import InputError
+from .geometry import dihedral_at
 
 __all__ = ["SlowBond", "slow_bonds", "configuration_elements", "species_table",
            "species_populations", "within_species_populations", "CONFIGURATION_CLASSES",
@@ -101,9 +102,8 @@ class SlowBond:
         """Per-conformer state from (n_conformers, n_atoms, 3) positions: for an amide "cis"
         (|dihedral| < 90, the carbonyl O cis to R) or "trans"; for an axis "+" or "-"
         (the sign of the dihedral)."""
-        from .nmr.karplus import dihedral
         i, j, k, l = self.atoms
-        phi = dihedral(positions[:, i], positions[:, j], positions[:, k], positions[:, l])
+        phi = dihedral_at(positions, self.atoms)
         if self.kind in ("hindered biaryl", "stereocentre"):
             if self.kind == "stereocentre":  # sign of the triple product of three neighbours
                 c = positions[:, j]

@@ -36,6 +36,7 @@ import pandas as pd
 from rdkit import Chem
 
 from .errors import CalculationFailed, InputError
+from .geometry import DEGENERATE_LENGTH, dihedral_at, wrap_degrees
 from .thermo import check_temperatures
 from .units import convert, normalize_unit
 
@@ -72,12 +73,17 @@ _RIGID_EXTRA = (" A rigid scan relaxes nothing, so its barriers are upper bounds
 
 # ----------------------------------------------------------------------------- geometry
 def dihedral_angle(positions, atoms) -> float:
-    """The dihedral angle i-j-k-l in degrees, in (−180, 180].
+    """The dihedral angle i-j-k-l in degrees, in (−180, 180] (:func:`confpop.geometry.dihedral`).
 
     Parameters
     ----------
     positions : (n_atoms, 3) array, angstrom
     atoms : (i, j, k, l) ints, 0-based
+
+    Raises
+    ------
+    InputError
+        If j and k coincide or a bond angle at j or k is linear (no dihedral is defined).
 
     Examples
     --------
@@ -87,31 +93,19 @@ def dihedral_angle(positions, atoms) -> float:
     90.0
     """
     p = np.asarray(positions, dtype=float)
-    i, j, k, l = atoms
-    b0, b1, b2 = p[i] - p[j], p[k] - p[j], p[l] - p[k]
-    n1 = np.linalg.norm(b1)
-    if n1 == 0:
-        raise InputError(f"atoms {j} and {k} sit on top of each other; no dihedral is defined")
-    b1n = b1 / n1
-    v = b0 - np.dot(b0, b1n) * b1n
-    w = b2 - np.dot(b2, b1n) * b1n
-    if np.linalg.norm(v) < 1e-8 or np.linalg.norm(w) < 1e-8:
+    angle = float(dihedral_at(p, atoms))
+    if math.isnan(angle):
+        _, j, k, _ = atoms
+        if np.linalg.norm(p[k] - p[j]) < DEGENERATE_LENGTH:
+            raise InputError(f"atoms {j} and {k} sit on top of each other; no dihedral is defined")
         raise InputError(f"dihedral {tuple(atoms)} is undefined: a bond angle at atom {j} or "
                          f"{k} is linear")
-    angle = math.degrees(math.atan2(float(np.dot(np.cross(b1n, v), w)), float(np.dot(v, w))))
-    return 180.0 if angle <= -180.0 else angle
-
-
-def _wrap(angle):
-    """Map degrees to (−180, 180]."""
-    a = np.mod(np.asarray(angle, dtype=float) + 180.0, 360.0) - 180.0
-    a = np.where(a <= -180.0, a + 360.0, a)
-    return float(a) if np.ndim(a) == 0 else a
+    return angle
 
 
 def _circular_difference(a, b):
     """|a − b| on the circle, degrees in [0, 180]."""
-    return np.abs(_wrap(np.asarray(a, dtype=float) - np.asarray(b, dtype=float)))
+    return np.abs(wrap_degrees(np.asarray(a, dtype=float) - np.asarray(b, dtype=float)))
 
 
 def _side(mol: Chem.Mol, start: int, blocked: int) -> set[int] | None:
@@ -162,7 +156,7 @@ def set_dihedral(positions, atoms, target, moving) -> np.ndarray:
     p = np.array(positions, dtype=float)
     i, j, k, l = atoms
     moving = np.array(sorted(moving), dtype=int)
-    delta = _wrap(target - dihedral_angle(p, atoms))
+    delta = wrap_degrees(target - dihedral_angle(p, atoms))
     # rotating the k-side by +delta about j->k raises the dihedral by delta; the j side by -delta
     sign = 1.0 if l in moving else -1.0
     rot = _rotation_matrix(p[k] - p[j], sign * delta)
@@ -1078,7 +1072,7 @@ def _walk(mol, method, backend_kw, positions, atoms, targets, convergence, movin
         from .optimize import optimize_positions
         try:
             res = optimize_positions(backend, trial, convergence=convergence,
-                                     dihedral_constraints=[(atoms, float(_wrap(target)))])
+                                     dihedral_constraints=[(atoms, float(wrap_degrees(target)))])
         except CalculationFailed as exc:
             log.warning("scan point %.1f deg failed: %s", target, exc)
             out.append({"energy": float("nan"), "converged": False, "message": str(exc),
@@ -1098,7 +1092,7 @@ def _walk(mol, method, backend_kw, positions, atoms, targets, convergence, movin
         message = res.message
         if _circular_difference(angle, target) > 1.0:
             converged = False
-            message = (f"dihedral reached {angle:.2f} deg, not the target {_wrap(target):.2f}; "
+            message = (f"dihedral reached {angle:.2f} deg, not the target {wrap_degrees(target):.2f}; "
                        + message)
         out.append({"energy": float(res.energy), "converged": converged, "message": message,
                     "positions": final, "angle": angle, "gradient_calls": int(res.gradient_calls)})
@@ -1348,7 +1342,7 @@ def _neighbour_geometries(records, x, periodic):
     for r in records:
         if r["positions"] is None:
             continue
-        off = float(_wrap(r["angle"] - x)) if periodic else r["angle"] - x
+        off = float(wrap_degrees(r["angle"] - x)) if periodic else r["angle"] - x
         if off <= 0 and (below is None or off > below[0]):
             below = (off, r["positions"])
         if off >= 0 and (above is None or off < above[0]):

@@ -37,6 +37,7 @@ import numpy as np
 from rdkit import Chem
 
 from .errors import InputError
+from .geometry import centered, kabsch_rmsd
 from .units import AMU_KG, ANGSTROM_BOHR, BOHR_ANGSTROM, HARTREE_J, LIGHT_SPEED_CM, PLANCK
 
 __all__ = [
@@ -106,13 +107,8 @@ def atomic_masses(mol) -> np.ndarray:
     return np.array([a.GetMass() for a in mol.GetAtoms()], dtype=float)
 
 
-def _centered(positions, masses):
-    com = (masses[:, None] * positions).sum(0) / masses.sum()
-    return positions - com
-
-
 def _inertia_tensor(positions, masses) -> np.ndarray:
-    r = _centered(positions, masses)
+    r = centered(positions, masses)
     return np.einsum("i,ij,ik->jk", masses, r, r) * -1.0 + np.eye(3) * np.einsum("i,ij,ij->", masses, r, r)
 
 
@@ -359,7 +355,7 @@ def eckart_basis(positions, masses, linear: bool | None = None) -> np.ndarray:
         linear = is_linear(pos)
     n = len(pos)
     sqm = np.sqrt(m)
-    r = _centered(pos, m)
+    r = centered(pos, m)
     ext = []
     for a in range(3):
         t = np.zeros((n, 3))
@@ -612,24 +608,13 @@ def _frame(u, v):
     return np.column_stack([e1, e2, e3])
 
 
-def _kabsch_rmsd(p, q):
-    """RMSD after the best PROPER rotation of centred p onto centred q."""
-    h = p.T @ q
-    u, s, vt = np.linalg.svd(h)
-    d = np.sign(np.linalg.det(vt.T @ u.T))
-    corr = np.diag([1.0, 1.0, d])
-    rot = vt.T @ corr @ u.T
-    diff = p @ rot.T - q
-    return float(np.sqrt(np.mean(np.sum(diff ** 2, axis=1))))
-
-
 def _symmetry_number(mol, pos, tolerance):
     numbers = np.array([a.GetAtomicNum() for a in mol.GetAtoms()])
     masses = atomic_masses(mol)
     n = len(pos)
     if n == 1:
         return 1
-    r = _centered(pos, masses)
+    r = centered(pos, masses)
     if is_linear(pos, max(tolerance, _LINEAR_TOLERANCE)):
         # D∞h if the end-over-end C2 maps the molecule onto itself (z -> -z along the axis)
         _, _, vt = np.linalg.svd(r, full_matrices=False)
@@ -675,7 +660,8 @@ def _symmetry_number(mol, pos, tolerance):
                 continue
             if not np.array_equal(adjacency[np.ix_(perm, perm)], adjacency):
                 continue
-            if _kabsch_rmsd(r, r[perm]) > tolerance:
+            # proper rotations about the centre of mass (r is centred there)
+            if kabsch_rmsd(r, r[perm], allow_reflection=False) > tolerance:
                 continue
             key = tuple(perm.tolist())
             if key not in seen:

@@ -17,6 +17,7 @@ from rdkit import Chem
 from rdkit.Chem import AllChem
 
 from ..errors import InputError
+from ..geometry import dihedral_at
 from ..units import convert
 from .base import Backend, BackendResult
 
@@ -37,15 +38,6 @@ def rotor_dihedrals(mol: Chem.Mol) -> list[tuple[int, int, int, int]]:
         if i is not None and l is not None:
             out.append((i, j, k, l))
     return out
-
-
-def _dihedral(p, i, j, k, l):
-    """Dihedral angles (radians) for a batch of geometries p of shape (B, n, 3)."""
-    b0, b1, b2 = p[:, i] - p[:, j], p[:, k] - p[:, j], p[:, l] - p[:, k]
-    b1n = b1 / np.linalg.norm(b1, axis=1, keepdims=True)
-    v = b0 - np.sum(b0 * b1n, axis=1, keepdims=True) * b1n
-    w = b2 - np.sum(b2 * b1n, axis=1, keepdims=True) * b1n
-    return np.arctan2(np.sum(np.cross(b1n, v) * w, axis=1), np.sum(v * w, axis=1))
 
 
 class ModelTorsion(Backend):
@@ -109,7 +101,7 @@ class ModelTorsion(Backend):
         e = self._kb * np.sum((r - self._r0) ** 2, axis=1)
         e = e + self._ka * np.sum((self._angle_values(batch) - self._theta0) ** 2, axis=1)
         for d in self._rotors:
-            phi = _dihedral(batch, *d)
+            phi = dihedral_at(batch, d, degrees=False)
             e = e + 0.5 * self._v * (1.0 - np.cos(self._n * phi - self._gamma))
         return e
 

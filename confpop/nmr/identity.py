@@ -46,6 +46,7 @@ from rdkit import Chem
 from rdkit.Chem import rdCIPLabeler
 
 from ..errors import InputError
+from ..geometry import dihedral_at
 
 __all__ = ["ProchiralPair", "ProtonIdentityWarning", "prochiral_pairs",
            "consistent_proton_identity", "prochiral_labels"]
@@ -102,9 +103,7 @@ class ProchiralPair:
         """+1/-1 per conformer ((..., n_atoms, 3) positions): which of the two places holds
         ``pro_r`` (compare with ``sign``)."""
         if self.descriptor == "Z":  # trigonal: cis (+1) or trans (-1) to others[1] across X=Y
-            from .karplus import dihedral
-            phi = dihedral(positions[..., self.pro_r, :], positions[..., self.centre, :],
-                           positions[..., self.others[0], :], positions[..., self.others[1], :])
+            phi = dihedral_at(positions, (self.pro_r, self.centre, *self.others[:2]))
             return np.where(np.abs(phi) < 90.0, 1.0, -1.0)
         return _triple(positions, self.centre, self.others[0], self.others[1], self.pro_r)
 

@@ -56,6 +56,7 @@ from typing import Iterable, Sequence, Union
 
 import numpy as np
 
+from .. import geometry
 from ..errors import InputError
 
 __all__ = [
@@ -420,26 +421,15 @@ def dihedral(p0, p1, p2, p3) -> np.ndarray:
 
     Positive when, looking along p1 -> p2, the bond p1-p0 must turn clockwise to eclipse
     p2-p3. Arguments are (..., 3) arrays; leading dimensions broadcast (e.g. conformers).
+    The four-point form of :func:`confpop.geometry.dihedral` (NaN where undefined).
 
     Examples
     --------
     >>> round(float(dihedral([1, 0, 0], [0, 0, 0], [0, 0, 1], [0, 1, 1])), 6)
     90.0
     """
-    p0, p1, p2, p3 = (_as_array(p) for p in (p0, p1, p2, p3))
-    b0 = p0 - p1
-    b1 = p2 - p1
-    b2 = p3 - p2
-    b1n = b1 / np.linalg.norm(b1, axis=-1, keepdims=True)
-    v = b0 - np.sum(b0 * b1n, axis=-1, keepdims=True) * b1n
-    w = b2 - np.sum(b2 * b1n, axis=-1, keepdims=True) * b1n
-    x = np.sum(v * w, axis=-1)
-    y = np.sum(np.cross(v, w) * b1n, axis=-1)
-    return np.degrees(np.arctan2(y, x))
-
-
-def _wrap(angle):
-    return (np.asarray(angle) + 180.0) % 360.0 - 180.0
+    points = np.broadcast_arrays(*(_as_array(p) for p in (p0, p1, p2, p3)))
+    return geometry.dihedral(np.stack(points, axis=-2))
 
 
 def orientation_sign(h_x, x, y, substituent) -> np.ndarray:
@@ -473,5 +463,5 @@ def orientation_sign(h_x, x, y, substituent) -> np.ndarray:
     use_alt = np.linalg.norm(trial, axis=-1, keepdims=True) < 1e-3 * np.linalg.norm(axis, axis=-1, keepdims=True)
     perp = np.where(use_alt, alt, trial)
     z = y + perp
-    diff = _wrap(dihedral(h_x, x, y, z) - dihedral(s, x, y, z))
+    diff = geometry.wrap_degrees(dihedral(h_x, x, y, z) - dihedral(s, x, y, z))
     return np.where(diff >= 0.0, 1.0, -1.0)
