@@ -438,6 +438,9 @@ def _warn_implicit_ligand_hydrogens(mol: Chem.Mol) -> None:
         metals = [n for n in atom.GetNeighbors() if is_metal(n.GetAtomicNum())]
         if not metals or any(b.GetBondType() == Chem.BondType.DATIVE for b in atom.GetBonds()):
             continue
+        others = [n for n in atom.GetNeighbors() if not is_metal(n.GetAtomicNum())]
+        if atom.GetAtomicNum() in (8, 16) and any(n.GetAtomicNum() != 1 for n in others):
+            continue  # carboxylato, alkoxido, thiolato: anionic on purpose, as usually meant
         full = {7: "NH3", 8: "OH2", 15: "PH3", 16: "SH2"}[atom.GetAtomicNum()]
         found.append((f"{atom.GetSymbol()}{atom.GetIdx() + 1}",
                       atom.GetTotalNumHs(includeNeighbors=True),
