@@ -320,9 +320,13 @@ def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int
                                    merge_mirror_images=merge_mirror_images)
     achiral = is_achiral(mol)
     store = _open_store(store)
+    from . import __version__
+    from .store import library_versions
     provenance = [{"step": "input", "smiles": Chem.MolToSmiles(Chem.RemoveHs(mol)),
                    "charge": charge, "multiplicity": multiplicity, "method": method,
-                   "solvent": solvent, "seed": seed}]
+                   "solvent": solvent, "seed": seed, "temperatures": list(temperatures),
+                   "min_population": min_population, "confpop": __version__,
+                   "libraries": dict(library_versions())}]
 
     # 1. sample + force-field relax + prune
     t0 = time.perf_counter()

@@ -52,3 +52,12 @@ def test_plain_search_refuses_a_runaway_job():
     chain = "N" + "CC(=O)N" * 60 + "C"
     with pytest.raises(cp.InputError, match="would take too long.*allow_long=True"):
         cp.search(chain)
+
+
+def test_provenance_names_the_software_and_the_cut():
+    from importlib.metadata import version
+    ens = cp.search("CCO", method="mmff94s", seed=1, temperatures=[250.0, 300.0])
+    first = ens.provenance[0]
+    assert first["confpop"] == cp.__version__
+    assert first["libraries"]["rdkit"] == version("rdkit")      # importlib.metadata, independent
+    assert first["temperatures"] == [250.0, 300.0] and first["min_population"] == MIN_POPULATION
