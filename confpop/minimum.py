@@ -56,8 +56,12 @@ log = logging.getLogger(__name__)
 #: caught it and the axial phenylcyclohexane saddle; 0.2 A needed the fewest gradient calls.
 DEFAULT_KICK = 0.2
 #: RMSD (angstrom, heavy atoms + polar H) within which a conformer counts as symmetric.
-#: Optimized symmetric structures (geomeTRIC, "tight") keep their symmetry to < 0.01 A.
-DEFAULT_SYMMETRY_RMSD = 0.05
+#: Measured on 36 GFN2 conformers of six small molecules (butane, pentane,
+#: phenylcyclohexane, propanoate in water, 4-tert-butylphenol in chloroform, diethylene
+#: glycol in water): conformer vs its own mirror image 0-0.026 A for the symmetric ones, one
+#: near-symmetric at 0.053 A, and >= 0.28 A for every chiral conformer; 0.1 A takes all the
+#: symmetric ones and stays a factor of ~3 from the chiral ones.
+DEFAULT_SYMMETRY_RMSD = 0.1
 
 
 def _side(mol: Chem.Mol, j: int, k: int) -> list[int]:
