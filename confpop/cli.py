@@ -68,6 +68,30 @@ def _finite_float(text: str) -> float:
     return value
 
 
+_CELSIUS = ("c", "degc", "°c", "ºc", "celsius")
+
+
+def _temperature_arg(text: str) -> float:
+    """A --temperature value: kelvin, or °C when written with the unit (25C, 25degC, 25°C);
+    298.15K is accepted too."""
+    import re
+
+    match = re.fullmatch(r"\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*([^\d\s].*)?\s*",
+                         str(text))
+    if not match:
+        raise argparse.ArgumentTypeError(f"expected a temperature such as 298.15 (kelvin) or "
+                                         f"25C (degrees Celsius), got {text!r}")
+    value, unit = float(match.group(1)), (match.group(2) or "").strip().lower()
+    if unit in _CELSIUS:
+        value += 273.15
+    elif unit not in ("", "k"):
+        raise argparse.ArgumentTypeError(f"unknown temperature unit in {text!r}: write kelvin "
+                                         f"(298.15 or 298.15K) or degrees Celsius (25C, 25degC)")
+    if not math.isfinite(value):
+        raise argparse.ArgumentTypeError(f"expected a finite temperature, got {text!r}")
+    return round(value, 6)
+
+
 def _json_number(x: float):
     """JSON has no inf/NaN: write them as null."""
     x = float(x)
@@ -88,8 +112,8 @@ def _add_rates(parser: argparse.ArgumentParser) -> None:
         help="free energy of activation ΔG‡ of one direction (A -> B), in --unit",
     )
     parser.add_argument(
-        "--temperature", "-T", metavar="T", nargs="+", type=_finite_float, default=[298.15], action=_Once,
-        help="temperature(s) in K (default 298.15)",
+        "--temperature", "-T", metavar="T", nargs="+", type=_temperature_arg, default=[298.15], action=_Once,
+        help="temperature(s) in K (default 298.15); °C when written with the unit, e.g. 25C",
     )
     parser.add_argument(
         "--unit", default="kcal/mol",
@@ -197,9 +221,9 @@ def _add_ensemble(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--method", default="gfn2",
                         help="final level: gfn2 (default), gfn1, gfnff, tblite-gfn2, mmff94s, mmff94, uff")
     parser.add_argument("--solvent", default=None,
-                        help="implicit solvent (ALPB) for tight-binding methods, e.g. water, chloroform")
-    parser.add_argument("--temperature", "-T", nargs="+", type=_finite_float, default=[298.15], action=_Once,
-                        metavar="K", help="temperatures in kelvin (default 298.15)")
+                        help="implicit solvent, e.g. water, chloroform: GBSA with gfn2/gfn1/gfnff (xtb-python), ALPB with tblite-gfn2/tblite-gfn1; force fields have none")
+    parser.add_argument("--temperature", "-T", nargs="+", type=_temperature_arg, default=[298.15], action=_Once,
+                        metavar="K", help="temperatures in kelvin (default 298.15); °C when written with the unit, e.g. 25C")
     parser.add_argument("--seed", type=int, default=0, help="sampling seed (default 0)")
     parser.add_argument("--trials", type=int, default=None,
                         help="trial structures per sampling round (default: from flexibility; "
@@ -257,8 +281,15 @@ def _add_ensemble(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--into-nonempty-folder", action="store_true",
                         help="allow an --out folder holding files confpop did not write (they "
                              "stay; a taken name gets -2)")
+    parser.add_argument("--plot", default=None, metavar="FILE.png",
+                        help="draw populations against temperature and the energy ladder "
+                             "(checked before any work)")
+    parser.add_argument("--report", default=None, metavar="FILE.html",
+                        help="write one self-contained HTML report (job, cautions, table, "
+                             "pictures, free energies; no network needed to open it)")
     parser.add_argument("--json", action="store_true", help="print machine-readable JSON only")
-    parser.add_argument("--quiet", action="store_true", help="no progress bars")
+    parser.add_argument("--quiet", action="store_true",
+                        help="no progress bars (and no per-stage lines when stderr is a log)")
 
 
 def _cap_workers(workers):
@@ -285,7 +316,8 @@ def _temperatures(values) -> list:
     low = [t for t in temps if t < 150.0]
     if low:
         print(f"{_PROG}: note: --temperature {low[0]:g} K is below 150 K; temperatures are in "
-              f"kelvin ({low[0]:g} °C would be {low[0] + 273.15:g} K)", file=sys.stderr)
+              f"kelvin ({low[0]:g} °C would be {low[0] + 273.15:g} K; write {low[0]:g}C for "
+              f"degrees Celsius)", file=sys.stderr)
     return temps
 
 
@@ -316,48 +348,57 @@ def _population_views(ens, temps, free: bool, dft: bool) -> dict:
     return views
 
 
-def _key_torsions(ens, count: int = 2):
-    """The rotatable dihedrals that differ most between the conformers: [(label, atoms)]."""
-    import numpy as np
-
-    from .geometry import dihedral_at
-    from .torsion import rotatable_torsions
-
-    mol = ens.mol
-    ids = ens.ids()
-    scored = []
-    for t in rotatable_torsions(mol):
-        values = np.radians([dihedral_at(mol.GetConformer(c).GetPositions(), t.atoms) for c in ids])
-        spread = 1.0 - abs(np.mean(np.exp(1j * values))) if len(values) else 0.0
-        scored.append((spread, t.label, t.atoms))
-    scored.sort(key=lambda s: -s[0])
-    return [(label, atoms) for _, label, atoms in scored[:count]]
+#: the CLI table shows at most this many distinguishing torsions (all are in table.csv and
+#: run.json); four fit an 120-column terminal beside three temperatures
+_TABLE_TORSIONS = 4
 
 
-def _ensemble_table_text(ens, temps, views=None) -> str:
-    from .geometry import dihedral_at
+def _ensemble_table_text(ens, temps, views=None, free: bool = False) -> str:
+    """The conformer table: ΔE (and ΔG with --free-energy), degeneracy, populations per
+    temperature, the torsions that distinguish the conformers, ring puckers that differ,
+    hydrogen bonds and species; atoms numbered from 1."""
+    from .describe import LABEL_CONVENTION, describe_conformers
 
     rel = ens.energies("kcal/mol")
     views = views or {"": ens.populations(temps)}
-    torsions = _key_torsions(ens)
+    desc = describe_conformers(ens)
+    torsions = desc.torsions[:_TABLE_TORSIONS]
+    rings = [c for c in desc.table.columns if c.startswith("ring_")
+             and desc.table[c].nunique() > 1]
+    hbonds = desc.table["hydrogen_bonds"] if (desc.table["hydrogen_bonds"] != "").any() else None
+    gaps = {t: ens.energies("kcal/mol", energy="free", temperature=t) for t in temps} if free else {}
     labels = [(name, t) for t in temps for name in views]
-    head = f"{'conf':>4}  {'dE kcal/mol':>11}  {'deg':>3}  " + "  ".join(
+    head = f"{'conf':>4}  {'ΔE kcal/mol':>11}  " + "".join(
+        f"{'ΔG(' + format(t, 'g') + ' K)':>12}  " for t in gaps) + f"{'deg':>3}  " + "  ".join(
         f"{'p' + ('_' + name if name else '') + '(' + format(t, 'g') + ' K)':>12}" for name, t in labels)
-    head += "".join(f"  {label + ' (deg)':>18}" for label, _ in torsions)
+    widths = [max(len(t.label) + 1, 6) for t in torsions]
+    head += "".join(f"  {t.label + '°':>{w}}" for t, w in zip(torsions, widths))
+    ring_widths = [max(len(c) - 5, 10) for c in rings]
+    head += "".join(f"  {'ring ' + c[5:]:<{w}}" for c, w in zip(rings, ring_widths))
     table = ens.table()
     species = table["species"] if "species" in table.columns and table["species"].nunique() > 1 else None
     if species is not None:
         head += f"  {'species':>7}"
-    lines = [head]
-    mol = ens.mol
+    if hbonds is not None:
+        head += "  H-bonds"
+    lines = [f"conformers (ΔE, ΔG in kcal/mol; dihedrals in degrees; {LABEL_CONVENTION})", head]
     for cid in ens.ids():
-        line = f"{cid:>4}  {rel[cid]:>11.2f}  {int(ens.degeneracy[cid]):>3}  " + "  ".join(
+        line = f"{cid:>4}  {rel[cid]:>11.2f}  " + "".join(
+            f"{gaps[t][cid]:>12.2f}  " for t in gaps) + f"{int(ens.degeneracy[cid]):>3}  " + "  ".join(
             f"{views[name].loc[cid, t]:>12.3f}" for name, t in labels)
-        line += "".join(f"  {dihedral_at(mol.GetConformer(cid).GetPositions(), atoms):>18.0f}"
-                        for _, atoms in torsions)
+        line += "".join(f"  {t.values[cid]:>{w}.0f}" for t, w in zip(torsions, widths))
+        line += "".join(f"  {str(desc.table.loc[cid, c]):<{w}}" for c, w in zip(rings, ring_widths))
         if species is not None:
             line += f"  {int(species[cid]):>7}"
+        if hbonds is not None:
+            line += "  " + (hbonds[cid] or "-")
         lines.append(line)
+    if len(desc.torsions) > len(torsions):
+        lines.append(f"{len(desc.torsions) - len(torsions)} more distinguishing torsion(s) in "
+                     "table.csv and run.json (--out)")
+    if not desc.torsions and len(ens) > 1:
+        lines.append("no torsion differs by more than 45° between these conformers")
+    lines.extend(desc.ring_summary())
     if species is not None:
         shares = ens.species(temps[0])
         lines.append("species (slow exchange: NMR sees each as its own set of signals; "
@@ -388,8 +429,12 @@ def _run_ensemble(args: argparse.Namespace) -> int:
         raise InputError(f"--min-population must lie between 0 and 1 (exclusive), "
                          f"got {args.min_population:g}")
     args.workers = _cap_workers(args.workers)
+    if args.plot:
+        _check_plot_path(args.plot)
+    if args.report:
+        _check_report_path(args.report)
     _check_search_cost(args)
-    progress = not (args.quiet or args.json) and sys.stderr.isatty()
+    progress = _progress_mode(args.quiet or args.json)
     folder = None
     if args.out:  # created, locked and proved writable before any work
         from .outdir import OutputFolder
@@ -402,14 +447,48 @@ def _run_ensemble(args: argparse.Namespace) -> int:
             folder.close()
 
 
+def _progress_mode(quiet: bool):
+    """Progress bars on a terminal; one line per stage when stderr is a log; or nothing."""
+    if quiet:
+        return False
+    return True if sys.stderr.isatty() else "lines"
+
+
+def _heartbeat(progress, text: str) -> None:
+    if progress == "lines":
+        print(f"{_PROG}: {text}", file=sys.stderr, flush=True)
+
+
+def _check_report_path(path) -> None:
+    import os
+
+    from .outdir import check_output_file
+
+    check_output_file(path, "--report")
+    if os.path.splitext(str(path))[1].lower() not in (".html", ".htm"):
+        raise InputError(f"--report {str(path)!r}: the file name must end in .html")
+
+
 def _ensemble_files(ens, temps, payload) -> dict:
     """{file name: write(path)} of one ensemble's output files."""
+    from .io import write_csv, write_sdf
+
     def run_json(path):
         with open(path, "w") as fh:
             json.dump(payload, fh, indent=2)
             fh.write("\n")
-    return {"ensemble.sdf": lambda path: ens.to_sdf(path),
-            "table.csv": lambda path: ens.to_csv(path, temps), "run.json": run_json}
+    return {"ensemble.sdf": lambda path: write_sdf(ens, path, temps),
+            "table.csv": lambda path: write_csv(ens, path, temps), "run.json": run_json}
+
+
+def _ensemble_settings(args) -> dict:
+    """The command-line settings of a search, under their option names (for run.json)."""
+    names = ("method", "solvent", "temperature", "seed", "trials", "rounds", "completeness",
+             "min_population", "energy_window", "screen_margin", "screen_window",
+             "no_minimum_check", "keep_mirror_images", "charge", "multiplicity",
+             "enumerate_stereo", "keep_largest_fragment", "workers", "free_energy", "low_mode",
+             "rescore", "allow_long_run")
+    return {"--" + n.replace("_", "-"): getattr(args, n) for n in names if hasattr(args, n)}
 
 
 def _ensemble_work(args, temps, progress, folder) -> int:
@@ -417,6 +496,7 @@ def _ensemble_work(args, temps, progress, folder) -> int:
 
     from .io import ensemble_json
     from .pipeline import search
+    from .schema import solvent_model
 
     sources = [args.input]
     if args.enumerate_stereo:
@@ -425,6 +505,7 @@ def _ensemble_work(args, temps, progress, folder) -> int:
                                 keep_largest_fragment=args.keep_largest_fragment)
     results = []
     for source in sources:
+        _heartbeat(progress, f"sampling conformers of {source}")
         ens = search(source, method=args.method, solvent=args.solvent, seed=args.seed,
                      n_trials=args.trials, energy_window=args.energy_window,
                      temperatures=temps, min_population=args.min_population,
@@ -442,7 +523,8 @@ def _ensemble_work(args, temps, progress, folder) -> int:
         if args.rescore:
             ens = ens.rescore(args.rescore, workers=args.workers, progress=progress, rank=False)
         results.append(ens)
-    payloads = [ensemble_json(e, temps, input_text=args.input) for e in results]
+    settings = _ensemble_settings(args)
+    payloads = [ensemble_json(e, temps, input_text=args.input, settings=settings) for e in results]
     for payload, ens in zip(payloads, results):
         if len(ens) and (args.free_energy or args.rescore):
             views = _population_views(ens, temps, args.free_energy, bool(args.rescore))
@@ -462,13 +544,16 @@ def _ensemble_work(args, temps, progress, folder) -> int:
             else:
                 name = folder.claim(f"stereoisomer_{k + 1}", key=f"stereoisomer:{k + 1}")
                 written.append(str(folder.write_folder(name, files)))
+    pictures = _ensemble_pictures(args, results, temps)
     if args.json:
         print(json.dumps(payloads[0] if len(payloads) == 1 else payloads, indent=2))
         return 0
     for ens in results:
         summary = next((p for p in ens.provenance if p.get("step") == "summary"), {})
         sample = next((p for p in ens.provenance if p.get("step") == "sample"), {})
-        print(f"{ens.name}  method {ens.level}{'  solvent ' + ens.solvent if ens.solvent else ''}")
+        model = solvent_model(args.method, ens.solvent)
+        print(f"{ens.name}  method {ens.level}  "
+              + (f"solvent {ens.solvent} (implicit, {model.split('(')[0]})" if model else "gas phase"))
         if len(ens) == 0:
             for cid, row in ens.raw_table.iterrows():
                 print(f"{cid:>4}  failed: {row['reason']}")
@@ -476,7 +561,7 @@ def _ensemble_work(args, temps, progress, folder) -> int:
             return 1
         views = (_population_views(ens, temps, args.free_energy, bool(args.rescore))
                  if (args.free_energy or args.rescore) else None)
-        print(_ensemble_table_text(ens, temps, views))
+        print(_ensemble_table_text(ens, temps, views, free=args.free_energy))
         if views:
             print("p_E: from electronic energies at " + ens.level + "; "
                   + ("p_G: from G(T) = E + harmonic free-energy correction (" + args.low_mode
@@ -485,7 +570,7 @@ def _ensemble_work(args, temps, progress, folder) -> int:
                   + ("p_DFT: from B3LYP-D3(BJ)/def2-SVPD single points at the same geometries"
                      + ("; p_DFT+G: DFT energy + the free-energy correction" if args.free_energy else "")
                      if args.rescore else ""))
-        n_eff = ens.effective_count(temps[0])
+        n_eff = "; ".join(f"{ens.effective_count(t):.2f} at {t:g} K" for t in temps)
         prune = next((p for p in ens.provenance if p.get("step") == "prune"), {})
         dropped = (f" ({prune['below_min_population']} rarer ones dropped, "
                    f"{100 * prune['population_dropped']:.2g} % of the population in all)"
@@ -496,15 +581,36 @@ def _ensemble_work(args, temps, progress, folder) -> int:
               f"completeness {100 * summary.get('completeness', float('nan')):.1f} % "
               f"(Good-Turing; {sample.get('trials', 0)} trials, {sample.get('rounds', 0)} rounds, "
               f"{sample.get('embedding_failures', 0)} embedding failures); effective number of "
-              f"conformers at {temps[0]:g} K: {n_eff:.2f}; {summary.get('seconds', 0):.1f} s")
+              f"conformers (Kish 1/Σp²): {n_eff}; {summary.get('seconds', 0):.1f} s")
         stages = [p for p in ens.provenance if p.get("step") not in ("input", "summary")]
         print("stages: " + ", ".join(f"{p['step']} {p['n_in']}->{p['n_out']} ({p['seconds']:.1f} s)"
                                      for p in stages))
     if written:
         print(f"wrote {', '.join(os.path.basename(w) for w in written)} to "
               f"{os.path.abspath(args.out)}")
+    for path in pictures:
+        print(f"wrote {path}")
     print(_ENSEMBLE_CAUTION)
     return 0
+
+
+def _ensemble_pictures(args, results, temps) -> list:
+    """--plot and --report for the first stereoisomer with conformers; the paths written."""
+    written = []
+    ens = next((e for e in results if len(e)), None)
+    if ens is None:
+        return written
+    if args.plot:
+        from .plot import ensemble_plot
+        ensemble_plot(ens, temps, path=args.plot)
+        written.append(args.plot)
+    if args.report:
+        from .report import write_report
+        write_report(ens, args.report, temperatures=temps, input_text=args.input,
+                     free_energy=args.free_energy, settings=_ensemble_settings(args),
+                     cautions=[_ENSEMBLE_CAUTION])
+        written.append(args.report)
+    return written
 
 
 # --------------------------------------------------------------------------- couplings
@@ -519,7 +625,7 @@ def _add_couplings(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("input", metavar="INPUT",
                         help="an ensemble SDF written by confpop, or a SMILES (then a conformer "
                              "search with default settings runs first)")
-    parser.add_argument("--temperature", "-T", nargs="+", type=_finite_float, default=[298.15], action=_Once,
+    parser.add_argument("--temperature", "-T", nargs="+", type=_temperature_arg, default=[298.15], action=_Once,
                         metavar="K", help="temperatures in kelvin (default 298.15); the fit uses the first")
     parser.add_argument("--observed", metavar="FILE.csv", default=None,
                         help="measured couplings, CSV columns atom_a, atom_b, J_hz [, sigma_hz] "
@@ -536,7 +642,7 @@ def _add_couplings(parser: argparse.ArgumentParser) -> None:
                         help="with --observed: fit only species N (conformers separated by a slow "
                              "amide or biaryl rotation give separate signal sets; numbers as printed)")
     parser.add_argument("--method", default="gfn2", help="method for a SMILES input (default gfn2)")
-    parser.add_argument("--solvent", default=None, help="implicit solvent for a SMILES input")
+    parser.add_argument("--solvent", default=None, help="implicit solvent for a SMILES input (GBSA with gfn2)")
     parser.add_argument("--seed", type=int, default=0, help="seed for sampling, spread and bootstrap")
     parser.add_argument("--energy-property", default=None, metavar="NAME",
                         help="for an SDF ensemble from another program: the SD property "
@@ -758,8 +864,8 @@ def _add_batch(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--method", default="gfn2",
                         help="final level: gfn2 (default), gfn1, gfnff, tblite-gfn2, mmff94s, mmff94, uff")
     parser.add_argument("--solvent", default=None,
-                        help="implicit solvent for tight-binding methods, e.g. water, chloroform")
-    parser.add_argument("--temperature", "-T", nargs="+", type=_finite_float, default=[298.15], action=_Once,
+                        help="implicit solvent, e.g. water, chloroform: GBSA with gfn2/gfn1/gfnff (xtb-python), ALPB with tblite-gfn2/tblite-gfn1; force fields have none")
+    parser.add_argument("--temperature", "-T", nargs="+", type=_temperature_arg, default=[298.15], action=_Once,
                         metavar="K", help="temperatures in kelvin (default 298.15); the "
                                           "effective number of conformers is at the first")
     parser.add_argument("--seed", type=int, default=0, help="sampling seed (default 0)")
@@ -925,7 +1031,7 @@ def _add_scan(parser: argparse.ArgumentParser) -> None:
                         help="energy method: gfn2 (default), gfn1, gfnff, tblite-gfn2, mmff94s, "
                              "mmff94, uff, model")
     parser.add_argument("--solvent", default=None,
-                        help="implicit solvent for tight-binding methods, e.g. water, chloroform")
+                        help="implicit solvent, e.g. water, chloroform: GBSA with gfn2/gfn1/gfnff (xtb-python), ALPB with tblite-gfn2/tblite-gfn1; force fields have none")
     parser.add_argument("--step", type=_finite_float, default=15.0, metavar="DEG",
                         help="grid step in degrees; must divide 360 (default 15)")
     parser.add_argument("--rigid", action="store_true",
@@ -933,7 +1039,7 @@ def _add_scan(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--convergence", default="tight",
                         choices=["loose", "normal", "tight", "verytight"],
                         help="optimizer convergence at each point (default tight)")
-    parser.add_argument("--temperature", "-T", nargs="+", type=_finite_float, default=[298.15], action=_Once,
+    parser.add_argument("--temperature", "-T", nargs="+", type=_temperature_arg, default=[298.15], action=_Once,
                         metavar="K", help="temperatures in kelvin for the rates (default 298.15)")
     parser.add_argument("--delta-nu", metavar="HZ", type=_finite_float, default=100.0,
                         help="NMR signal separation in Hz for the exchange regime (default 100)")

@@ -281,9 +281,30 @@ class _NoBar:
         pass
 
 
-def _progress_bar(progress: bool, total: int, description: str | None):
+class _Heartbeat:
+    """One line on stderr when a stage starts and one when it ends (``progress="lines"``:
+    for logs, where a progress bar's carriage returns make one unreadable line)."""
+
+    def __init__(self, total: int, description: str | None):
+        import time
+        self.total, self.done, self.started = total, 0, time.perf_counter()
+        self.description = description or "calculations"
+        print(f"confpop: {self.description}: {total} to run", file=sys.stderr, flush=True)
+
+    def update(self, n: int = 1) -> None:
+        self.done += n
+
+    def close(self) -> None:
+        import time
+        print(f"confpop: {self.description}: {self.done} of {self.total} done in "
+              f"{time.perf_counter() - self.started:.1f} s", file=sys.stderr, flush=True)
+
+
+def _progress_bar(progress, total: int, description: str | None):
     if not progress:
         return _NoBar()
+    if progress == "lines":
+        return _Heartbeat(total, description)
     from tqdm.auto import tqdm  # imported only when asked for
 
     return tqdm(total=total, desc=description, file=sys.stderr, unit="unit")
@@ -534,8 +555,9 @@ def run_units(function: Callable[[Any], Any], items: Iterable, *,
         with ``executor``.
     retries : int
         How many times a failed unit is tried again (default 1, so at most two attempts).
-    progress : bool
-        Show a progress bar (tqdm) on stderr. Nothing is printed otherwise.
+    progress : bool or "lines"
+        Show a progress bar (tqdm) on stderr; ``"lines"``: one line when the work starts and
+        one when it ends (for logs). Nothing is printed otherwise.
     description : str, optional
         Label of the progress bar.
     store : confpop.store.ResultStore, optional
