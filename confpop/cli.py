@@ -397,7 +397,9 @@ def _ensemble_table_text(ens, temps, views=None, free: bool = False) -> str:
         lines.append(f"{len(desc.torsions) - len(torsions)} more distinguishing torsion(s) in "
                      "table.csv and run.json (--out)")
     if not desc.torsions and len(ens) > 1:
-        lines.append("no torsion differs by more than 45° between these conformers")
+        from .describe import DISTINGUISHING_DEGREES
+        lines.append(f"no torsion differs by more than {DISTINGUISHING_DEGREES:g}° between "
+                     "these conformers")
     lines.extend(desc.ring_summary())
     if species is not None:
         shares = ens.species(temps[0])
