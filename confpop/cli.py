@@ -312,7 +312,13 @@ def _temperatures(values) -> list:
     """--temperature values, checked; a value below 150 K gets a note (kelvin, not °C)."""
     from .thermo import check_temperatures
 
-    temps = check_temperatures(values, "--temperature")
+    try:
+        temps = check_temperatures(values, "--temperature")
+    except InputError as exc:  # thermo counts from 0; the command line from 1
+        import re
+        raise InputError(re.sub(r"at position (\d+)",
+                                lambda m: f"(value {int(m.group(1)) + 1} of -T/--temperature)",
+                                str(exc))) from None
     low = [t for t in temps if t < 150.0]
     if low:
         print(f"{_PROG}: note: --temperature {low[0]:g} K is below 150 K; temperatures are in "
@@ -1024,11 +1030,12 @@ def _add_scan(parser: argparse.ArgumentParser) -> None:
                         help="a SMILES, or a MOL/SDF/XYZ file (its first structure is the start)")
     which = parser.add_mutually_exclusive_group(required=True)
     which.add_argument("--torsion", nargs=4, type=int, metavar=("I", "J", "K", "L"),
-                       help="the dihedral I-J-K-L to scan; 0-based atom indices as in RDKit "
-                            "(hydrogens included; for SMILES input they follow the heavy atoms)")
+                       help="the dihedral I-J-K-L to scan; atoms numbered from 1 as in molecule "
+                            "viewers and the SDF atom block (hydrogens included; for SMILES "
+                            "input they follow the heavy atoms)")
     which.add_argument("--bond", nargs=2, type=int, metavar=("J", "K"),
-                       help="the bond J-K to turn (0-based indices); I and L are chosen, heavy "
-                            "atoms preferred")
+                       help="the bond J-K to turn (atoms numbered from 1); I and L are chosen, "
+                            "heavy atoms preferred")
     parser.add_argument("--method", default="gfn2",
                         help="energy method: gfn2 (default), gfn1, gfnff, tblite-gfn2, mmff94s, "
                              "mmff94, uff, model")
@@ -1055,7 +1062,31 @@ def _add_scan(parser: argparse.ArgumentParser) -> None:
                              "cores are free to use, else 1)")
     parser.add_argument("--plot", default=None, metavar="FILE.png",
                         help="draw the profile (minima, maxima, barriers) to this file")
+    parser.add_argument("--out", default=None, metavar="DIR",
+                        help="write profile.csv (every scan point), scan.json and profile.png "
+                             "into DIR (checked before any work; files confpop did not write "
+                             "are never replaced)")
+    parser.add_argument("--into-nonempty-folder", action="store_true",
+                        help="allow an --out folder holding files confpop did not write")
     parser.add_argument("--json", action="store_true", help="print machine-readable JSON only")
+
+
+def _one_based_atoms(mol, values, option: str) -> list:
+    """Command-line atom numbers (from 1) to RDKit indices, with errors in the user's terms."""
+    n = mol.GetNumAtoms()
+    bad = [v for v in values if not 1 <= v <= n]
+    if bad:
+        raise InputError(f"{option}: atom {bad[0]} does not exist; atoms are numbered from 1 "
+                         f"to {n} (hydrogens included, as in the SDF atom block)")
+    return [int(v) - 1 for v in values]
+
+
+def _open_folder(args, kind: str):
+    if not getattr(args, "out", None):
+        return None
+    from .outdir import OutputFolder
+    return OutputFolder(args.out, kind=kind, option="--out",
+                        allow_nonempty=args.into_nonempty_folder)
 
 
 def _angle_text(value: float) -> str:
@@ -1065,19 +1096,11 @@ def _angle_text(value: float) -> str:
 
 
 def _run_scan(args: argparse.Namespace) -> int:
-    import time
-
-    from . import kinetics
-    from .execution import default_workers, local_executor
-    from .molecule import load_molecule
-    from .torsion import _check_dihedral_atoms, scan_torsion, torsion_for_bond
+    from .execution import default_workers
     from .units import normalize_unit
 
     unit = normalize_unit(args.unit)
-    temps = list(args.temperature)
-    bad = [t for t in temps if t <= 0.0]
-    if bad:
-        raise InputError(f"--temperature must be > 0 K, got {bad[0]:g}")
+    temps = _temperatures(args.temperature)
     if args.delta_nu <= 0.0:
         raise InputError(f"--delta-nu must be > 0 Hz, got {args.delta_nu:g}")
     if args.plot:
@@ -1089,45 +1112,105 @@ def _run_scan(args: argparse.Namespace) -> int:
         workers = 2 if default_workers() >= 2 else 1
     if isinstance(workers, bool) or workers < 1:
         raise InputError(f"--workers must be >= 1, got {workers}")
-    mol = load_molecule(args.input, charge=args.charge, multiplicity=args.multiplicity)
-    if args.bond is not None:
-        atoms = torsion_for_bond(mol, *args.bond).atoms
-    else:
-        atoms = _check_dihedral_atoms(mol, args.torsion)
-    labels = [f"{mol.GetAtomWithIdx(a).GetSymbol()}{a}" for a in atoms]
+    folder = _open_folder(args, "scan")
+    try:
+        return _scan_work(args, temps, unit, workers, folder)
+    finally:
+        if folder is not None:
+            folder.close()
 
+
+def _scan_work(args, temps, unit, workers, folder) -> int:
+    import time
+
+    from . import kinetics
+    from .describe import LABEL_CONVENTION, atom_label
+    from .execution import local_executor
+    from .molecule import load_molecule
+    from .report import one_based_labels
+    from .schema import solvent_model
+    from .torsion import _check_dihedral_atoms, scan_torsion, torsion_for_bond
+
+    mol = load_molecule(args.input, charge=args.charge, multiplicity=args.multiplicity)
+    try:
+        if args.bond is not None:
+            atoms = torsion_for_bond(mol, *_one_based_atoms(mol, args.bond, "--bond")).atoms
+        else:
+            chosen = _one_based_atoms(mol, args.torsion, "--torsion")
+            for a, b in zip(chosen, chosen[1:]):
+                if mol.GetBondBetweenAtoms(a, b) is None:
+                    raise InputError(
+                        f"--torsion {' '.join(map(str, args.torsion))}: {atom_label(mol, a)} and "
+                        f"{atom_label(mol, b)} are not bonded; give four atoms in a bonded "
+                        f"chain I-J-K-L ({LABEL_CONVENTION})")
+            atoms = _check_dihedral_atoms(mol, chosen)
+    except InputError as exc:  # torsion.py names atoms from 0
+        raise InputError(one_based_labels(str(exc))) from None
+    labels = [atom_label(mol, a) for a in atoms]
+    label = "-".join(labels)
+    model = solvent_model(args.method, args.solvent)
+
+    progress = _progress_mode(args.json)
+    _heartbeat(progress, f"scanning {label} ({'rigid' if args.rigid else 'relaxed'}, "
+                         f"step {args.step:g} deg)")
     started = time.perf_counter()
     executor = local_executor(workers) if (workers > 1 and not args.rigid) else None
     try:
-        profile = scan_torsion(mol, atoms, method=args.method, solvent=args.solvent,
-                               step=args.step, relaxed=not args.rigid,
-                               convergence=args.convergence, executor=executor, unit=unit,
-                               charge=args.charge, multiplicity=args.multiplicity)
+        try:
+            profile = scan_torsion(mol, atoms, method=args.method, solvent=args.solvent,
+                                   step=args.step, relaxed=not args.rigid,
+                                   convergence=args.convergence, executor=executor, unit=unit,
+                                   charge=args.charge, multiplicity=args.multiplicity)
+        except InputError as exc:
+            raise InputError(one_based_labels(str(exc))) from None
     finally:
         if executor is not None:
             executor.shutdown()
     seconds = time.perf_counter() - started
+    _heartbeat(progress, f"scan done in {seconds:.1f} s")
+    title = (f"{label} of {args.input if len(args.input) <= 40 else args.input[:37] + '...'}  "
+             f"({'relaxed' if not args.rigid else 'rigid'}, {args.method.lower()}, "
+             f"{model or 'gas phase'})")
+    from .plot import plot_torsion_profile
     if args.plot:
-        from .plot import plot_torsion_profile
-        plot_torsion_profile(profile, path=args.plot)
+        plot_torsion_profile(profile, path=args.plot, title=title)
 
     rates = profile.rates(temps, delta_nu_hz=args.delta_nu)
+    payload = profile.to_dict(temps, delta_nu_hz=args.delta_nu)
+    payload.update({"input": args.input, "atoms": [a + 1 for a in atoms], "label": label,
+                    "atom_labels": labels, "index_base": 1, "atom_numbering": LABEL_CONVENTION,
+                    "solvent_model": model, "delta_nu_hz": args.delta_nu, "temperatures": temps,
+                    "seconds": seconds, "plot": args.plot,
+                    "atropisomer_class_37C": profile.atropisomer_class(),
+                    "caution": _SCAN_CAUTION})
+    written = []
+    if folder is not None:
+        import pandas as pd
+
+        def profile_csv(path):
+            pd.DataFrame({"angle_deg": profile.angles,
+                          f"energy_rel_{unit.replace('/', '_')}": profile.energies,
+                          "converged": profile.converged,
+                          "added_at_extremum": getattr(profile, "refined", False)}).to_csv(path, index=False)
+
+        def scan_json(path):
+            with open(path, "w") as fh:
+                json.dump(payload, fh, indent=2, ensure_ascii=False, default=_json_number)
+                fh.write("\n")
+        files = {"profile.csv": profile_csv, "scan.json": scan_json,
+                 "profile.png": lambda path: plot_torsion_profile(profile, path=path, title=title)}
+        for name, write in files.items():
+            name = folder.claim(name, key=f"file:{name}")
+            written.append(str(folder.write_file(name, write)))
     if args.json:
-        payload = profile.to_dict(temps, delta_nu_hz=args.delta_nu)
-        payload.update({"input": args.input, "atom_labels": labels, "index_base": 0,
-                        "delta_nu_hz": args.delta_nu, "temperatures": temps,
-                        "seconds": seconds, "plot": args.plot,
-                        "atropisomer_class_37C": profile.atropisomer_class(),
-                        "caution": _SCAN_CAUTION})
         print(json.dumps(payload, indent=2, ensure_ascii=False, default=_json_number))
         return 0
 
     kind = "rigid" if args.rigid else f"relaxed ({args.convergence})"
     n_extra = int(profile.refined.sum())
     lines = [
-        f"Torsion {'-'.join(labels)}  (0-based atom indices {' '.join(map(str, atoms))}; "
-        f"bond {labels[1]}-{labels[2]} turns)",
-        f"{kind} scan, {args.method.lower()}{'  solvent ' + args.solvent if args.solvent else ''}, "
+        f"Torsion {label}  ({LABEL_CONVENTION}; bond {labels[1]}-{labels[2]} turns)",
+        f"{kind} scan, {args.method.lower()}, {model or 'gas phase'}, "
         f"step {args.step:g} deg: {len(profile.angles) - n_extra} points"
         f"{f' + {n_extra} at fitted extrema' if n_extra else ''}, "
         f"{int((~profile.converged).sum())} not converged, {profile.gradient_calls} gradient "
@@ -1166,6 +1249,10 @@ def _run_scan(args: argparse.Namespace) -> int:
                      f"{profile.hysteresis_threshold:.2f} {unit})")
     if args.plot:
         lines.append(f"profile drawn to {args.plot}")
+    if written:
+        import os
+        lines.append(f"wrote {', '.join(os.path.basename(w) for w in written)} to "
+                     f"{os.path.abspath(args.out)}")
     lines.append(_SCAN_CAUTION)
     print("\n".join(lines))
     return 0

@@ -127,7 +127,7 @@ __all__ += ["plot_torsion_profile"]
 
 
 def plot_torsion_profile(profile, path=None, ax=None, show_walks: bool = True,
-                         annotate: bool = True):
+                         annotate: bool = True, title: str | None = None):
     """A torsion profile: scan points, the periodic fit, minima, maxima and barriers.
 
     Parameters
@@ -140,7 +140,10 @@ def plot_torsion_profile(profile, path=None, ax=None, show_walks: bool = True,
     show_walks : bool
         Also draw the up and down walks where they differ (hysteresis).
     annotate : bool
-        Label each barrier (forward value, in the profile's unit) at its maximum.
+        Label each maximum with its energy above the lowest minimum (so symmetric maxima get
+        the same number) and draw the forward barrier from the preceding minimum as an arrow.
+    title : str, optional
+        Default: the profile's label, scan kind and method.
 
     Returns
     -------
@@ -156,7 +159,7 @@ def plot_torsion_profile(profile, path=None, ax=None, show_walks: bool = True,
     if not all(hasattr(profile, a) for a in ("angles", "energies", "energy_at", "barriers")):
         raise InputError(f"plot_torsion_profile needs a TorsionProfile, got "
                          f"{type(profile).__name__}")
-    fig, ax = _figure(ax, size=(6.0, 4.5))
+    fig, ax = _figure(ax, size=(6.5, 5.2))
     unit = profile.unit
     phi = np.asarray(profile.angles, float)
     e = np.asarray(profile.energies, float)
@@ -180,8 +183,9 @@ def plot_torsion_profile(profile, path=None, ax=None, show_walks: bool = True,
         down = np.asarray(profile.energies_down, float)
         ax.plot(phi[~refined], up[~refined], ":", color="C1", lw=0.8, label="walk up")
         ax.plot(phi[~refined], down[~refined], "--", color="C4", lw=0.8, label="walk down")
-        for angle, _ in profile.hysteresis:
-            ax.axvline(angle, color="C3", lw=0.5, alpha=0.5)
+        for k, (angle, _) in enumerate(profile.hysteresis):
+            ax.axvline(angle, color="C3", lw=0.5, alpha=0.5,
+                       label="walks differ (hysteresis)" if k == 0 else None)
     minima, maxima = profile.minima(), profile.maxima()
     if profile.periodic:  # an extremum at the left edge is also at the right edge
         minima = pd.concat([minima, minima[minima["angle"] < grid[0] + 1e-6].assign(
@@ -193,21 +197,25 @@ def plot_torsion_profile(profile, path=None, ax=None, show_walks: bool = True,
     if len(maxima):
         ax.plot(maxima["angle"], maxima["energy"], "^", color="k", ms=7, label="maxima")
     if annotate:
-        for _, row in profile.barriers().iterrows():
+        lowest = float(np.nanmin(minima["energy"])) if len(minima) else 0.0
+        for k, (_, row) in enumerate(profile.barriers().iterrows()):
             x = float(row["via_max"])
             ax.annotate("", xy=(x, row["max_energy"]), xytext=(x, row["from_energy"]),
                         arrowprops={"arrowstyle": "<->", "color": "0.4", "lw": 0.8})
-            ax.annotate(f"{row['barrier_forward']:.2f}", (x, row["max_energy"]),
+            ax.annotate(f"{row['max_energy'] - lowest:.2f}", (x, row["max_energy"]),
                         xytext=(0, 5), textcoords="offset points", ha="center", fontsize=7)
+        ax.plot([], [], color="0.4", lw=0.8, label="barrier from the preceding minimum")
+        ax.plot([], [], " ", label=f"numbers: maxima above the lowest minimum ({unit})")
     if profile.periodic:
         ax.set_xlim(grid[0], grid[-1])
         ax.set_xticks(np.arange(grid[0], grid[-1] + 1e-9, 60.0))
     kind = "relaxed" if profile.relaxed else "rigid"
-    title = f"{profile.label or tuple(profile.atoms)}  ({kind}, {profile.method or 'unstated method'})"
+    if title is None:
+        title = f"{profile.label or tuple(profile.atoms)}  ({kind}, {profile.method or 'unstated method'})"
     ax.set_title(title, fontsize=9)
     ax.set_xlabel("dihedral angle / degree")
     ax.set_ylabel(f"relative energy / {unit}")
-    ax.legend(fontsize=7, loc="best")
+    ax.legend(fontsize=7, loc="upper center", bbox_to_anchor=(0.5, -0.13), ncol=3, frameon=False)
     _save(fig, path)
     return fig
 
