@@ -637,7 +637,8 @@ def _add_couplings(parser: argparse.ArgumentParser) -> None:
                         metavar="K", help="temperatures in kelvin (default 298.15); the fit uses the first")
     parser.add_argument("--observed", metavar="FILE.csv", default=None,
                         help="measured couplings, CSV columns atom_a, atom_b, J_hz [, sigma_hz] "
-                             "(0-based hydrogen indices as printed); fits the populations")
+                             "(hydrogen atom numbers from 1, as printed and as in molecule "
+                             "viewers); fits the populations")
     parser.add_argument("--parameters", default="auto",
                         help="Karplus set: auto (default: Haasnoot-de Leeuw-Altona for H-C-C-H, "
                              "Hu-Bax for amide H-N-C-H) or a set name, e.g. karplus-generic")
@@ -663,7 +664,50 @@ def _add_couplings(parser: argparse.ArgumentParser) -> None:
                              "conformers equally (default: refuse)")
     parser.add_argument("--plot", metavar="FILE.png", default=None,
                         help="write a figure: predicted vs observed with --observed, else J vs temperature")
+    parser.add_argument("--out", default=None, metavar="DIR",
+                        help="write couplings.csv, couplings.json (and fit.csv with --observed) "
+                             "into DIR (checked before any work; files confpop did not write "
+                             "are never replaced)")
+    parser.add_argument("--into-nonempty-folder", action="store_true",
+                        help="allow an --out folder holding files confpop did not write")
     parser.add_argument("--json", action="store_true", help="print machine-readable JSON only")
+
+
+def _renumber(frame):
+    """A copy of a couplings table with atoms numbered from 1 (labels, indices, tuples)."""
+    from .report import one_based_labels
+
+    if frame is None:
+        return None
+    out = frame.copy()
+    for col in ("label", "group", "torsion"):
+        if col in out.columns:
+            out[col] = out[col].map(one_based_labels)
+    for col in ("atom_a", "atom_b"):
+        if col in out.columns:
+            out[col] = out[col].map(lambda v: int(v) + 1)
+    for col in ("atoms_a", "atoms_b"):
+        if col in out.columns:
+            out[col] = out[col].map(lambda v: tuple(int(x) + 1 for x in v))
+    return out
+
+
+def _observed_from_one(frame, path):
+    """--observed atom numbers (from 1) to 0-based indices, each checked."""
+    frame = frame.copy()
+    for col in ("atom_a", "atom_b"):
+        if col not in frame.columns:
+            continue
+        for k, v in enumerate(frame[col], start=1):
+            try:
+                ok = float(v) == int(float(v)) and int(float(v)) >= 1
+            except (TypeError, ValueError):
+                ok = False
+            if not ok:
+                raise InputError(f"--observed {str(path)!r} row {k}: {col} must be a hydrogen "
+                                 f"atom number from 1 (as printed), got {v!r}")
+        frame[col] = frame[col].map(lambda v: int(float(v)) - 1)
+    return frame
 
 
 def _plain(value):
@@ -725,7 +769,20 @@ def _run_couplings(args: argparse.Namespace) -> int:
         _check_plot_path(args.plot)
     observed = None
     if args.observed:  # read before any work: a bad file fails at once
-        observed = _read_observed(args.observed)
+        observed = _observed_from_one(_read_observed(args.observed), args.observed)
+    folder = _open_folder(args, "couplings")
+    try:
+        return _couplings_work(args, temps, observed, folder)
+    finally:
+        if folder is not None:
+            folder.close()
+
+
+def _couplings_work(args, temps, observed, folder) -> int:
+    from . import nmr
+    from .describe import LABEL_CONVENTION
+    from .schema import solvent_model
+
     ens = _couplings_ensemble(args)
     import warnings
     warnings.simplefilter("ignore", nmr.MethodWarning)  # printed below as "method caution:"
@@ -745,53 +802,80 @@ def _run_couplings(args: argparse.Namespace) -> int:
     if observed is not None:
         fit = nmr.fit_populations(ens, observed, temperature=temps[0], parameters=args.parameters,
                                   seed=args.seed, species=args.species)
+    first = next((p for p in ens.provenance if p.get("step") == "input"), {})
+    model = solvent_model(first.get("method", ens.level), ens.solvent)
+    title = (f"{ens.name or args.input}  ({ens.level}, {model or 'gas phase'}; "
+             f"Karplus {args.parameters})")
+    table = _renumber(table)
+    spread = _renumber(spread)
+    residuals = _renumber(fit.residuals) if fit is not None else None
+    families = _renumber(fit.families) if fit is not None and fit.families is not None else None
     if args.plot:
         from . import plot
         if fit is not None:
-            plot.coupling_parity_plot(fit, path=args.plot)
+            plot.coupling_parity_plot(residuals, path=args.plot, title=title)
         else:
-            plot.coupling_temperature_plot(table, path=args.plot)
+            plot.coupling_temperature_plot(table, path=args.plot, title=title,
+                                           spread=spread)
 
-    if args.json:
-        rows = []
-        for _, row in table.iterrows():
-            item = {c: _plain(row[c]) for c in id_cols}
-            item["J_hz"] = {format(t, "g"): _json_number(row[t]) for t in temps}
-            rows.append(item)
-        payload = {"temperatures_K": temps, "parameters": args.parameters, "by": args.by,
-                   "species": [{"species": int(k), "label": v["label"],
-                                "share": {format(t, "g"): _json_number(x) for t, x in v["share"].items()}}
-                               for k, v in species.items()],
-                   "couplings": rows, "caution": _COUPLINGS_CAUTION,
-                   "method_cautions": [c.message for c in cautions]}
-        if spread is not None:
-            payload["spread"] = {"energy_sigma_kcal_mol": args.energy_sigma, "rows": [
-                {"key": r["group"] if args.by == "group" else r["label"],
-                 "species": int(r["species"]), "temperature_K": r["temperature"],
-                 **{k: _json_number(r[k]) for k in ("value", "mean", "std", "p05", "p95")}}
-                for _, r in spread.iterrows()]}
+    rows = []
+    for _, row in table.iterrows():
+        item = {c: _plain(row[c]) for c in id_cols}
+        item["J_hz"] = {format(t, "g"): _json_number(row[t]) for t in temps}
+        rows.append(item)
+    payload = {"temperatures_K": temps, "parameters": args.parameters, "by": args.by,
+               "atom_numbering": LABEL_CONVENTION, "method": ens.level,
+               "solvent_model": model,
+               "species": [{"species": int(k), "label": v["label"],
+                            "share": {format(t, "g"): _json_number(x) for t, x in v["share"].items()}}
+                           for k, v in species.items()],
+               "couplings": rows, "caution": _COUPLINGS_CAUTION,
+               "method_cautions": [c.message for c in cautions]}
+    if spread is not None:
+        payload["spread"] = {"energy_sigma_kcal_mol": args.energy_sigma, "rows": [
+            {"key": r["group"] if args.by == "group" else r["label"],
+             "species": int(r["species"]), "temperature_K": r["temperature"],
+             **{k: _json_number(r[k]) for k in ("value", "mean", "std", "p05", "p95")}}
+            for _, r in spread.iterrows()]}
+    if fit is not None:
+        frame = fit.to_frame()
+        payload["fit"] = {
+            "temperature_K": fit.temperature, "chi2": fit.chi2,
+            "chi2_boltzmann": fit.chi2_boltzmann, "n_observations": fit.n_observations,
+            "rms_deviation_hz": _json_number(fit.rms_deviation), "warning": fit.warning,
+            "minimal_subset": list(fit.minimal_subset) if fit.minimal_subset else None,
+            "free_energy_unit": fit.unit,
+            "conformers": [{"conformer": int(cid), **{k: _json_number(v) for k, v in r.items()}}
+                           for cid, r in frame.iterrows()],
+            "residuals": [{k: _plain(v) for k, v in r.items()}
+                          for _, r in residuals.iterrows()],
+            "families": [{k: _plain(v) for k, v in r.items()}
+                         for _, r in families.iterrows()] if families is not None else [],
+        }
+    written = []
+    if folder is not None:
+        def couplings_csv(path):
+            frame = table.rename(columns={t: f"J_{t:g}K_hz" for t in temps})
+            frame.to_csv(path, index=False)
+
+        def couplings_json(path):
+            with open(path, "w") as fh:
+                json.dump(payload, fh, indent=2, ensure_ascii=False, default=str)
+                fh.write("\n")
+        files = {"couplings.csv": couplings_csv, "couplings.json": couplings_json}
         if fit is not None:
-            frame = fit.to_frame()
-            payload["fit"] = {
-                "temperature_K": fit.temperature, "chi2": fit.chi2,
-                "chi2_boltzmann": fit.chi2_boltzmann, "n_observations": fit.n_observations,
-                "rms_deviation_hz": _json_number(fit.rms_deviation), "warning": fit.warning,
-                "minimal_subset": list(fit.minimal_subset) if fit.minimal_subset else None,
-                "free_energy_unit": fit.unit,
-                "conformers": [{"conformer": int(cid), **{k: _json_number(v) for k, v in r.items()}}
-                               for cid, r in frame.iterrows()],
-                "residuals": [{k: _plain(v) for k, v in r.items()}
-                              for _, r in fit.residuals.iterrows()],
-                "families": [{k: _plain(v) for k, v in r.items()}
-                             for _, r in fit.families.iterrows()],
-            }
+            files["fit.csv"] = lambda path: residuals.to_csv(path, index=False)
+        for name, write in files.items():
+            name = folder.claim(name, key=f"file:{name}")
+            written.append(str(folder.write_file(name, write)))
+    if args.json:
         print(json.dumps(payload, indent=2, ensure_ascii=False, default=str))
         return 0
 
     key = "group" if args.by == "group" else "label"
     width = max(len(key), *(len(str(v)) for v in table[key])) if len(table) else len(key)
-    lines = [f"{len(ens)} conformers ({ens.level}); population-averaged vicinal 3J(H,H) in Hz; "
-             "atom indices 0-based",
+    lines = [f"{len(ens)} conformers ({ens.level}, {model or 'gas phase'}); population-averaged "
+             f"vicinal 3J(H,H) in Hz; {LABEL_CONVENTION}",
              f"{key:<{width}}  {'set':<16}" + "".join(f"  {format(t, 'g') + ' K':>9}" for t in temps)]
     for number, sub in table.groupby("species", sort=True):
         if len(species) > 1:
@@ -820,13 +904,13 @@ def _run_couplings(args: argparse.Namespace) -> int:
             lines.append(f"{cid:>4}  {r['population']:>7.3f}  {r['population_std']:>6.3f}  "
                          f"{r['boltzmann']:>9.3f}  {dg:>20}")
         lines.append(f"{'observed':>24}  {'obs':>6}  {'fit':>6}  {'Boltz':>6}")
-        for _, r in fit.residuals.iterrows():
+        for _, r in residuals.iterrows():
             lines.append(f"{r['kind'] + ' ' + str(r['atom_a']) + '-' + str(r['atom_b']):>24}  "
                          f"{r['observed']:>6.2f}  {r['predicted']:>6.2f}  {r['boltzmann']:>6.2f}")
         if fit.minimal_subset:
             lines.append(f"smallest conformer set explaining the data within the noise: "
                          f"{list(fit.minimal_subset)} (chi2 {fit.minimal_subset_chi2:.2f})")
-        fixed = fit.families[fit.families["determined"]] if fit.families is not None else []
+        fixed = families[families["determined"]] if families is not None else []
         if len(fixed):
             lines.append("rotamer families the data determine (population ± bootstrap std; "
                          "g+ 0..120, g- -120..0, t beyond ±120 degrees):")
@@ -837,6 +921,10 @@ def _run_couplings(args: argparse.Namespace) -> int:
             lines.append("warning: " + fit.warning)
     if args.plot:
         lines.append(f"wrote {args.plot}")
+    if written:
+        import os
+        lines.append(f"wrote {', '.join(os.path.basename(w) for w in written)} to "
+                     f"{os.path.abspath(args.out)}")
     for c in cautions:
         lines.append("method caution: " + c.message)
     lines.append(_COUPLINGS_CAUTION)

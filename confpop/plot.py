@@ -33,7 +33,8 @@ def _save(fig, path):
         atomic_write(path, lambda temporary: fig.savefig(temporary, dpi=150))
 
 
-def coupling_parity_plot(fit, path=None, ax=None, show_boltzmann: bool = True):
+def coupling_parity_plot(fit, path=None, ax=None, show_boltzmann: bool = True,
+                         title: str | None = None):
     """Predicted versus observed couplings of a population fit.
 
     Parameters
@@ -46,6 +47,8 @@ def coupling_parity_plot(fit, path=None, ax=None, show_boltzmann: bool = True):
     ax : matplotlib Axes, optional
     show_boltzmann : bool
         Also plot the predictions at the computed Boltzmann populations.
+    title : str, optional
+        E.g. the molecule, method and solvent model.
 
     Returns
     -------
@@ -82,11 +85,14 @@ def coupling_parity_plot(fit, path=None, ax=None, show_boltzmann: bool = True):
     ax.set_ylabel("predicted $^3J$ / Hz")
     ax.set_aspect("equal")
     ax.legend(fontsize=8)
+    if title:
+        ax.set_title(title, fontsize=8)
     _save(fig, path)
     return fig
 
 
-def coupling_temperature_plot(averages: pd.DataFrame, path=None, ax=None, label_column=None):
+def coupling_temperature_plot(averages: pd.DataFrame, path=None, ax=None, label_column=None,
+                              title: str | None = None, spread: pd.DataFrame | None = None):
     """Averaged couplings against temperature, one line per pair (or group).
 
     Parameters
@@ -98,6 +104,11 @@ def coupling_temperature_plot(averages: pd.DataFrame, path=None, ax=None, label_
     ax : matplotlib Axes, optional
     label_column : str, optional
         Column naming each line; default "label" if present, else "group".
+    title : str, optional
+        E.g. the molecule, method and solvent model.
+    spread : pandas.DataFrame, optional
+        From :func:`confpop.coupling_spread` (same ``by``): the 5-95 % band of each line is
+        shaded (the uncertainty from the energy error).
 
     Returns
     -------
@@ -112,9 +123,21 @@ def coupling_temperature_plot(averages: pd.DataFrame, path=None, ax=None, label_
     if label_column is None:
         label_column = "label" if "label" in averages.columns else "group"
     fig, ax = _figure(ax, size=(6.0, 4.5))
-    for _, row in averages.iterrows():
-        ax.plot(temps, [row[t] for t in temps], "o-", ms=3,
+    for k, (_, row) in enumerate(averages.iterrows()):
+        color = f"C{k % 10}"
+        ax.plot(temps, [row[t] for t in temps], "o-", ms=3, color=color,
                 label=str(row[label_column]) if label_column in averages.columns else None)
+        if spread is not None and label_column in spread.columns:
+            band = spread[(spread[label_column] == row[label_column])
+                          & (spread.get("species", row.get("species")) == row.get("species"))]
+            band = band.sort_values("temperature")
+            if len(band):
+                ax.fill_between(band["temperature"].to_numpy(float), band["p05"].to_numpy(float),
+                                band["p95"].to_numpy(float), color=color, alpha=0.2, lw=0)
+    if spread is not None:
+        ax.fill_between([], [], [], color="0.6", alpha=0.3, label="5-95 % from the energy error")
+    if title:
+        ax.set_title(title, fontsize=8)
     ax.set_xlabel("temperature / K")
     ax.set_ylabel(r"$\langle ^3J \rangle$ / Hz")
     if len(averages) <= 12:
