@@ -463,8 +463,9 @@ def _progress_mode(quiet: bool):
 
 
 def _heartbeat(progress, text: str) -> None:
-    if progress == "lines":
-        print(f"{_PROG}: {text}", file=sys.stderr, flush=True)
+    if progress == "lines":  # "confpop: [12:04:31] ..." as the stage lines of execution.py
+        import time
+        print(f"{_PROG}: [{time.strftime('%H:%M:%S')}] {text}", file=sys.stderr, flush=True)
 
 
 def _check_report_path(path) -> None:
@@ -479,13 +480,13 @@ def _check_report_path(path) -> None:
 
 def _ensemble_files(ens, temps, payload) -> dict:
     """{file name: write(path)} of one ensemble's output files."""
-    from .io import write_csv, write_sdf
+    from .io import write_csv
 
     def run_json(path):
         with open(path, "w") as fh:
             json.dump(payload, fh, indent=2)
             fh.write("\n")
-    return {"ensemble.sdf": lambda path: write_sdf(ens, path, temps),
+    return {"ensemble.sdf": lambda path: ens.to_sdf(path),
             "table.csv": lambda path: write_csv(ens, path, temps), "run.json": run_json}
 
 
@@ -511,6 +512,9 @@ def _ensemble_work(args, temps, progress, folder) -> int:
         from .molecule import stereoisomers
         sources = stereoisomers(args.input, charge=args.charge,
                                 keep_largest_fragment=args.keep_largest_fragment)
+    if args.store:  # a bad --store is one error line, before the first progress line
+        from .store import ResultStore
+        ResultStore(args.store).close()
     results = []
     for source in sources:
         _heartbeat(progress, f"sampling conformers of {source}")

@@ -289,15 +289,17 @@ class _Heartbeat:
         import time
         self.total, self.done, self.started = total, 0, time.perf_counter()
         self.description = description or "calculations"
-        print(f"confpop: {self.description}: {total} to run", file=sys.stderr, flush=True)
+        print(f"confpop: [{time.strftime('%H:%M:%S')}] {self.description}: {total} to run",
+              file=sys.stderr, flush=True)
 
     def update(self, n: int = 1) -> None:
         self.done += n
 
     def close(self) -> None:
         import time
-        print(f"confpop: {self.description}: {self.done} of {self.total} done in "
-              f"{time.perf_counter() - self.started:.1f} s", file=sys.stderr, flush=True)
+        print(f"confpop: [{time.strftime('%H:%M:%S')}] {self.description}: {self.done} of "
+              f"{self.total} done in {time.perf_counter() - self.started:.1f} s",
+              file=sys.stderr, flush=True)
 
 
 def _progress_bar(progress, total: int, description: str | None):

@@ -96,13 +96,14 @@ def _jsonable(value):
     return value
 
 
-def write_sdf(ens: Ensemble, path, temperatures=(298.15,)) -> None:
+def write_sdf(ens: Ensemble, path, temperatures=None) -> None:
     """Write one SD record per conformer (failed ones too, with status and reason).
 
     Properties a plain SDF reader shows: ``conformer_id``, ``status``, ``reason``,
     ``degeneracy``, ``energy_<level>_hartree`` for every level,
     ``relative_energy_kcal_per_mol`` at the ranking level, ``population_<T>K`` for each of
-    ``temperatures``, ``species`` and ``species_label`` (slow exchange), and the conformer's
+    ``temperatures`` (default: those the search was run for, else 298.15 K), ``species`` and
+    ``species_label`` (slow exchange), and the conformer's
     description (``torsions_deg``, ``ring_puckers``, ``hydrogen_bonds``; atoms numbered from
     1). For an exact round trip each record also carries its table row as JSON and its
     full-precision coordinates as little-endian float64 in base64 (about half the size of
@@ -112,6 +113,9 @@ def write_sdf(ens: Ensemble, path, temperatures=(298.15,)) -> None:
     shown = ens.table("kcal/mol")
     rel = shown["relative_energy"]
     mol = ens.mol
+    if temperatures is None:
+        first = next((p for p in ens.provenance if p.get("step") == "input"), {})
+        temperatures = first.get("temperatures") or (298.15,)
     pops = (ens.populations([float(t) for t in temperatures]) if len(ens) and temperatures
             else pd.DataFrame())
     described = _descriptions_by_conformer(ens)
