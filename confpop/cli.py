@@ -1392,6 +1392,34 @@ def _build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+#: messages from the library name Python arguments; on the command line they name options
+_CLI_TERMS = (
+    (r"pass keep_largest_fragment=True \(command line (--[\w-]+)\)", r"give \1"),
+    (r"with confpop\.stereoisomers\(\) \(command line (--[\w-]+)\)", r"with \1"),
+    (r", or pass stereo='ignore' to let conformer generation pick a configuration at random "
+     r"\(the ensemble then mixes stereoisomers\)", ""),
+    (r"fix the geometry or pass stereo='ignore'",
+     "fix the geometry (or draw the molecule with assigned configurations)"),
+    (r"pass stereo='ignore' \(and check the conformers' axis yourself\) or leave out the "
+     r"cumulene", "leave out the cumulene"),
+    (r"(?:try|use) method=?'(\w+)'", r"try --method \1"),
+    (r"\(energy_property= and unit=; (--energy-property and --energy-unit) on the command "
+     r"line\)", r"(\1)"),
+    (r"\(unit=; (--energy-unit)(?: on the command line)?\)", r"(\1)"),
+    (r"\(uniform_weights=True; (--uniform-weights)\)", r"(\1)"),
+    (r"uniform_weights=True", "--uniform-weights"),
+)
+
+
+def _cli_terms(message: str) -> str:
+    """A library message in command-line terms (option names instead of Python arguments)."""
+    import re
+
+    for pattern, replacement in _CLI_TERMS:
+        message = re.sub(pattern, replacement, message)
+    return message
+
+
 class Terminated(KeyboardInterrupt):
     """SIGTERM or SIGHUP, raised in the main thread so that a run ends as after Ctrl-C."""
 
@@ -1477,7 +1505,7 @@ def _main(argv) -> int:
         sys.stderr.close()
         return 0
     except (ConfpopError, ValueError, OSError) as err:
-        message = " ".join(str(err).split()) or type(err).__name__
+        message = _cli_terms(" ".join(str(err).split()) or type(err).__name__)
         message = "".join(ch if ch.isprintable() else f"\\x{ord(ch):02x}" for ch in message)
         print(f"{_PROG}: error: {message}", file=sys.stderr)
         return 2
