@@ -766,8 +766,6 @@ def _couplings_ensemble(args):
 
 
 def _run_couplings(args: argparse.Namespace) -> int:
-    from . import nmr
-
     temps = _temperatures(args.temperature)
     if args.plot:
         _check_plot_path(args.plot)

@@ -196,3 +196,60 @@ def write_report(ens, path, **kwargs) -> None:
         with open(temporary, "w", encoding="utf-8") as fh:
             fh.write(text)
     atomic_write(path, write)
+
+
+# ----------------------------------------------------------------------------- notebook views
+def _frame_html(frame: pd.DataFrame, caption: str, digits: int = 3) -> str:
+    body = frame.to_html(float_format=lambda x: f"{x:.{digits}f}", na_rep="", escape=True)
+    return f"<div><p><b>{html.escape(caption)}</b></p>{body}</div>"
+
+
+def ensemble_html(ens, temperature: float = 298.15, rows: int = 12) -> str:
+    """Jupyter view of an Ensemble: ΔE in kcal/mol, populations at ``temperature`` (K),
+    degeneracy, the distinguishing torsions (degrees, atoms numbered from 1), H-bonds."""
+    from .schema import solvent_model
+
+    first = next((p for p in ens.provenance if p.get("step") == "input"), {})
+    model = solvent_model(first.get("method", ens.level), ens.solvent) or "gas phase"
+    n_fail = len(ens.raw_table) - len(ens)
+    caption = (f"Ensemble {ens.name}: {len(ens)} conformers"
+               + (f" (+{n_fail} failed)" if n_fail else "")
+               + f", level {ens.level}, {model}; populations at {float(temperature):g} K")
+    if not len(ens):
+        return f"<p><b>{html.escape(caption)}</b></p>"
+    table, _ = _conformer_table(ens, [float(temperature)], free=False)
+    more = len(table) - rows
+    out = _frame_html(table.head(rows), caption)
+    if more > 0:
+        out += f"<p>... {more} more conformers (ens.table())</p>"
+    return out
+
+
+def profile_html(profile) -> str:
+    """Jupyter view of a TorsionProfile: minima, maxima and barriers in its unit."""
+    kind = "relaxed" if profile.relaxed else "rigid"
+    caption = (f"Torsion profile {one_based_labels(profile.label) if profile.label else profile.atoms}"
+               f" (atoms numbered from 1; {kind}, {profile.method}); energies in {profile.unit}, "
+               f"angles in degrees")
+    parts = [_frame_html(profile.minima(), caption + " - minima", 2),
+             _frame_html(profile.maxima(), "maxima", 2),
+             _frame_html(profile.barriers(), f"barriers between neighbouring minima, {profile.unit}", 2)]
+    return "".join(parts)
+
+
+def fit_html(fit) -> str:
+    """Jupyter view of a PopulationFit: fitted and Boltzmann populations, chi2."""
+    caption = (f"Population fit at {fit.temperature:g} K to {fit.n_observations} observations: "
+               f"chi2 {fit.chi2:.2f} (Boltzmann {fit.chi2_boltzmann:.2f}); implied ΔG in "
+               f"{fit.unit}")
+    out = _frame_html(fit.to_frame(), caption)
+    if fit.warning:
+        out += f"<p class='caution'>{html.escape(fit.warning)}</p>"
+    return out
+
+
+def batch_html(result) -> str:
+    """Jupyter view of a BatchResult: one row per molecule."""
+    caption = (f"Batch: {result.n_ok} ok, {result.n_failed} failed; temperatures "
+               f"{', '.join(f'{t:g} K' for t in result.temperatures)}")
+    return _frame_html(result.summary, caption)

@@ -93,3 +93,17 @@ def test_cli_writes_report_and_plot(tmp_path, capsys):
     # a report path that is not .html is refused before any work
     assert main(["ensemble", "CCCC", "--method", "mmff94s", "--report", str(tmp_path / "r.txt")]) == 2
     assert "--report" in capsys.readouterr().err
+
+
+def test_notebook_views_name_units_and_temperature(butane):
+    from confpop.torsion import TorsionProfile
+
+    view = butane._repr_html_()
+    assert "298.15 K" in view and "kcal/mol" in view and "C1-C2-C3-C4" in view
+    assert "<table" in view
+    import numpy as np
+    phi = np.arange(-180.0, 180.0, 30.0)
+    profile = TorsionProfile.from_energies(phi, 1.5 * (1 + np.cos(np.radians(3 * phi))),
+                                           label="C0-C1-C2-C3")
+    view = profile._repr_html_()
+    assert "C1-C2-C3-C4" in view and "minima" in view and "kcal/mol" in view
