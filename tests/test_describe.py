@@ -2,11 +2,14 @@
 that do not depend on which of two equivalent atoms came first, hydrogen bonds against a
 brute-force geometric check."""
 
+from reference_values import value
+
 import numpy as np
 import pytest
 from rdkit import Chem
 from rdkit.Chem import AllChem, rdMolTransforms
 
+from confpop.describe import HBOND_ANGLE, HBOND_DISTANCE
 from confpop.describe import (atom_label, cremer_pople, describe_conformers,
                               distinguishing_torsions, hydrogen_bonds, pucker_name)
 
@@ -27,10 +30,14 @@ def _ring(n, q, phi, q_half=0.0, radius=1.45):
 # ideal forms of the six-membered ring (Cremer & Pople, J. Am. Chem. Soc. 1975, 97, 1354):
 # chair theta = 0 or 180; boat theta = 90, phi = 0 (mod 60); twist-boat theta = 90, phi = 30
 # (mod 60); half-chair/envelope at theta ~ 50.8 with phi = 30 / 0 (mod 60)
+CHAIR, BOAT, HALF = value("six_ring_ideal_theta")
+ENVELOPE_5, TWIST_5 = value("five_ring_ideal_phi_period")
+
+
 @pytest.mark.parametrize("theta, phi, name", [
-    (0.0, 0.0, "chair"), (180.0, 0.0, "chair"), (90.0, 0.0, "boat"), (90.0, 120.0, "boat"),
-    (90.0, 30.0, "twist-boat"), (90.0, 270.0, "twist-boat"), (50.8, 30.0, "half-chair"),
-    (50.8, 0.0, "envelope")])
+    (CHAIR, 0.0, "chair"), (180.0 - CHAIR, 0.0, "chair"), (BOAT, 0.0, "boat"),
+    (BOAT, 120.0, "boat"), (BOAT, 30.0, "twist-boat"), (BOAT, 270.0, "twist-boat"),
+    (HALF, 30.0, "half-chair"), (HALF, 0.0, "envelope")])
 def test_six_ring_coordinates_and_names_follow_the_definition(theta, phi, name):
     big_q = 0.6
     q2, q3 = big_q * np.sin(np.radians(theta)), big_q * np.cos(np.radians(theta))
@@ -46,8 +53,8 @@ def test_six_ring_coordinates_and_names_follow_the_definition(theta, phi, name):
         assert pucker_name(cremer_pople(rolled), 6) == name
 
 
-@pytest.mark.parametrize("phi, name", [(0.0, "envelope"), (36.0, "envelope"),
-                                       (18.0, "twist"), (90.0, "twist")])
+@pytest.mark.parametrize("phi, name", [(0.0, "envelope"), (ENVELOPE_5, "envelope"),
+                                       (TWIST_5, "twist"), (TWIST_5 + 2 * ENVELOPE_5, "twist")])
 def test_five_ring_envelope_and_twist(phi, name):
     # cyclopentane: envelope at phi_2 = 36k, twist at 18 + 36k (Cremer & Pople 1975)
     cp = cremer_pople(_ring(5, {2: 0.43}, {2: phi}))
@@ -63,7 +70,8 @@ def test_cyclohexane_is_a_chair_with_the_known_amplitude():
     desc = describe_conformers(mol)
     assert list(desc.rings["pucker"]) == ["chair"]
     # Q of the cyclohexane chair ~0.55-0.63 A (from memory; force-field geometries vary)
-    assert 0.5 < desc.rings["Q_angstrom"].iloc[0] < 0.7
+    low, high = value("cyclohexane_chair_q")
+    assert low - 0.05 < desc.rings["Q_angstrom"].iloc[0] < high + 0.05
     assert desc.ring_summary() == ["ring C1-C2-C3-C4-C5-C6: chair in every conformer"]
 
 
@@ -119,6 +127,8 @@ def test_isopropyl_rotamers_are_told_apart_through_its_unique_hydrogen():
 
 
 def test_hydrogen_bonds_match_a_brute_force_geometric_check():
+    distance, angle_min = value("hydrogen_bond_geometry")  # common practice
+    assert (HBOND_DISTANCE, HBOND_ANGLE) == (distance, angle_min)
     mol = Chem.AddHs(Chem.MolFromSmiles("NCCCO"))  # 3-aminopropanol: O-H...N closes a 6-ring
     AllChem.EmbedMultipleConfs(mol, 40, randomSeed=5)
     AllChem.MMFFOptimizeMoleculeConfs(mol)
@@ -132,7 +142,7 @@ def test_hydrogen_bonds_match_a_brute_force_geometric_check():
             d = np.linalg.norm(xyz[h] - xyz[acceptor])
             u, v = xyz[donor] - xyz[h], xyz[acceptor] - xyz[h]
             angle = np.degrees(np.arccos(u @ v / np.linalg.norm(u) / np.linalg.norm(v)))
-            if d <= 2.5 and angle >= 120.0:  # common practice criteria
+            if d <= distance and angle >= angle_min:
                 expected.add((conf.GetId(), donor, h, acceptor))
     got = {(r.conformer, r.donor, r.hydrogen, r.acceptor) for r in found.itertuples()}
     assert got == expected and any(e[1] == 4 for e in expected)
