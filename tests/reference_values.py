@@ -235,8 +235,10 @@ REFERENCE_VALUES = {
         "twist at 18 + 36k", "from memory"),
     "cyclohexane_chair_q": _r((0.55, 0.63), "angstrom", "total puckering amplitude Q of the "
                               "cyclohexane chair", "from memory"),
-    "hydrogen_bond_geometry": _r((2.5, 120.0), "angstrom, degree", "geometric H-bond criteria "
-                                 "H...Y <= 2.5 A, X-H...Y >= 120 degrees", "common practice"),
+    "hydrogen_bond_geometry": _r((2.5, 110.0), "angstrom, degree", "geometric H-bond criteria "
+                                 "H...Y <= 2.5 A (common practice), X-H...Y > 110 degrees "
+                                 "(IUPAC recommendation, Arunan et al., Pure Appl. Chem. 2011, "
+                                 "83, 1637)", "from memory"),
 }
 
 

@@ -127,7 +127,7 @@ def test_isopropyl_rotamers_are_told_apart_through_its_unique_hydrogen():
 
 
 def test_hydrogen_bonds_match_a_brute_force_geometric_check():
-    distance, angle_min = value("hydrogen_bond_geometry")  # common practice
+    distance, angle_min = value("hydrogen_bond_geometry")
     assert (HBOND_DISTANCE, HBOND_ANGLE) == (distance, angle_min)
     mol = Chem.AddHs(Chem.MolFromSmiles("NCCCO"))  # 3-aminopropanol: O-H...N closes a 6-ring
     AllChem.EmbedMultipleConfs(mol, 40, randomSeed=5)
