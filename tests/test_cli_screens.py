@@ -1,0 +1,52 @@
+"""What the command line shows: temperatures in °C when written with the unit, the solvent
+model named, errors in command-line terms, one timestamped line per stage in a log."""
+
+import re
+
+import pytest
+
+from confpop.cli import _temperature_arg, main
+
+
+@pytest.mark.parametrize("text, kelvin", [
+    ("298.15", 298.15), ("298.15K", 298.15), ("25C", 298.15), ("25degC", 298.15),
+    ("25°C", 298.15), ("-40C", 233.15), ("0 C", 273.15)])  # 0 °C = 273.15 K (definition)
+def test_temperatures_in_celsius_need_the_unit(text, kelvin):
+    assert _temperature_arg(text) == pytest.approx(kelvin, abs=1e-9)
+
+
+def test_an_unknown_temperature_unit_is_one_line(capsys):
+    assert main(["rates", "20", "-T", "77F"]) == 2
+    err = capsys.readouterr().err.strip()
+    assert err.startswith("confpop: error:") and "unknown temperature unit" in err
+
+
+def test_help_names_the_solvent_models(capsys):
+    assert main(["ensemble", "--help"]) == 0
+    text = " ".join(capsys.readouterr().out.split())
+    assert "GBSA with gfn2/gfn1/gfnff" in text and "ALPB with tblite" in text
+
+
+def test_errors_name_options_not_python_arguments(capsys):
+    assert main(["ensemble", "CC.O", "--method", "mmff94s"]) == 2
+    err = capsys.readouterr().err
+    assert "--keep-largest-fragment" in err and "keep_largest_fragment=" not in err
+    assert main(["ensemble", "CC(O)CC", "--method", "mmff94s"]) == 2
+    err = capsys.readouterr().err
+    assert "--enumerate-stereo" in err and "stereo=" not in err
+    assert main(["ensemble", "CCCC", "--method", "mmff94s", "-T", "300", "-5"]) == 2
+    assert "value 2 of -T/--temperature" in capsys.readouterr().err
+
+
+def test_a_log_gets_one_timestamped_line_per_stage(capsys):
+    # under pytest stderr is not a terminal, as in a batch job's log
+    assert main(["ensemble", "CCCC", "--method", "mmff94s", "--free-energy"]) == 0
+    captured = capsys.readouterr()
+    stages = re.findall(r"^confpop: \[\d\d:\d\d:\d\d\] (.*)$", captured.err, re.M)
+    assert stages[0].startswith("sampling conformers of CCCC")
+    assert any(s.startswith("free energies: 2 to run") for s in stages)
+    assert any(s.startswith("free energies: 2 of 2 done") for s in stages)
+    assert "gas phase" in captured.out.splitlines()[0]
+    assert "ΔG(298.15 K)" in captured.out  # --free-energy shows the ΔG column
+    assert main(["ensemble", "CCCC", "--method", "mmff94s", "--quiet"]) == 0
+    assert "confpop: [" not in capsys.readouterr().err
