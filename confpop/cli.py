@@ -276,8 +276,11 @@ def _add_ensemble(parser: argparse.ArgumentParser) -> None:
                         help="single points at a higher level (dft: B3LYP-D3(BJ)/def2-SVPD through "
                              "PySCF) and populations from them")
     parser.add_argument("--out", default=None, metavar="DIR",
-                        help="write ensemble.sdf, table.csv and run.json into DIR (checked "
-                             "before any work; files confpop did not write are never replaced)")
+                        help="write ensemble.sdf, table.csv, run.json, populations.png "
+                             "(populations against temperature, energy ladder) and "
+                             "conformers.png (the most populated conformers, distinguishing "
+                             "torsions marked) into DIR (checked before any work; files "
+                             "confpop did not write are never replaced)")
     parser.add_argument("--into-nonempty-folder", action="store_true",
                         help="allow an --out folder holding files confpop did not write (they "
                              "stay; a taken name gets -2)")
@@ -399,6 +402,9 @@ def _ensemble_table_text(ens, temps, views=None, free: bool = False) -> str:
         if hbonds is not None:
             line += "  " + (hbonds[cid] or "-")
         lines.append(line)
+    if any("*" in t.label for t in torsions):
+        from .describe import STAR_NOTE
+        lines.append(STAR_NOTE)
     if len(desc.torsions) > len(torsions):
         lines.append(f"{len(desc.torsions) - len(torsions)} more distinguishing torsion(s) in "
                      "table.csv and run.json (--out)")
@@ -486,8 +492,14 @@ def _ensemble_files(ens, temps, payload) -> dict:
         with open(path, "w") as fh:
             json.dump(payload, fh, indent=2)
             fh.write("\n")
-    return {"ensemble.sdf": lambda path: ens.to_sdf(path),
-            "table.csv": lambda path: write_csv(ens, path, temps), "run.json": run_json}
+    files = {"ensemble.sdf": lambda path: ens.to_sdf(path),
+             "table.csv": lambda path: write_csv(ens, path, temps), "run.json": run_json}
+    if len(ens):
+        from .plot import draw_conformers, ensemble_plot
+        files["populations.png"] = lambda path: ensemble_plot(ens, temps, path=path)
+        files["conformers.png"] = lambda path: draw_conformers(ens, path=path,
+                                                               temperature=temps[0])
+    return files
 
 
 def _ensemble_settings(args) -> dict:

@@ -44,6 +44,10 @@ __all__ = ["atom_label", "LABEL_CONVENTION", "distinguishing_torsions", "ring_pu
 #: Said in every header that shows atom labels.
 LABEL_CONVENTION = "atoms numbered from 1, as in molecule viewers and the SDF atom block"
 
+#: Said under a table whose torsion labels carry a "*".
+STAR_NOTE = ("* an end atom chosen among symmetry-equivalent ones: in each conformer the one "
+             "giving the smallest |dihedral|")
+
 #: degrees. A torsion "differs" when two conformers' canonical values are further apart than
 #: this. Measured (benchmarks/describe_threshold.py: GFN2-xTB/GBSA(chloroform) ensembles of
 #: five small molecules, 166 conformers, 25,236 pairwise torsion differences): one peak at
@@ -124,6 +128,16 @@ def _end_choices(mol, center, other, ranks):
     return tuple(sorted(min(pool, key=preference)))
 
 
+def _positions(atom) -> int:
+    """Substituent positions around an atom: 4 (sp3, lone pairs included), 3 (sp2), 2 (sp)."""
+    hybrid = atom.GetHybridization()
+    if hybrid == Chem.HybridizationType.SP:
+        return 2
+    if hybrid == Chem.HybridizationType.SP2:
+        return 3
+    return 4
+
+
 def _circular_spread(values) -> float:
     v = np.asarray(values, float)
     if v.size < 2:
@@ -174,11 +188,12 @@ def distinguishing_torsions(mol: Chem.Mol, conf_ids=None, *,
         key = np.abs(phi) - 1e-6 * np.sign(phi)
         choice = np.argmin(np.where(np.isnan(key), np.inf, key), axis=1)
         values = phi[np.arange(len(ids)), choice]
-        # a symmetric top (every other neighbour of an end equivalent: CH3, CF3, NMe2)
+        # a symmetric top (every other position of an end taken by equivalent atoms: CH3, CF3,
+        # a planar NMe2 or phenyl; not a pyramidal NH2, whose lone pair is a position too)
         # repeats every 360/n degrees: compare the values on that period
         fold = 1
-        for center, other, ends in ((j, k, ends_i), (k, j, ends_l)):
-            if len(ends) > 1 and len(ends) == mol.GetAtomWithIdx(center).GetDegree() - 1:
+        for center, ends in ((j, ends_i), (k, ends_l)):
+            if len(ends) > 1 and len(ends) == _positions(mol.GetAtomWithIdx(center)) - 1:
                 fold *= len(ends)
         spread = _circular_spread(values * fold) / fold
         if not spread > threshold:

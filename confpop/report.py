@@ -97,7 +97,7 @@ def report_html(ens, *, temperatures=(298.15,), input_text: str | None = None,
                 couplings: bool = True, profile=None, top: int = 4) -> str:
     """The report as one HTML string (see :func:`write_report`)."""
     from . import plot
-    from .describe import DISTINGUISHING_DEGREES, LABEL_CONVENTION
+    from .describe import DISTINGUISHING_DEGREES, LABEL_CONVENTION, STAR_NOTE
     from .io import ensemble_json
 
     if not len(ens):
@@ -128,7 +128,8 @@ def report_html(ens, *, temperatures=(298.15,), input_text: str | None = None,
     parts.append(f"<h2>Conformers</h2><p>Energies relative to the lowest conformer; populations "
                  f"are fractions of 1 with degeneracy included; dihedrals in degrees through "
                  f"the atoms named ({html.escape(LABEL_CONVENTION)}); only torsions that differ "
-                 f"by more than {DISTINGUISHING_DEGREES:g}° between conformers are listed.</p>" + _table(table, text_cols))
+                 f"by more than {DISTINGUISHING_DEGREES:g}° between conformers are listed"
+                 f"{'; ' + STAR_NOTE if any('*' in c for c in table.columns) else ''}.</p>" + _table(table, text_cols))
     parts.append("<h2>Pictures</h2>")
     parts.append(_img(plot.ensemble_plot(ens, temps), "populations against temperature and energy ladder"))
     parts.append(_img(plot.draw_conformers(ens, top=top, temperature=temps[0]),
