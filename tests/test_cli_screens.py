@@ -50,3 +50,35 @@ def test_a_log_gets_one_timestamped_line_per_stage(capsys):
     assert "ΔG(298.15 K)" in captured.out  # --free-energy shows the ΔG column
     assert main(["ensemble", "CCCC", "--method", "mmff94s", "--quiet"]) == 0
     assert "confpop: [" not in capsys.readouterr().err
+
+
+def test_couplings_out_folder_and_plot_with_band(tmp_path, capsys):
+    from pathlib import Path
+
+    sdf = Path(__file__).parent / "data" / "molecule_butanol_conformers.sdf"
+    out, png = tmp_path / "j", tmp_path / "j.png"
+    assert main(["couplings", str(sdf), "--uniform-weights", "-T", "0C", "25C", "--out", str(out),
+                 "--energy-sigma", "1", "--plot", str(png)]) == 0
+    text = capsys.readouterr().out
+    assert "atoms numbered from 1" in text
+    header = (out / "couplings.csv").read_text().splitlines()[0]
+    assert "J_273.15K_hz" in header and "J_298.15K_hz" in header
+    # the file's atom 1 is a methyl carbon (C1) carrying hydrogens 6-8 (MOL block order)
+    assert "H6/H7/H8(C1)" in (out / "couplings.csv").read_text()
+    assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+def test_coupling_band_is_drawn_per_line():
+    import pandas as pd
+
+    from confpop.plot import coupling_temperature_plot
+
+    averages = pd.DataFrame({"group": ["a", "b"], "species": [0, 0], 280.0: [5.0, 7.0],
+                             300.0: [5.2, 7.1]})
+    spread = pd.DataFrame({"group": ["a", "a", "b", "b"], "species": 0,
+                           "temperature": [280.0, 300.0, 280.0, 300.0],
+                           "p05": [4.5, 4.7, 6.5, 6.6], "p95": [5.5, 5.7, 7.5, 7.6]})
+    fig = coupling_temperature_plot(averages, spread=spread, title="invented")
+    ax = fig.axes[0]
+    assert len(ax.collections) == 3  # one band per line plus the legend's empty band
+    assert ax.get_title() == "invented"
