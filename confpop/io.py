@@ -130,8 +130,11 @@ def write_sdf(ens: Ensemble, path, temperatures=None) -> None:
             rec = Chem.Mol(mol)
             rec.RemoveAllConformers()
             rec.AddConformer(Chem.Conformer(mol.GetConformer(int(cid))), assignId=True)
-            for prop in list(rec.GetPropNames()):
-                rec.ClearProp(prop)
+            # private properties too: RDKit writes them, and the proton-identity cache of
+            # confpop.nmr.identity (recomputed on reading) took 82 kB of 980 for propranolol
+            for prop in list(rec.GetPropNames(includePrivate=True)):
+                if prop != "_Name":
+                    rec.ClearProp(prop)
             row = table.loc[cid]
             rec.SetProp("_Name", f"{ens.name or 'conformer'} {cid}")
             rec.SetIntProp("conformer_id", int(cid))
