@@ -147,8 +147,9 @@ def _circular_spread(values) -> float:
 
 
 def distinguishing_torsions(mol: Chem.Mol, conf_ids=None, *,
-                            threshold: float = DISTINGUISHING_DEGREES) -> list[DistinguishingTorsion]:
-    """The torsions that differ between conformers, largest spread first.
+                            threshold: float = DISTINGUISHING_DEGREES,
+                            weights=None) -> list[DistinguishingTorsion]:
+    """The torsions that differ between conformers, the most telling first.
 
     Parameters
     ----------
@@ -159,6 +160,11 @@ def distinguishing_torsions(mol: Chem.Mol, conf_ids=None, *,
     threshold : float, degrees
         A torsion is kept when two conformers differ by more than this (default
         :data:`DISTINGUISHING_DEGREES`, measured).
+    weights : sequence of float, optional
+        One per conformer (e.g. populations). The torsions are then ordered by their
+        weighted circular variance 1 - |sum_i w_i exp(i n phi_i)| (n: the symmetric-top
+        period), so the torsion that varies most among the populated conformers comes first;
+        without weights, by the largest difference between two conformers.
 
     Returns
     -------
@@ -174,7 +180,8 @@ def distinguishing_torsions(mol: Chem.Mol, conf_ids=None, *,
         return []
     ranks = list(Chem.CanonicalRankAtoms(mol, breakTies=False))
     xyz = np.array([mol.GetConformer(c).GetPositions() for c in ids])
-    found = []
+    w = None if weights is None else np.asarray(weights, float) / np.sum(weights)
+    found, scores = [], []
     for t in rotatable_torsions(mol, include_terminal=True):
         j, k = t.atoms[1], t.atoms[2]
         ends_i = _end_choices(mol, j, k, ranks)
@@ -202,13 +209,17 @@ def distinguishing_torsions(mol: Chem.Mol, conf_ids=None, *,
         label = (atom_label(mol, first_i) + ("*" if len(ends_i) > 1 else "") + "-"
                  + _labels(mol, (j, k)) + "-"
                  + atom_label(mol, first_l) + ("*" if len(ends_l) > 1 else ""))
+        if w is None:
+            scores.append(spread)
+        else:
+            scores.append(1.0 - abs(np.sum(w * np.exp(1j * np.radians(values * fold)))))
         found.append(DistinguishingTorsion(
             bond=(j, k), label=label,
             values={c: float(v) for c, v in zip(ids, values)},
             atoms={c: (pairs[p][0], j, k, pairs[p][1]) for c, p in zip(ids, choice)},
             spread=spread))
-    found.sort(key=lambda t: -t.spread)
-    return found
+    order = sorted(range(len(found)), key=lambda k: (-scores[k], -found[k].spread))
+    return [found[k] for k in order]
 
 
 # ----------------------------------------------------------------------------- rings
@@ -416,24 +427,34 @@ class ConformerDescription:
     convention: str = LABEL_CONVENTION
 
     def to_dict(self) -> dict:
-        """JSON-ready: torsions (label, 1-based atoms, values), rings, H-bonds."""
-        def one_based(atoms):
-            return [int(a) + 1 for a in atoms]
+        """JSON-ready summary of the torsions (label, 1-based atoms, spread); the per-conformer
+        values are in :meth:`conformer_dict`."""
+        out = []
+        for t in self.torsions:
+            atoms = {tuple(a) for a in t.atoms.values()}
+            item = {"label": t.label, "column": t.column,
+                    "bond": [int(a) + 1 for a in t.bond], "spread_deg": round(t.spread, 1)}
+            if len(atoms) == 1:
+                item["atoms"] = [int(a) + 1 for a in atoms.pop()]
+            else:  # an end chosen among equivalent atoms, differently in some conformers
+                item["atoms_by_conformer"] = {str(c): [int(x) + 1 for x in a]
+                                              for c, a in t.atoms.items()}
+            out.append(item)
+        return {"atom_numbering": self.convention, "distinguishing_degrees": DISTINGUISHING_DEGREES,
+                "torsions": out}
+
+    def conformer_dict(self, conf_id: int) -> dict:
+        """One conformer's torsions (degrees), ring puckers (Cremer-Pople) and H-bonds."""
+        cid = int(conf_id)
+        rings = self.rings[self.rings["conformer"] == cid]
+        hbonds = self.hbonds[self.hbonds["conformer"] == cid]
         return {
-            "atom_numbering": self.convention,
-            "torsions": [{"label": t.label, "column": t.column,
-                          "bond": one_based(t.bond), "spread_deg": round(t.spread, 1),
-                          "values_deg": {str(c): round(v, 1) for c, v in t.values.items()},
-                          "atoms": {str(c): one_based(a) for c, a in t.atoms.items()}}
-                         for t in self.torsions],
-            "rings": [{"conformer": int(r.conformer), "ring": r.ring, "pucker": r.pucker,
-                       "Q_angstrom": round(float(r.Q_angstrom), 3),
-                       "theta_deg": None if np.isnan(r.theta_deg) else round(float(r.theta_deg), 1),
-                       "phi2_deg": round(float(r.phi2_deg), 1)} for r in self.rings.itertuples()],
-            "hydrogen_bonds": [{"conformer": int(r.conformer), "label": r.label,
-                                "distance_angstrom": round(float(r.distance_angstrom), 3),
-                                "angle_deg": round(float(r.angle_deg), 1)}
-                               for r in self.hbonds.itertuples()],
+            "torsions_deg": {t.label: round(t.values[cid], 1) for t in self.torsions},
+            "rings": {r.ring: {"pucker": r.pucker, "Q_angstrom": round(float(r.Q_angstrom), 3),
+                               "theta_deg": None if np.isnan(r.theta_deg) else round(float(r.theta_deg), 1),
+                               "phi2_deg": round(float(r.phi2_deg), 1)} for r in rings.itertuples()},
+            "hydrogen_bonds": [{"label": r.label, "distance_angstrom": round(float(r.distance_angstrom), 3),
+                                "angle_deg": round(float(r.angle_deg), 1)} for r in hbonds.itertuples()],
         }
 
     def ring_summary(self) -> list[str]:
@@ -456,7 +477,8 @@ def describe_conformers(ens_or_mol, conf_ids=None, *,
     conf_ids : sequence of int, optional
         Default: the ensemble's active conformers (all of a Mol's).
     threshold : float, degrees
-        See :func:`distinguishing_torsions`.
+        See :func:`distinguishing_torsions`; for an ensemble the torsions are ordered by
+        their variation among the conformers populated at its first temperature.
 
     Examples
     --------
@@ -474,7 +496,15 @@ def describe_conformers(ens_or_mol, conf_ids=None, *,
         mol = ens_or_mol.mol
         ids = ens_or_mol.ids() if conf_ids is None else list(conf_ids)
     ids = [int(c) for c in ids]
-    torsions = distinguishing_torsions(mol, ids, threshold=threshold)
+    weights = None
+    if not isinstance(ens_or_mol, Chem.Mol) and len(ids) > 1:
+        first = next((p for p in ens_or_mol.provenance if p.get("step") == "input"), {})
+        temperature = float((first.get("temperatures") or [298.15])[0])
+        try:
+            weights = ens_or_mol.populations([temperature])[temperature].reindex(ids).to_numpy()
+        except InputError:  # ordering only (e.g. an ensemble without active conformers)
+            weights = None
+    torsions = distinguishing_torsions(mol, ids, threshold=threshold, weights=weights)
     rings = ring_puckers(mol, ids)
     hbonds = hydrogen_bonds(mol, ids)
     table = pd.DataFrame(index=pd.Index(ids, name="conformer"))

@@ -561,10 +561,7 @@ def ensemble_json(ens: Ensemble, temperatures=(298.15,), input_text: str | None 
         if "species" in shown.columns:
             item["species"] = int(shown.loc[cid, "species"])
         if desc is not None:
-            row = desc.table.loc[cid]
-            item["torsions_deg"] = {t.label: round(float(row[t.column]), 1) for t in desc.torsions}
-            item["rings"] = {c[len("ring_"):]: row[c] for c in desc.table.columns if c.startswith("ring_")}
-            item["hydrogen_bonds"] = [h for h in str(row["hydrogen_bonds"]).split("; ") if h]
+            item.update(desc.conformer_dict(cid))
         conformers.append(item)
     first = next((p for p in ens.provenance if p.get("step") == "input"), {})
     versions = {"confpop": first.get("confpop"), **first.get("libraries", {})} if first else {}
