@@ -147,3 +147,17 @@ def test_hydrogen_bonds_match_a_brute_force_geometric_check():
     got = {(r.conformer, r.donor, r.hydrogen, r.acceptor) for r in found.itertuples()}
     assert got == expected and any(e[1] == 4 for e in expected)
     assert all(label.startswith(("O5-H", "N1-H")) for label in found["label"])
+
+
+def test_torsions_varying_among_populated_conformers_come_first():
+    # pentane: C1-C2-C3-C4 differs between the two populated conformers, C2-C3-C4-C5 only in
+    # a rare third one (invented weights)
+    a, b = (0, 1, 2, 3), (1, 2, 3, 4)
+    mol = _with_dihedrals("CCCCC", [{a: 180.0, b: 180.0}, {a: 65.0, b: 180.0},
+                                    {a: 180.0, b: 65.0}])
+    by_spread = distinguishing_torsions(mol)
+    assert {t.label for t in by_spread} == {"C1-C2-C3-C4", "C2-C3-C4-C5"}
+    weighted = distinguishing_torsions(mol, weights=[0.5, 0.45, 0.05])
+    assert [t.label for t in weighted] == ["C1-C2-C3-C4", "C2-C3-C4-C5"]
+    reverse = distinguishing_torsions(mol, weights=[0.5, 0.05, 0.45])
+    assert [t.label for t in reverse] == ["C2-C3-C4-C5", "C1-C2-C3-C4"]
