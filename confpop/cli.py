@@ -413,6 +413,12 @@ def _ensemble_table_text(ens, temps, views=None, free: bool = False) -> str:
         lines.append(f"no torsion differs by more than {DISTINGUISHING_DEGREES:g}° between "
                      "these conformers")
     lines.extend(desc.ring_summary())
+    if hbonds is not None:
+        first = next(iter(views.values()))[temps[0]]
+        shares = desc.hydrogen_bond_shares(first)
+        lines.append(f"hydrogen bonds, share of the population at {temps[0]:g} K: " + "; ".join(
+            f"{label} {100 * share:.0f} %" for label, share in shares.items())
+            + f"; none {100 * (1 - first[desc.table['hydrogen_bonds'] != ''].sum()):.0f} %")
     if species is not None:
         shares = ens.species(temps[0])
         lines.append("species (slow exchange: NMR sees each as its own set of signals; "

@@ -457,6 +457,18 @@ class ConformerDescription:
                                 "angle_deg": round(float(r.angle_deg), 1)} for r in hbonds.itertuples()],
         }
 
+    def hydrogen_bond_shares(self, populations) -> dict:
+        """{H-bond label: share of the population in conformers that have it}.
+
+        ``populations``: {conformer id: population} (e.g. one column of
+        :meth:`Ensemble.populations`), largest share first.
+        """
+        pops = pd.Series(populations, dtype=float)
+        shares = {}
+        for label, sub in self.hbonds.groupby("label"):
+            shares[label] = float(pops.reindex(sorted(set(sub["conformer"]))).fillna(0.0).sum())
+        return dict(sorted(shares.items(), key=lambda kv: -kv[1]))
+
     def ring_summary(self) -> list[str]:
         """Rings whose pucker is the same in every conformer, as 'ring X: chair'."""
         out = []

@@ -23,7 +23,7 @@ body{font-family:sans-serif;max-width:1100px;margin:2em auto;padding:0 1em;color
 h1{font-size:1.4em}h2{font-size:1.15em;border-bottom:1px solid #ccc;margin-top:1.6em}
 table{border-collapse:collapse;font-size:0.85em;margin:0.5em 0}
 td,th{border:1px solid #ccc;padding:2px 6px;text-align:right}th{background:#f3f3f3}
-td.t,th.t{text-align:left}.caution{background:#fff6e0;border-left:4px solid #e0a000;
+td.t,th.t{text-align:left;white-space:nowrap}summary{cursor:pointer;margin:0.5em 0}.caution{background:#fff6e0;border-left:4px solid #e0a000;
 padding:0.4em 0.8em;margin:0.4em 0}img{max-width:100%;height:auto;display:block;margin:0.5em 0}
 dl{display:grid;grid-template-columns:max-content auto;gap:2px 12px}dt{font-weight:bold}
 """
@@ -79,7 +79,7 @@ def _conformer_table(ens, temps, free: bool) -> tuple[pd.DataFrame, list]:
             pass
     text = []
     for t in desc.torsions:
-        out[t.label + " °"] = pd.Series(t.values).round(0)
+        out[t.label + " °"] = pd.Series(t.values).round(0).astype("Int64")
     for c in desc.table.columns:
         if c.startswith("ring_"):
             out["ring " + c[5:]] = desc.table[c]
@@ -90,6 +90,12 @@ def _conformer_table(ens, temps, free: bool) -> tuple[pd.DataFrame, list]:
     if "species" in shown.columns and shown["species"].nunique() > 1:
         out["species"] = shown["species"]
     return out, text
+
+
+#: population share above which a conformer is in the report's main table (the rest are one
+#: click away): 1 %, the level below which the method's 0.5-1.5 kcal/mol error makes a
+#: population uncertain by a factor of several (the CLI caution)
+_MAJOR = 0.01
 
 
 def report_html(ens, *, temperatures=(298.15,), input_text: str | None = None,
@@ -125,15 +131,26 @@ def report_html(ens, *, temperatures=(298.15,), input_text: str | None = None,
     parts.append("<h2>Cautions</h2>" + "".join(
         f"<p class='caution'>{html.escape(c)}</p>" for c in cautions))
     table, text_cols = _conformer_table(ens, temps, free_energy)
-    parts.append(f"<h2>Conformers</h2><p>Energies relative to the lowest conformer; populations "
-                 f"are fractions of 1 with degeneracy included; dihedrals in degrees through "
-                 f"the atoms named ({html.escape(LABEL_CONVENTION)}); only torsions that differ "
-                 f"by more than {DISTINGUISHING_DEGREES:g}° between conformers are listed"
-                 f"{'; ' + STAR_NOTE if any('*' in c for c in table.columns) else ''}.</p>" + _table(table, text_cols))
-    parts.append("<h2>Pictures</h2>")
+    p0 = table[f"p({temps[0]:g} K)"]
+    major = p0 >= _MAJOR
+    parts.append(f"<h2>Which conformers matter</h2><p>{int(major.sum())} of {len(table)} "
+                 f"conformers have a population of at least {100 * _MAJOR:g} % at "
+                 f"{temps[0]:g} K and hold {100 * p0[major].sum():.0f} % of it; the effective "
+                 f"number of conformers (Kish) is {payload['effective_conformers'][format(temps[0], 'g')]:.1f}."
+                 "</p>" + _hbond_sentence(ens, p0))
     parts.append(_img(plot.ensemble_plot(ens, temps), "populations against temperature and energy ladder"))
     parts.append(_img(plot.draw_conformers(ens, top=top, temperature=temps[0]),
                       "the most populated conformers"))
+    note = (f"<p>Energies relative to the lowest conformer; populations are fractions of 1 with "
+            f"degeneracy included; dihedrals in degrees through the atoms named "
+            f"({html.escape(LABEL_CONVENTION)}); only torsions that differ by more than "
+            f"{DISTINGUISHING_DEGREES:g}° between conformers are listed"
+            f"{'; ' + STAR_NOTE if any('*' in c for c in table.columns) else ''}.</p>")
+    parts.append("<h2>Conformers</h2>" + note + _table(table[major], text_cols))
+    if (~major).any():
+        parts.append(f"<details><summary>the other {int((~major).sum())} conformers (below "
+                     f"{100 * _MAJOR:g} % at {temps[0]:g} K, {100 * p0[~major].sum():.1f} % in "
+                     f"all)</summary>{_table(table[~major], text_cols)}</details>")
     if couplings:
         parts.append(_couplings_section(ens, temps))
     if profile is not None:
@@ -141,6 +158,17 @@ def report_html(ens, *, temperatures=(298.15,), input_text: str | None = None,
     parts.append(f"<p style='font-size:0.8em;color:#666'>Written by confpop "
                  f"{html.escape(str(payload['versions'].get('confpop')))}.</p></body></html>")
     return "\n".join(p for p in parts if p)
+
+
+def _hbond_sentence(ens, populations) -> str:
+    from .describe import describe_conformers
+
+    shares = describe_conformers(ens).hydrogen_bond_shares(populations)
+    if not shares:
+        return "<p>No intramolecular hydrogen bond in any conformer.</p>"
+    return ("<p>Intramolecular hydrogen bonds, with the share of the population in conformers "
+            "that have them: " + html.escape("; ".join(f"{k} {100 * v:.0f} %" for k, v in shares.items()))
+            + ".</p>")
 
 
 def _couplings_section(ens, temps) -> str:

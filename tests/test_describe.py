@@ -147,6 +147,12 @@ def test_hydrogen_bonds_match_a_brute_force_geometric_check():
     got = {(r.conformer, r.donor, r.hydrogen, r.acceptor) for r in found.itertuples()}
     assert got == expected and any(e[1] == 4 for e in expected)
     assert all(label.startswith(("O5-H", "N1-H")) for label in found["label"])
+    # equal invented populations: each bond's share is the fraction of conformers having it
+    ids = [c.GetId() for c in mol.GetConformers()]
+    shares = describe_conformers(mol).hydrogen_bond_shares({c: 1.0 / len(ids) for c in ids})
+    for label, share in shares.items():
+        having = {c for c, lab in zip(found["conformer"], found["label"]) if lab == label}
+        assert share == pytest.approx(len(having) / len(ids), abs=1e-12)
 
 
 def test_torsions_varying_among_populated_conformers_come_first():
