@@ -1418,7 +1418,7 @@ _CLI_TERMS = (
      "fix the geometry (or draw the molecule with assigned configurations)"),
     (r"pass stereo='ignore' \(and check the conformers' axis yourself\) or leave out the "
      r"cumulene", "leave out the cumulene"),
-    (r"(?:try|use) method=?'(\w+)'", r"try --method \1"),
+    (r"(?:try|use) method[= ]?'(\w+)'", r"try --method \1"),
     (r"\(energy_property= and unit=; (--energy-property and --energy-unit) on the command "
      r"line\)", r"(\1)"),
     (r"\(unit=; (--energy-unit)(?: on the command line)?\)", r"(\1)"),
