@@ -66,6 +66,21 @@ def test_the_report_is_self_contained(butane, tmp_path):
     assert "invented energies" in text and "Kish" in text
 
 
+def test_the_report_shows_rates_when_a_scan_is_given(butane, tmp_path):
+    import numpy as np
+
+    from confpop.torsion import TorsionProfile
+
+    phi = np.arange(-180.0, 180.0, 15.0)
+    # an invented threefold profile with 3 kcal/mol barriers
+    profile = TorsionProfile.from_energies(phi, 1.5 * (1 + np.cos(np.radians(3 * phi))),
+                                           label="C0-C1-C2-C3")
+    path = tmp_path / "report.html"
+    write_report(butane, path, temperatures=[298.15], profile=profile)
+    text = path.read_text()
+    assert "Torsion scan and rates" in text and text.count("data:image/png;base64,") == 3
+
+
 @pytest.mark.skipif(_BROWSER is None, reason="no chromium binary on this machine "
                                              "(apt-get install chromium) to render the report")
 def test_the_report_renders_in_a_browser_with_its_pictures(butane, tmp_path):
