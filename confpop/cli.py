@@ -820,8 +820,21 @@ def _couplings_work(args, temps, observed, folder) -> int:
                                      energy_sigma=args.energy_sigma, seed=args.seed)
     fit = None
     if observed is not None:
-        fit = nmr.fit_populations(ens, observed, temperature=temps[0], parameters=args.parameters,
-                                  seed=args.seed, species=args.species)
+        try:
+            fit = nmr.fit_populations(ens, observed, temperature=temps[0],
+                                      parameters=args.parameters, seed=args.seed,
+                                      species=args.species)
+        except InputError as exc:  # the library numbers atoms from 0, the command line from 1
+            import re
+
+            from .report import one_based_labels
+            text = re.sub(r"observed coupling (\d+)-(\d+)",
+                          lambda m: f"--observed pair {int(m.group(1)) + 1}-{int(m.group(2)) + 1}",
+                          one_based_labels(str(exc)))
+            text = text.replace("see confpop.nmr.vicinal_pairs(mol)",
+                                "the pairs that have one are listed by --by pair (hydrogen "
+                                "numbers from 1, as printed)")
+            raise InputError(text) from None
     first = next((p for p in ens.provenance if p.get("step") == "input"), {})
     model = solvent_model(first.get("method", ens.level), ens.solvent)
     title = (f"{ens.name or args.input}  ({ens.level}, {model or 'gas phase'}; "

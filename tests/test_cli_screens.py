@@ -82,3 +82,14 @@ def test_coupling_band_is_drawn_per_line():
     ax = fig.axes[0]
     assert len(ax.collections) == 3  # one band per line plus the legend's empty band
     assert ax.get_title() == "invented"
+
+
+def test_an_observed_pair_without_a_coupling_is_named_as_the_user_numbered_it(tmp_path, capsys):
+    from pathlib import Path
+
+    sdf = Path(__file__).parent / "data" / "molecule_butanol_conformers.sdf"
+    csv = tmp_path / "observed.csv"
+    csv.write_text("atom_a,atom_b,J_hz\n8,10,4.2\n")  # H8 (methyl) and H10 (on O3): no 3J(H,H)
+    assert main(["couplings", str(sdf), "--uniform-weights", "--observed", str(csv)]) == 2
+    err = capsys.readouterr().err
+    assert "--observed pair 8-10" in err and "H10(O3)" in err and "confpop.nmr" not in err
