@@ -961,7 +961,7 @@ def _rate_row(b, t, unit, delta_nu_hz, transmission):
 def _prepare(molecule, conf_id, charge, multiplicity):
     """(mol with explicit H and >= 1 conformer, conformer id, embedded?)."""
     if isinstance(molecule, str):
-        from .molecule import load_molecule
+        from .loading import load_molecule
         mol = load_molecule(molecule, charge=charge, multiplicity=multiplicity)
     elif isinstance(molecule, Chem.Mol):
         mol = Chem.Mol(molecule)
