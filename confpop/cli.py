@@ -22,6 +22,7 @@ import warnings as _warnings
 
 from . import __version__
 from .errors import CalculationFailed, ConfpopError, InputError
+from .settings import SEARCH_DEFAULTS as _SEARCH_DEFAULTS
 
 __all__ = ["main"]
 
@@ -36,12 +37,12 @@ class _Parser(argparse.ArgumentParser):
         raise InputError(message)
 
 
-# the search's sampling defaults (kept equal to confpop.pipeline's by a test; not imported
-# here so that parsing the command line does not load RDKit)
-_MAX_ROUNDS = 20
-_TARGET_COMPLETENESS = 0.85
-_MIN_POPULATION = 1e-4
-_SCREEN_MARGIN = 3.0
+# the search's defaults, from confpop.settings (standard library only, so parsing the
+# command line does not load RDKit)
+_MAX_ROUNDS = _SEARCH_DEFAULTS.max_rounds
+_TARGET_COMPLETENESS = _SEARCH_DEFAULTS.target_completeness
+_MIN_POPULATION = _SEARCH_DEFAULTS.min_population
+_SCREEN_MARGIN = _SEARCH_DEFAULTS.screen_margin
 
 
 class _Once(argparse.Action):

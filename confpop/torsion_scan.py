@@ -25,6 +25,7 @@ from .errors import CalculationFailed, InputError
 from .fourier import _wrap_into
 from .geometry import _circular_difference, dihedral_angle, set_dihedral, wrap_degrees
 from .rotatable import _check_dihedral_atoms, _label, _side, _torsion_from_atoms
+from .settings import SCAN_DEFAULTS as _SCAN
 from .torsion_profile import HYSTERESIS_KCAL, TorsionProfile
 from .units import convert, normalize_unit
 
@@ -182,12 +183,14 @@ def _walk(mol, method, backend_kw, positions, atoms, targets, convergence, movin
     return out
 
 
-def scan_torsion(molecule, atoms, method="gfn2", solvent=None, start: float = -180.0,
-                 stop: float = 180.0, step: float = 15.0, relaxed: bool = True,
-                 conf_id: int = -1, convergence: str = "tight", executor=None,
-                 unit: str = "kcal/mol", *, charge: int | None = None,
+def scan_torsion(molecule, atoms, method=_SCAN.method, solvent=_SCAN.solvent,
+                 start: float = _SCAN.start, stop: float = _SCAN.stop, step: float = _SCAN.step,
+                 relaxed: bool = _SCAN.relaxed, conf_id: int = _SCAN.conf_id,
+                 convergence: str = _SCAN.convergence, executor=None,
+                 unit: str = _SCAN.unit, *, charge: int | None = None,
                  multiplicity: int | None = None,
-                 hysteresis_threshold: float | None = None, refine: bool = True,
+                 hysteresis_threshold: float | None = _SCAN.hysteresis_threshold,
+                 refine: bool = _SCAN.refine,
                  **backend_options) -> TorsionProfile:
     """Scan one dihedral angle and return its energy profile.
 
