@@ -439,9 +439,10 @@ def _ensemble_work(args, temps, progress, folder) -> int:
         if args.free_energy:
             ens = ens.add_free_energies(method=ens.level, temperatures=temps,
                                         low_mode=args.low_mode, workers=args.workers,
-                                        progress=progress)
+                                        progress=progress, store=args.store)
         if args.rescore:
-            ens = ens.rescore(args.rescore, workers=args.workers, progress=progress, rank=False)
+            ens = ens.rescore(args.rescore, workers=args.workers, progress=progress, rank=False,
+                              store=args.store)
         results.append(ens)
     payloads = [ensemble_json(e, temps, input_text=args.input) for e in results]
     for payload, ens in zip(payloads, results):
@@ -946,6 +947,8 @@ def _add_scan(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--workers", type=int, default=None,
                         help="processes for the two walks of a relaxed scan (default 2 when two "
                              "cores are free to use, else 1)")
+    parser.add_argument("--store", default=None, metavar="FILE",
+                        help="SQLite result store: reuse finished walks, resume an interrupted scan")
     parser.add_argument("--plot", default=None, metavar="FILE.png",
                         help="draw the profile (minima, maxima, barriers) to this file")
     parser.add_argument("--json", action="store_true", help="print machine-readable JSON only")
@@ -995,7 +998,8 @@ def _run_scan(args: argparse.Namespace) -> int:
         profile = scan_torsion(mol, atoms, method=args.method, solvent=args.solvent,
                                step=args.step, relaxed=not args.rigid,
                                convergence=args.convergence, executor=executor, unit=unit,
-                               charge=args.charge, multiplicity=args.multiplicity)
+                               charge=args.charge, multiplicity=args.multiplicity,
+                               store=args.store)
     finally:
         if executor is not None:
             executor.shutdown()

@@ -157,10 +157,26 @@ def single_point_unit(task: dict) -> dict:
 
 
 # ---------------------------------------------------------------------------------- helpers
-def _run(function, tasks, executor, workers, progress, description):
-    from .execution import run_units
-    return run_units(function, tasks, executor=executor, workers=workers, progress=progress,
-                     description=description)
+def _run(function, tasks, executor, workers, progress, description, *, store=None, kind=None,
+         unit_settings=()):
+    """Run the per-conformer units; with a store, each under its :func:`confpop.jobs.job_key`."""
+    from .jobs import job_key, run_jobs
+
+    keys = None
+    if store is not None:
+        keys = []
+        for task in tasks:
+            mol = Chem.Mol(task["mol"])
+            backend = dict(task["settings"])
+            charge, multiplicity = backend.pop("charge", None), backend.pop("multiplicity", None)
+            solvent = backend.pop("solvent", None)
+            settings = {"backend": backend, **{k: task[k] for k in unit_settings}}
+            keys.append(job_key([a.GetAtomicNum() for a in mol.GetAtoms()],
+                                mol.GetConformer().GetPositions(), charge=charge,
+                                multiplicity=multiplicity, method=task["method"], solvent=solvent,
+                                settings=settings, kind=kind))
+    return run_jobs(function, tasks, keys=keys, store=store, executor=executor, workers=workers,
+                    progress=progress, description=description)
 
 
 def _rebuild(ens, mol, table, step, level=None):
@@ -188,7 +204,8 @@ def add_free_energies(ens, method: str = "gfn2", temperatures=(298.15,), low_mod
                       cutoff: float = 100.0, solvent: str | None = None,
                       imaginary_threshold: float = -50.0, displace_imaginary: bool = False,
                       executor=None, *, workers: int | None = None, step: float = 0.005,
-                      standard_state: str | None = None, progress: bool = False, **backend_options):
+                      standard_state: str | None = None, progress: bool = False, store=None,
+                      **backend_options):
     """Per-conformer G(T) = E + G_corr(T) from numerical harmonic frequencies (RRHO).
 
     Parameters
@@ -224,6 +241,9 @@ def add_free_energies(ens, method: str = "gfn2", temperatures=(298.15,), low_mod
     standard_state : {"1 bar", "1 M"}, optional
         Default "1 M" with a solvent, "1 bar" in the gas phase.
     progress : bool
+    store : str, os.PathLike or confpop.store.ResultStore, optional
+        Result store: Hessians already in it are reused, each new one is written as soon as
+        it is done (an interrupted run resumes where it stopped).
     **backend_options
         Passed to the backend.
 
@@ -279,7 +299,10 @@ def add_free_energies(ens, method: str = "gfn2", temperatures=(298.15,), low_mod
               "imaginary_threshold": float(imaginary_threshold),
               "displace_imaginary": bool(displace_imaginary), "standard_state": standard_state,
               "step": float(step)} for cid in ids]
-    outcomes = _run(free_energy_unit, tasks, executor, workers, progress, "free energies")
+    outcomes = _run(free_energy_unit, tasks, executor, workers, progress, "free energies",
+                    store=store, kind="free-energy",
+                    unit_settings=("temperatures", "low_mode", "cutoff", "imaginary_threshold",
+                                   "displace_imaginary", "standard_state", "step"))
 
     table = ens.raw_table
     keys = [temperature_key(t) for t in temps]
@@ -332,7 +355,7 @@ def add_free_energies(ens, method: str = "gfn2", temperatures=(298.15,), low_mod
 def rescore(ens, method: str = "dft", functional: str | None = None, basis: str | None = None,
             dispersion: str | None = "d3bj", solvent: str | None = None, executor=None,
             progress: bool = False, *, workers: int | None = None, rank: bool = True,
-            **backend_options):
+            store=None, **backend_options):
     """Single-point energies of every active conformer at another level of theory.
 
     Parameters
@@ -351,6 +374,8 @@ def rescore(ens, method: str = "dft", functional: str | None = None, basis: str 
     progress : bool
     rank : bool
         Make the new level the one that ranks the conformers (default True).
+    store : str, os.PathLike or confpop.store.ResultStore, optional
+        Result store: energies already in it are reused, new ones written as they come.
     **backend_options
         Other backend options (``grid_level``, ``threads``, ...).
 
@@ -392,7 +417,8 @@ def rescore(ens, method: str = "dft", functional: str | None = None, basis: str 
     ids = _active_ids(ens)
     tasks = [{"mol": _conformer_binary(mol, cid), "method": method, "settings": settings}
              for cid in ids]
-    outcomes = _run(single_point_unit, tasks, executor, workers, progress, f"{method} single points")
+    outcomes = _run(single_point_unit, tasks, executor, workers, progress,
+                    f"{method} single points", store=store, kind="rescore-singlepoint")
     level = method.lower()
     column = f"energy_{level}"
     table = ens.raw_table

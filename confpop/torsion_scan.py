@@ -130,6 +130,69 @@ def _moving_fragment(mol, atoms):
     return side_k if len(side_k) <= len(side_j) else side_j
 
 
+def walk_unit(item: dict) -> list:
+    """One walk of a scan through ``item["targets"]`` (a picklable unit of work)."""
+    return _walk(item["mol"], item["method"], item["backend_kw"], item["positions"],
+                 item["atoms"], item["targets"], item["convergence"], item["moving"],
+                 item["relaxed"])
+
+
+def _start_unit(item: dict) -> dict:
+    """Relax the starting structure without constraint (a picklable unit of work)."""
+    from .optimize import optimize_positions
+
+    backend = _make_backend(item["method"], item["mol"], **item["backend_kw"])
+    res = optimize_positions(backend, np.asarray(item["positions"], dtype=float),
+                             convergence=item["convergence"])
+    return {"positions": np.array(res.positions, dtype=float),
+            "gradient_calls": int(res.gradient_calls), "converged": bool(res.converged),
+            "message": res.message}
+
+
+class _Runner:
+    """Builds the scan's work items and runs them through the execution layer and store."""
+
+    def __init__(self, mol, method, backend_kw, atoms, convergence, moving, executor, store):
+        self.mol, self.method, self.backend_kw = mol, method, backend_kw
+        self.atoms, self.convergence, self.executor, self.store = (atoms, convergence, executor,
+                                                                   store)
+        self.moving = None if moving is None else sorted(int(a) for a in moving)
+
+    def item(self, positions, *, targets=(), relaxed=True) -> dict:
+        return {"mol": self.mol, "method": self.method, "backend_kw": self.backend_kw,
+                "positions": np.array(positions, dtype=float), "atoms": self.atoms,
+                "targets": [float(t) for t in targets], "convergence": self.convergence,
+                "moving": self.moving, "relaxed": bool(relaxed)}
+
+    def _key(self, item, kind):
+        from .jobs import job_key
+
+        method = self.method
+        name = (method if isinstance(method, str)
+                else f"{method.__module__}.{getattr(method, '__qualname__', _method_name(method))}")
+        kw = dict(self.backend_kw)
+        settings = {"options": kw.pop("options", {}), "atoms": list(self.atoms),
+                    "targets": item["targets"], "convergence": item["convergence"],
+                    "moving": self.moving, "relaxed": item["relaxed"]}
+        return job_key([a.GetAtomicNum() for a in self.mol.GetAtoms()], item["positions"],
+                       charge=kw["charge"], multiplicity=kw["multiplicity"], method=name,
+                       solvent=kw["solvent"], settings=settings, kind=kind)
+
+    def run(self, function, items, what, *, kind="torsion-walk") -> list:
+        from .jobs import run_jobs
+
+        keys = [self._key(it, kind) for it in items] if self.store is not None else None
+        outcomes = run_jobs(function, items, keys=keys, store=self.store,
+                            executor=self.executor, workers=None if self.executor else 1)
+        for outcome in outcomes:
+            if not outcome.ok:
+                if outcome.error_type == "InputError":
+                    raise InputError(outcome.error_message)
+                raise CalculationFailed(f"{what} failed ({outcome.attempts} attempts): "
+                                        f"{outcome.error_type}: {outcome.error_message}")
+        return [o.value for o in outcomes]
+
+
 def _walk(mol, method, backend_kw, positions, atoms, targets, convergence, moving, relaxed,
           starts=None):
     """One walk through ``targets``; returns a list of per-point dicts (picklable).
@@ -190,7 +253,7 @@ def scan_torsion(molecule, atoms, method=_SCAN.method, solvent=_SCAN.solvent,
                  unit: str = _SCAN.unit, *, charge: int | None = None,
                  multiplicity: int | None = None,
                  hysteresis_threshold: float | None = _SCAN.hysteresis_threshold,
-                 refine: bool = _SCAN.refine,
+                 refine: bool = _SCAN.refine, store=None,
                  **backend_options) -> TorsionProfile:
     """Scan one dihedral angle and return its energy profile.
 
@@ -218,8 +281,9 @@ def scan_torsion(molecule, atoms, method=_SCAN.method, solvent=_SCAN.solvent,
     convergence : str
         Optimizer preset ("loose", "normal", "tight", "verytight").
     executor : concurrent.futures.Executor, optional
-        If given, the up and down walks of a relaxed scan run as two tasks on it, and the
-        points added at extrema one task each (set ``OMP_NUM_THREADS=1`` in its workers, as
+        If given, the up and down walks of a relaxed scan run as two units on it, and the
+        points added at extrema one unit each, through :func:`confpop.execution.run_units`
+        (set ``OMP_NUM_THREADS=1`` in its workers, as
         :func:`confpop.execution.local_executor` does). Default: all in this process.
     unit : str
         Energy unit of the profile.
@@ -231,6 +295,10 @@ def scan_torsion(molecule, atoms, method=_SCAN.method, solvent=_SCAN.solvent,
         (up to two rounds; each started from the computed points on both sides, keeping the
         lower), so extremum energies are computed, not interpolated; coarse grids otherwise
         under- or overshoot near sharp features.
+    store : str, os.PathLike or confpop.store.ResultStore, optional
+        Result store: the starting optimization, each walk and each extra point are written
+        as they finish and reused by a later call with the same input (an interrupted scan
+        resumes); keys as for :func:`confpop.jobs.job_key`.
     **backend_options
         Passed to the backend (e.g. ``barrier=`` for the model backend).
 
@@ -289,32 +357,32 @@ def scan_torsion(molecule, atoms, method=_SCAN.method, solvent=_SCAN.solvent,
     start_conf = Chem.Conformer(mol.GetConformer(conf_id))
     start_conf.SetId(0)
     mol_walk.AddConformer(start_conf, assignId=False)
-    backend = _make_backend(method, mol_walk, **backend_kw)
+    _make_backend(method, mol_walk, **backend_kw)  # an unknown method or option fails here
     pos0 = np.array(mol.GetConformer(conf_id).GetPositions())
+    # every computation below is a unit of work of the execution layer (retries, failure
+    # records, any executor) and, with a store, is named by its content and reused
+    runner = _Runner(mol_walk, method, backend_kw, atoms, convergence, moving, executor, store)
     calls = 0
     if relaxed or embedded:
-        from .optimize import optimize_positions
-        res = optimize_positions(backend, pos0, convergence=convergence)
-        calls += int(res.gradient_calls)
-        if not res.converged:
-            log.warning("the starting structure did not converge: %s", res.message)
-        pos0 = np.array(res.positions, dtype=float)
+        res = runner.run(_start_unit, [runner.item(pos0)], "the starting structure",
+                         kind="torsion-start")[0]
+        calls += res["gradient_calls"]
+        if not res["converged"]:
+            log.warning("the starting structure did not converge: %s", res["message"])
+        pos0 = np.array(res["positions"], dtype=float)
     phi0 = dihedral_angle(pos0, atoms)
 
     n = len(angles)
     if not relaxed:
-        pts = _walk(mol_walk, method, backend_kw, pos0, atoms, angles, convergence, moving, False)
+        pts = runner.run(walk_unit, [runner.item(pos0, targets=angles, relaxed=False)],
+                         "the rigid scan")[0]
         up = down = pts
     else:
         order_up, order_down = _walk_orders(angles, phi0, periodic)
-        args = (mol_walk, method, backend_kw, pos0, atoms)
-        if executor is None:
-            res_up = _walk(*args, angles[order_up], convergence, moving, True)
-            res_down = _walk(*args, angles[order_down], convergence, moving, True)
-        else:
-            fut_up = executor.submit(_walk, *args, angles[order_up], convergence, moving, True)
-            fut_down = executor.submit(_walk, *args, angles[order_down], convergence, moving, True)
-            res_up, res_down = fut_up.result(), fut_down.result()
+        res_up, res_down = runner.run(
+            walk_unit, [runner.item(pos0, targets=angles[order_up], relaxed=True),
+                        runner.item(pos0, targets=angles[order_down], relaxed=True)],
+            "a walk of the scan")
         up, down = _scatter(res_up, order_up, n), _scatter(res_down, order_down, n)
         calls += sum(p.get("gradient_calls", 0) for p in res_up + res_down)
 
@@ -344,14 +412,9 @@ def scan_torsion(molecule, atoms, method=_SCAN.method, solvent=_SCAN.solvent,
             # start from the computed neighbours on both sides and keep the lower result:
             # after hysteresis the two sides can sit in different basins
             jobs = [(x, pos) for x in extra for pos in _neighbour_geometries(records, x, periodic)]
-            if executor is None:
-                done = _walk(mol_walk, method, backend_kw, None, atoms, [x for x, _ in jobs],
-                             convergence, moving, relaxed, starts=[pos for _, pos in jobs])
-            else:
-                futures = [executor.submit(_walk, mol_walk, method, backend_kw, None, atoms, [x],
-                                           convergence, moving, relaxed, starts=[pos])
-                           for x, pos in jobs]
-                done = [f.result()[0] for f in futures]
+            done = [walk[0] for walk in runner.run(
+                walk_unit, [runner.item(pos, targets=[x], relaxed=relaxed) for x, pos in jobs],
+                "a point at a fitted extremum")]
             calls += sum(p.get("gradient_calls", 0) for p in done)
             best: dict = {}
             for (x, _), p in zip(jobs, done):
