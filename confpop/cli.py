@@ -1145,8 +1145,10 @@ def _install_signal_handlers() -> dict:
 
 def _show_warning(message, category, filename, lineno, file=None, line=None):
     """Our cautions as one line each; other libraries' warnings as usual."""
-    from .errors import ConfpopWarning
+    from .errors import ConfpopWarning, LoggedWarning
 
+    if issubclass(category, LoggedWarning):
+        return  # also logged: the log line is the one the user sees
     if issubclass(category, ConfpopWarning):
         print(f"{_PROG}: warning: {' '.join(str(message).split())}", file=sys.stderr)
     else:

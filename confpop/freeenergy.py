@@ -46,7 +46,7 @@ import numpy as np
 import pandas as pd
 from rdkit import Chem
 
-from .errors import InputError
+from .errors import FrequencyWarning, InputError, caution
 from .thermo import check_temperatures
 from .units import convert
 
@@ -335,12 +335,12 @@ def add_free_energies(ens, method: str = "gfn2", temperatures=(298.15,), low_mod
             if method.lower() == ens.level.lower() and level_col in table.columns:
                 table.loc[cid, level_col] = v["new_energy"]
             else:
-                log.warning("conformer %d was re-optimized at %s; its %s energy is from the old "
-                            "geometry", cid, method, ens.level)
+                caution(log, FrequencyWarning, "conformer %d was re-optimized at %s; its %s "
+                        "energy is from the old geometry", cid, method, ens.level)
     n_flagged = int((table["imaginary_modes"].fillna(0) > 0).sum())
     if n_flagged:
-        log.warning("%d conformer(s) have imaginary modes below %.0f cm-1 (column "
-                    "imaginary_modes)", n_flagged, imaginary_threshold)
+        caution(log, FrequencyWarning, "%d conformer(s) have imaginary modes below %.0f cm-1 "
+                "(column imaginary_modes)", n_flagged, imaginary_threshold)
     step_info = step_record("free energies", started=started, n_in=len(ids),
                             n_out=int(sum(o.ok for o in outcomes)), method=method,
                             solvent=solvent, temperatures=temps, low_mode=low_mode,

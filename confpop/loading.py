@@ -40,7 +40,7 @@ from scipy.spatial import cKDTree
 from .checks import _check_int, _check_method
 from .chem_helpers import _atom, _element_text, _isomeric_smiles, _plain_smiles
 from .coverage import _charge_and_multiplicity, _check_method_coverage, _formal_charge
-from .errors import InputError
+from .errors import InputError, StereoWarning, caution
 from .reading import _conformer_label, _read_source
 from .stereo import (_assign_from_coordinates, _fits_units, _open_stereo, _refuse_cumulenes,
                      _stereo_elements, _stereo_labels, _unassigned_stereo,
@@ -373,8 +373,8 @@ def _finish(parsed, *, charge, multiplicity, keep_largest_fragment, stereo, meth
             raise _unassigned_stereo_error(mol, open_elements, label, units)
     unassigned_note = "; ".join(e.text for e in open_elements)
     if open_elements and stereo == "ignore" and warn:
-        logger.warning("%s: stereo left open (%s); conformer generation will pick each "
-                       "configuration at random", label, unassigned_note)
+        caution(logger, StereoWarning, "%s: stereo left open (%s); conformer generation will "
+                "pick each configuration at random", label, unassigned_note, stacklevel=5)
 
     total_charge, spin = _charge_and_multiplicity(mol, label, charge, multiplicity,
                                                   parsed.multiplicity_hint)

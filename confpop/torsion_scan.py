@@ -21,7 +21,7 @@ import math
 import numpy as np
 from rdkit import Chem
 
-from .errors import CalculationFailed, InputError
+from .errors import CalculationFailed, InputError, ScanWarning, caution
 from .fourier import _wrap_into
 from .geometry import _circular_difference, dihedral_angle, set_dihedral, wrap_degrees
 from .rotatable import _check_dihedral_atoms, _label, _side, _torsion_from_atoms
@@ -346,8 +346,8 @@ def scan_torsion(molecule, atoms, method=_SCAN.method, solvent=_SCAN.solvent,
         raise InputError(f"bond {_label(mol, atoms[1])}-{_label(mol, atoms[2])} is in a ring; "
                          "a rigid scan cannot turn it (use relaxed=True over a partial range)")
     if moving is None:
-        log.warning("bond %s-%s is in a ring: the scan relies on the optimizer alone",
-                    _label(mol, atoms[1]), _label(mol, atoms[2]))
+        caution(log, ScanWarning, "bond %s-%s is in a ring: the scan relies on the optimizer "
+                "alone", _label(mol, atoms[1]), _label(mol, atoms[2]))
     backend_kw = {"solvent": solvent, "charge": charge, "multiplicity": multiplicity,
                   "options": backend_options}
     # every backend sees the starting conformer alone, as conformer 0 (the model backend
@@ -368,7 +368,8 @@ def scan_torsion(molecule, atoms, method=_SCAN.method, solvent=_SCAN.solvent,
                          kind="torsion-start")[0]
         calls += res["gradient_calls"]
         if not res["converged"]:
-            log.warning("the starting structure did not converge: %s", res["message"])
+            caution(log, ScanWarning, "the starting structure did not converge: %s",
+                    res["message"])
         pos0 = np.array(res["positions"], dtype=float)
     phi0 = dihedral_angle(pos0, atoms)
 
@@ -443,9 +444,9 @@ def scan_torsion(molecule, atoms, method=_SCAN.method, solvent=_SCAN.solvent,
         for m in np.flatnonzero(both & (np.abs(rel_up - rel_down) > threshold)):
             hyst.append((float(records[m]["angle"]), float(abs(rel_up[m] - rel_down[m]))))
         if hyst:
-            log.warning("scan of %s: the up and down walks differ by more than %.2f %s at %s "
-                        "degrees (a neighbouring group changed during the scan)",
-                        atoms, threshold, unit, ", ".join(f"{a:g}" for a, _ in hyst))
+            caution(log, ScanWarning, "scan of %s: the up and down walks differ by more than "
+                    "%.2f %s at %s degrees (a neighbouring group changed during the scan)",
+                    atoms, threshold, unit, ", ".join(f"{a:g}" for a, _ in hyst))
     positions = np.full((len(records), mol.GetNumAtoms(), 3), np.nan)
     for m, r in enumerate(records):
         if r["positions"] is not None:
