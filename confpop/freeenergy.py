@@ -180,8 +180,8 @@ def _run(function, tasks, executor, workers, progress, description, *, store=Non
 
 
 def _rebuild(ens, mol, table, step, level=None):
-    from .ensemble import Ensemble
-    return Ensemble(mol, table, level=level or ens.level, charge=ens.charge,
+    # the ensemble's own class (no import of confpop.ensemble, which forwards to this module)
+    return type(ens)(mol, table, level=level or ens.level, charge=ens.charge,
                     multiplicity=ens.multiplicity, solvent=ens.solvent,
                     provenance=list(ens.provenance) + [step], name=ens.name)
 
@@ -271,7 +271,7 @@ def add_free_energies(ens, method: str = "gfn2", temperatures=(298.15,), low_mod
     >>> int(out.column("symmetry_number")[0]), int(out.column("imaginary_modes")[0])
     (2, 0)
     """
-    from .ensemble import step_record, temperature_key
+    from .records import step_record, temperature_key
 
     started = time.perf_counter()
     temps = check_temperatures(temperatures)
@@ -397,7 +397,7 @@ def rescore(ens, method: str = "dft", functional: str | None = None, basis: str 
     ('mmff94', True)
     """
     from .backends import backend_class
-    from .ensemble import step_record
+    from .records import step_record
 
     started = time.perf_counter()
     if not isinstance(method, str):
