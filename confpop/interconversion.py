@@ -278,6 +278,29 @@ def interconversion(ens, i: int, j: int, method=None, temperatures=(298.15,), *,
                            pb["barrier_reverse"], rates, unit, msg, profile.note + caution)
 
 
+def _exchange_rows(pair, pb, temps, unit, delta_nu_hz, method, slow_note) -> list[dict]:
+    """One row per temperature for a conformer pair with barrier record ``pb``."""
+    from . import kinetics
+
+    rows = []
+    for t in temps:
+        row = {**pair, "temperature": t}
+        if pb is None or pb["same_well"]:
+            row.update(barrier_ab=float("nan"), barrier_ba=float("nan"),
+                       k_ab=float("nan"), k_ba=float("nan"), k_exchange=float("nan"),
+                       regime="same well",
+                       note=f"the {method} scan puts both conformers in one well")
+        else:
+            kab = float(kinetics.eyring_rate(pb["barrier_forward"], t, unit=unit))
+            kba = float(kinetics.eyring_rate(pb["barrier_reverse"], t, unit=unit))
+            row.update(barrier_ab=pb["barrier_forward"], barrier_ba=pb["barrier_reverse"],
+                       k_ab=kab, k_ba=kba, k_exchange=kab + kba,
+                       regime=str(kinetics.exchange_regime(0.5 * (kab + kba), delta_nu_hz)),
+                       note=slow_note)
+        rows.append(row)
+    return rows
+
+
 def exchange_summary(ens, temperatures, *, delta_nu_hz: float, method=None,
                      step: float = 30.0, threshold: float = 60.0, convergence: str = "tight",
                      executor=None, unit: str = "kcal/mol", **backend_options) -> pd.DataFrame:
@@ -310,7 +333,6 @@ def exchange_summary(ens, temperatures, *, delta_nu_hz: float, method=None,
         differ in more than one torsion and not in exactly one slow bond, as (a, b, torsion
         labels, reason).
     """
-    from . import kinetics
     unit = normalize_unit(unit)
     temps = check_temperatures(temperatures)
     method = _default_method(ens, method)
@@ -367,24 +389,12 @@ def exchange_summary(ens, temperatures, *, delta_nu_hz: float, method=None,
             if pb is not None and not a_starts:  # report a -> b
                 pb = {**pb, "barrier_forward": pb["barrier_reverse"],
                       "barrier_reverse": pb["barrier_forward"]}
-            for t in temps:
-                row = {"conformer_a": a, "conformer_b": b, "species_a": species[a],
-                       "species_b": species[b], "torsion": tors["label"],
-                       "atoms": tuple(tors["atoms"]), "temperature": t}
-                if pb is None or pb["same_well"]:
-                    row.update(barrier_ab=float("nan"), barrier_ba=float("nan"),
-                               k_ab=float("nan"), k_ba=float("nan"), k_exchange=float("nan"),
-                               regime="same well",
-                               note=f"the {method} scan puts both conformers in one well")
-                else:
-                    kab = float(kinetics.eyring_rate(pb["barrier_forward"], t, unit=unit))
-                    kba = float(kinetics.eyring_rate(pb["barrier_reverse"], t, unit=unit))
-                    row.update(barrier_ab=pb["barrier_forward"], barrier_ba=pb["barrier_reverse"],
-                               k_ab=kab, k_ba=kba, k_exchange=kab + kba,
-                               regime=str(kinetics.exchange_regime(0.5 * (kab + kba), delta_nu_hz)),
-                               note=(f"slow bond scanned from conformer {first}; the other "
-                                     "changed torsions relax along it" if via_slow else ""))
-                rows.append(row)
+            pair = {"conformer_a": a, "conformer_b": b, "species_a": species[a],
+                    "species_b": species[b], "torsion": tors["label"],
+                    "atoms": tuple(tors["atoms"])}
+            slow_note = (f"slow bond scanned from conformer {first}; the other changed "
+                         "torsions relax along it" if via_slow else "")
+            rows.extend(_exchange_rows(pair, pb, temps, unit, delta_nu_hz, method, slow_note))
     cols = ["conformer_a", "conformer_b", "species_a", "species_b", "torsion", "atoms",
             "temperature", "barrier_ab", "barrier_ba", "k_ab", "k_ba", "k_exchange", "regime",
             "note"]

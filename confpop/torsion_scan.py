@@ -352,11 +352,7 @@ def scan_torsion(molecule, atoms, method=_SCAN.method, solvent=_SCAN.solvent,
                   "options": backend_options}
     # every backend sees the starting conformer alone, as conformer 0 (the model backend
     # takes its reference bond lengths and angles from it)
-    mol_walk = Chem.Mol(mol)
-    mol_walk.RemoveAllConformers()
-    start_conf = Chem.Conformer(mol.GetConformer(conf_id))
-    start_conf.SetId(0)
-    mol_walk.AddConformer(start_conf, assignId=False)
+    mol_walk = _single_conformer(mol, conf_id)
     _make_backend(method, mol_walk, **backend_kw)  # an unknown method or option fails here
     pos0 = np.array(mol.GetConformer(conf_id).GetPositions())
     # every computation below is a unit of work of the execution layer (retries, failure
@@ -387,47 +383,12 @@ def scan_torsion(molecule, atoms, method=_SCAN.method, solvent=_SCAN.solvent,
         up, down = _scatter(res_up, order_up, n), _scatter(res_down, order_down, n)
         calls += sum(p.get("gradient_calls", 0) for p in res_up + res_down)
 
-    records = []
-    for m in range(n):
-        u, d = up[m], down[m]
-        e_u = u["energy"] if u else np.nan
-        e_d = d["energy"] if d else np.nan
-        c_u, c_d = bool(u and u["converged"]), bool(d and d["converged"])
-        # the lower energy wins, but a converged point beats a lower unconverged one
-        take_down = (np.isfinite(e_d) and not (e_u <= e_d)) if c_u == c_d else (c_d and np.isfinite(e_d))
-        p = d if take_down else u
-        records.append({"angle": float(angles[m]), "energy": p["energy"] if p else np.nan,
-                        "converged": bool(p and p["converged"]),
-                        "message": p["message"] if p else "not computed",
-                        "positions": p["positions"] if p else None,
-                        "achieved": p["angle"] if p else np.nan,
-                        "up": e_u, "down": e_d, "refined": False})
+    records = _merge_walks(up, down, angles)
     if not np.isfinite([r["energy"] for r in records]).any():
         raise CalculationFailed(f"every point of the scan of {atoms} failed; first message: "
                                 f"{records[0]['message']}")
     if refine:
-        for _ in range(2):
-            extra = _refinement(records, periodic, float(start), unit)
-            if not extra:
-                break
-            # start from the computed neighbours on both sides and keep the lower result:
-            # after hysteresis the two sides can sit in different basins
-            jobs = [(x, pos) for x in extra for pos in _neighbour_geometries(records, x, periodic)]
-            done = [walk[0] for walk in runner.run(
-                walk_unit, [runner.item(pos, targets=[x], relaxed=relaxed) for x, pos in jobs],
-                "a point at a fitted extremum")]
-            calls += sum(p.get("gradient_calls", 0) for p in done)
-            best: dict = {}
-            for (x, _), p in zip(jobs, done):
-                old = best.get(x)
-                if old is None or _better(p, old):
-                    best[x] = p
-            for x, p in best.items():
-                records.append({"angle": float(x), "energy": p["energy"],
-                                "converged": p["converged"], "message": p["message"],
-                                "positions": p["positions"], "achieved": p["angle"],
-                                "up": p["energy"], "down": p["energy"], "refined": True})
-        records.sort(key=lambda r: r["angle"])
+        calls += _refine_extrema(runner, records, periodic, float(start), unit, relaxed)
 
     def col(key, dtype=float):
         return np.array([r[key] for r in records], dtype=dtype)
@@ -438,15 +399,7 @@ def scan_torsion(molecule, atoms, method=_SCAN.method, solvent=_SCAN.solvent,
     factor = convert(1.0, "hartree", unit)
     rel = (energy_h - ref) * factor
     rel_up, rel_down = (col("up") - ref) * factor, (col("down") - ref) * factor
-    hyst = []
-    if relaxed:
-        both = np.isfinite(rel_up) & np.isfinite(rel_down)
-        for m in np.flatnonzero(both & (np.abs(rel_up - rel_down) > threshold)):
-            hyst.append((float(records[m]["angle"]), float(abs(rel_up[m] - rel_down[m]))))
-        if hyst:
-            caution(log, ScanWarning, "scan of %s: the up and down walks differ by more than "
-                    "%.2f %s at %s degrees (a neighbouring group changed during the scan)",
-                    atoms, threshold, unit, ", ".join(f"{a:g}" for a, _ in hyst))
+    hyst = _hysteresis(records, rel_up, rel_down, threshold, atoms, unit) if relaxed else []
     positions = np.full((len(records), mol.GetNumAtoms(), 3), np.nan)
     for m, r in enumerate(records):
         if r["positions"] is not None:
@@ -464,6 +417,78 @@ def scan_torsion(molecule, atoms, method=_SCAN.method, solvent=_SCAN.solvent,
         achieved_angles=col("achieved"), refined=col("refined", bool), gradient_calls=int(calls),
         start_angle=float(phi0), reference_energy=ref, positions=positions, mol=mol_out,
         periodic=periodic)
+
+
+def _single_conformer(mol, conf_id):
+    """A copy of ``mol`` holding only conformer ``conf_id``, as conformer 0."""
+    single = Chem.Mol(mol)
+    single.RemoveAllConformers()
+    conf = Chem.Conformer(mol.GetConformer(conf_id))
+    conf.SetId(0)
+    single.AddConformer(conf, assignId=False)
+    return single
+
+
+def _hysteresis(records, rel_up, rel_down, threshold, atoms, unit) -> list:
+    """(angle, |E_up - E_down|) where the two walks differ by more than ``threshold``."""
+    hyst = []
+    both = np.isfinite(rel_up) & np.isfinite(rel_down)
+    for m in np.flatnonzero(both & (np.abs(rel_up - rel_down) > threshold)):
+        hyst.append((float(records[m]["angle"]), float(abs(rel_up[m] - rel_down[m]))))
+    if hyst:
+        caution(log, ScanWarning, "scan of %s: the up and down walks differ by more than "
+                "%.2f %s at %s degrees (a neighbouring group changed during the scan)",
+                atoms, threshold, unit, ", ".join(f"{a:g}" for a, _ in hyst), stacklevel=4)
+    return hyst
+
+
+def _merge_walks(up, down, angles) -> list[dict]:
+    """One record per grid angle from the up and down walks (the better point of the two)."""
+    records = []
+    for m in range(len(angles)):
+        u, d = up[m], down[m]
+        e_u = u["energy"] if u else np.nan
+        e_d = d["energy"] if d else np.nan
+        c_u, c_d = bool(u and u["converged"]), bool(d and d["converged"])
+        # the lower energy wins, but a converged point beats a lower unconverged one
+        take_down = (np.isfinite(e_d) and not (e_u <= e_d)) if c_u == c_d else (c_d and np.isfinite(e_d))
+        p = d if take_down else u
+        records.append({"angle": float(angles[m]), "energy": p["energy"] if p else np.nan,
+                        "converged": bool(p and p["converged"]),
+                        "message": p["message"] if p else "not computed",
+                        "positions": p["positions"] if p else None,
+                        "achieved": p["angle"] if p else np.nan,
+                        "up": e_u, "down": e_d, "refined": False})
+    return records
+
+
+def _refine_extrema(runner, records, periodic, start, unit, relaxed) -> int:
+    """Add computed points at fitted extrema between grid points (up to two rounds) to
+    ``records`` (sorted by angle afterwards); returns the gradient calls they took."""
+    calls = 0
+    for _ in range(2):
+        extra = _refinement(records, periodic, start, unit)
+        if not extra:
+            break
+        # start from the computed neighbours on both sides and keep the lower result:
+        # after hysteresis the two sides can sit in different basins
+        jobs = [(x, pos) for x in extra for pos in _neighbour_geometries(records, x, periodic)]
+        done = [walk[0] for walk in runner.run(
+            walk_unit, [runner.item(pos, targets=[x], relaxed=relaxed) for x, pos in jobs],
+            "a point at a fitted extremum")]
+        calls += sum(p.get("gradient_calls", 0) for p in done)
+        best: dict = {}
+        for (x, _), p in zip(jobs, done):
+            old = best.get(x)
+            if old is None or _better(p, old):
+                best[x] = p
+        for x, p in best.items():
+            records.append({"angle": float(x), "energy": p["energy"],
+                            "converged": p["converged"], "message": p["message"],
+                            "positions": p["positions"], "achieved": p["angle"],
+                            "up": p["energy"], "down": p["energy"], "refined": True})
+    records.sort(key=lambda r: r["angle"])
+    return calls
 
 
 def _refinement(records, periodic, start, unit) -> list[float]:
