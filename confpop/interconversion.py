@@ -212,6 +212,9 @@ def interconversion(ens, i: int, j: int, method=None, temperatures=(298.15,), *,
         If two or more torsions differ by more than this, the change is not a single-torsion
         interconversion: nothing is scanned and the torsions are reported.
     unit : str
+    **backend_options
+        Passed to :func:`confpop.scan_torsion`, ``store=`` included (a result store makes an
+        interrupted scan resume).
 
     Returns
     -------

@@ -115,3 +115,24 @@ def test_scan_command_writes_and_reuses_its_store(tmp_path, monkeypatch, capsys)
     for payload in (first, again):
         payload.pop("seconds", None)
     assert again == first
+
+
+def test_interconversion_passes_the_store_to_its_scan(tmp_path, monkeypatch):
+    from confpop.interconversion import interconversion
+
+    from rdkit.Chem import rdMolTransforms
+
+    mol = Chem.AddHs(Chem.MolFromSmiles("CCCC"))
+    AllChem.EmbedMultipleConfs(mol, 2, randomSeed=7)
+    rdMolTransforms.SetDihedralDeg(mol.GetConformer(0), 0, 1, 2, 3, 180.0)
+    rdMolTransforms.SetDihedralDeg(mol.GetConformer(1), 0, 1, 2, 3, 65.0)
+    ens = Ensemble.from_mol(mol)
+    path = tmp_path / "results.sqlite"
+    first = interconversion(ens, 0, 1, method="model", store=str(path))
+    with ResultStore(path) as store:
+        assert len(store) >= 3
+    monkeypatch.setattr(confpop.torsion_scan, "_walk", _fail)
+    monkeypatch.setattr(confpop.torsion_scan, "_start_unit", _fail)
+    again = interconversion(ens, 0, 1, method="model", store=str(path))
+    assert first.single_torsion and np.isfinite(first.barrier_forward)
+    assert again.barrier_forward == first.barrier_forward
