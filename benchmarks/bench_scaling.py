@@ -1,6 +1,6 @@
 """Scaling of the conformer search: workers, the library's own overhead, batches of molecules.
 
-Run: OMP_NUM_THREADS=1 /work/venv/bin/python benchmarks/bench_scaling.py [--parts abc]
+Run: OMP_NUM_THREADS=1 python benchmarks/bench_scaling.py [--parts abc]
      [--method gfn2] [--quick]
 
 (a) Speed-up from 1 to 2 workers on the GFN2-xTB search of one invented flexible molecule

@@ -1,6 +1,6 @@
 """Cost of the result store and of the local process pool, beside one GFN2 single point.
 
-Run: OMP_NUM_THREADS=1 /work/venv/bin/python benchmarks/bench_store.py [--records N]
+Run: OMP_NUM_THREADS=1 python benchmarks/bench_store.py [--records N]
 
 Prints
 - store overhead per record (put + get of a typical result: a 50-atom positions array and a

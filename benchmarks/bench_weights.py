@@ -6,7 +6,7 @@ and for a straightforward per-temperature Python loop measured in the same run.
 
 Targets: >= 1e8 weights/s; peak memory <= 3x the output array.
 
-Run:  OMP_NUM_THREADS=1 /work/venv/bin/python benchmarks/bench_weights.py [--repeats N]
+Run:  OMP_NUM_THREADS=1 python benchmarks/bench_weights.py [--repeats N]
 """
 
 from __future__ import annotations

@@ -21,26 +21,23 @@ try:
 except PackageNotFoundError:  # running from a source tree that was never installed
     __version__ = "0.0.0+unknown"
 
-# public name -> module that defines it (one line each; keep sorted by module)
+# public name -> module that defines it, in the order of the data flow (input -> search ->
+# the ensemble -> thermodynamics -> kinetics and torsions -> observables), then errors
 _PUBLIC: dict[str, str] = {
-    "ConfpopError": "errors",
-    "InputError": "errors",
-    "BackendUnavailable": "errors",
-    "CalculationFailed": "errors",
-    "StoreError": "errors",
-    "OutputError": "errors",
-    "ConfpopWarning": "errors",
-    "StoreWarning": "errors",
-    "convert": "units",
-    "load_molecule": "molecule",
-    "Ensemble": "ensemble",
-    "read_ensemble": "io",
+    # input
+    "load_molecule": "loading",
+    "stereoisomers": "loading",
+    # the search and its settings
     "search": "pipeline",
+    "search_many": "batch",
     "read_batch_input": "batch",
     "BatchResult": "batch",
-    "search_many": "batch",
-    "run_units": "execution",
-    "stereoisomers": "molecule",
+    "SearchSettings": "settings",
+    "ScanSettings": "settings",
+    # the result
+    "Ensemble": "ensemble",
+    "read_ensemble": "io",
+    # thermodynamics
     "boltzmann_weights": "thermo",
     "log_boltzmann_weights": "thermo",
     "ensemble_free_energy": "thermo",
@@ -51,6 +48,11 @@ _PUBLIC: dict[str, str] = {
     "ideal_gas_thermo": "thermo",
     "standard_state_correction": "thermo",
     "ThermoResult": "thermo",
+    "harmonic_analysis": "vibrations",
+    "frequencies": "vibrations",
+    "rotational_constants": "vibrations",
+    "symmetry_number": "vibrations",
+    # kinetics and torsions
     "eyring_rate": "kinetics",
     "half_life": "kinetics",
     "mean_residence_time": "kinetics",
@@ -60,19 +62,10 @@ _PUBLIC: dict[str, str] = {
     "coalescence_barrier": "kinetics",
     "exchange_regime": "kinetics",
     "format_duration": "kinetics",
-    "scan_torsion": "torsion",
-    "rotatable_torsions": "torsion",
-    "TorsionProfile": "torsion",
-    "get_backend": "backends",
-    "register_backend": "backends",
-    "available_backends": "backends",
-    "optimize_positions": "optimize",
-    "optimize_structure": "optimize",
-    "OptimizationResult": "optimize",
-    "harmonic_analysis": "vibrations",
-    "frequencies": "vibrations",
-    "rotational_constants": "vibrations",
-    "symmetry_number": "vibrations",
+    "scan_torsion": "torsion_scan",
+    "rotatable_torsions": "rotatable",
+    "TorsionProfile": "torsion_profile",
+    # NMR observables
     "KarplusParameters": "nmr",
     "GeneralizedKarplus": "nmr",
     "proton_groups": "nmr",
@@ -85,6 +78,31 @@ _PUBLIC: dict[str, str] = {
     "average_dipole": "nmr",
     "fit_populations": "nmr",
     "PopulationFit": "nmr",
+    # units, errors and cautions
+    "convert": "units",
+    "ConfpopError": "errors",
+    "InputError": "errors",
+    "BackendUnavailable": "errors",
+    "CalculationFailed": "errors",
+    "StoreError": "errors",
+    "OutputError": "errors",
+    "ConfpopWarning": "errors",
+    "StoreWarning": "errors",
+    "StereoWarning": "errors",
+    "ScanWarning": "errors",
+    "FrequencyWarning": "errors",
+}
+
+# machinery: importable from confpop as before, but not part of ``from confpop import *``
+# (engines, the optimizer, the execution layer and the store have their own modules)
+_MACHINERY: dict[str, str] = {
+    "get_backend": "backends",
+    "register_backend": "backends",
+    "available_backends": "backends",
+    "optimize_positions": "optimize",
+    "optimize_structure": "optimize",
+    "OptimizationResult": "optimize",
+    "run_units": "execution",
     "ResultStore": "store",
 }
 
@@ -92,7 +110,7 @@ __all__ = sorted(_PUBLIC) + ["__version__"]
 
 
 def __getattr__(name: str):
-    module = _PUBLIC.get(name)
+    module = _PUBLIC.get(name) or _MACHINERY.get(name)
     if module is None:
         raise AttributeError(f"module 'confpop' has no attribute {name!r}")
     value = getattr(importlib.import_module(f".{module}", __name__), name)
@@ -101,4 +119,4 @@ def __getattr__(name: str):
 
 
 def __dir__():
-    return sorted(set(globals()) | set(_PUBLIC))
+    return sorted(set(globals()) | set(_PUBLIC) | set(_MACHINERY))

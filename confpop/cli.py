@@ -22,6 +22,7 @@ import warnings as _warnings
 
 from . import __version__
 from .errors import CalculationFailed, ConfpopError, InputError
+from .settings import SEARCH_DEFAULTS as _SEARCH_DEFAULTS
 
 __all__ = ["main"]
 
@@ -36,12 +37,12 @@ class _Parser(argparse.ArgumentParser):
         raise InputError(message)
 
 
-# the search's sampling defaults (kept equal to confpop.pipeline's by a test; not imported
-# here so that parsing the command line does not load RDKit)
-_MAX_ROUNDS = 20
-_TARGET_COMPLETENESS = 0.85
-_MIN_POPULATION = 1e-4
-_SCREEN_MARGIN = 3.0
+# the search's defaults, from confpop.settings (standard library only, so parsing the
+# command line does not load RDKit)
+_MAX_ROUNDS = _SEARCH_DEFAULTS.max_rounds
+_TARGET_COMPLETENESS = _SEARCH_DEFAULTS.target_completeness
+_MIN_POPULATION = _SEARCH_DEFAULTS.min_population
+_SCREEN_MARGIN = _SEARCH_DEFAULTS.screen_margin
 
 
 class _Once(argparse.Action):
@@ -549,9 +550,10 @@ def _ensemble_work(args, temps, progress, folder) -> int:
         if args.free_energy:
             ens = ens.add_free_energies(method=ens.level, temperatures=temps,
                                         low_mode=args.low_mode, workers=args.workers,
-                                        progress=progress)
+                                        progress=progress, store=args.store)
         if args.rescore:
-            ens = ens.rescore(args.rescore, workers=args.workers, progress=progress, rank=False)
+            ens = ens.rescore(args.rescore, workers=args.workers, progress=progress, rank=False,
+                              store=args.store)
         results.append(ens)
     settings = _ensemble_settings(args)
     payloads = [ensemble_json(e, temps, input_text=args.input, settings=settings) for e in results]
@@ -1181,6 +1183,8 @@ def _add_scan(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--workers", type=int, default=None,
                         help="processes for the two walks of a relaxed scan (default 2 when two "
                              "cores are free to use, else 1)")
+    parser.add_argument("--store", default=None, metavar="FILE",
+                        help="SQLite result store: reuse finished walks, resume an interrupted scan")
     parser.add_argument("--plot", default=None, metavar="FILE.png",
                         help="draw the profile (minima, maxima, barriers) to this file")
     parser.add_argument("--out", default=None, metavar="DIR",
@@ -1281,7 +1285,8 @@ def _scan_work(args, temps, unit, workers, folder) -> int:
             profile = scan_torsion(mol, atoms, method=args.method, solvent=args.solvent,
                                    step=args.step, relaxed=not args.rigid,
                                    convergence=args.convergence, executor=executor, unit=unit,
-                                   charge=args.charge, multiplicity=args.multiplicity)
+                                   charge=args.charge, multiplicity=args.multiplicity,
+                                   store=args.store)
         except InputError as exc:
             raise InputError(one_based_labels(str(exc))) from None
     finally:
@@ -1484,8 +1489,10 @@ def _install_signal_handlers() -> dict:
 
 def _show_warning(message, category, filename, lineno, file=None, line=None):
     """Our cautions as one line each; other libraries' warnings as usual."""
-    from .errors import ConfpopWarning
+    from .errors import ConfpopWarning, LoggedWarning
 
+    if issubclass(category, LoggedWarning):
+        return  # also logged: the log line is the one the user sees
     if issubclass(category, ConfpopWarning):
         print(f"{_PROG}: warning: {' '.join(str(message).split())}", file=sys.stderr)
     else:

@@ -8,7 +8,6 @@ when shown.
 from __future__ import annotations
 
 import copy
-import time
 from typing import Iterable, Sequence
 
 import numpy as np
@@ -17,16 +16,12 @@ from rdkit import Chem
 
 from . import thermo
 from .errors import InputError
+from .records import step_record, temperature_key  # noqa: F401 (defined there, kept here)
 from .units import convert, normalize_unit
 
 __all__ = ["Ensemble"]
 
 _STATUS_OK = "ok"
-
-
-def temperature_key(temperature: float) -> str:
-    """The suffix of per-temperature columns, e.g. ``gcorr_298.15``."""
-    return f"{float(temperature):.2f}"
 
 
 class Ensemble:
@@ -418,7 +413,3 @@ def thermo_rt(temperature: float, unit: str = "kcal/mol") -> float:
     return gas_constant(unit) * float(temperature)
 
 
-def step_record(name: str, *, started: float, n_in: int, n_out: int, **settings) -> dict:
-    """A provenance entry: what ran, with which settings, counts in and out, wall time (s)."""
-    return {"step": name, "n_in": int(n_in), "n_out": int(n_out),
-            "seconds": round(time.perf_counter() - started, 3), **settings}

@@ -46,7 +46,7 @@ import numpy as np
 import pandas as pd
 from rdkit import Chem
 
-from .errors import InputError
+from .errors import FrequencyWarning, InputError, caution
 from .thermo import check_temperatures
 from .units import convert
 
@@ -157,15 +157,31 @@ def single_point_unit(task: dict) -> dict:
 
 
 # ---------------------------------------------------------------------------------- helpers
-def _run(function, tasks, executor, workers, progress, description):
-    from .execution import run_units
-    return run_units(function, tasks, executor=executor, workers=workers, progress=progress,
-                     description=description)
+def _run(function, tasks, executor, workers, progress, description, *, store=None, kind=None,
+         unit_settings=()):
+    """Run the per-conformer units; with a store, each under its :func:`confpop.jobs.job_key`."""
+    from .jobs import job_key, run_jobs
+
+    keys = None
+    if store is not None:
+        keys = []
+        for task in tasks:
+            mol = Chem.Mol(task["mol"])
+            backend = dict(task["settings"])
+            charge, multiplicity = backend.pop("charge", None), backend.pop("multiplicity", None)
+            solvent = backend.pop("solvent", None)
+            settings = {"backend": backend, **{k: task[k] for k in unit_settings}}
+            keys.append(job_key([a.GetAtomicNum() for a in mol.GetAtoms()],
+                                mol.GetConformer().GetPositions(), charge=charge,
+                                multiplicity=multiplicity, method=task["method"], solvent=solvent,
+                                settings=settings, kind=kind))
+    return run_jobs(function, tasks, keys=keys, store=store, executor=executor, workers=workers,
+                    progress=progress, description=description)
 
 
 def _rebuild(ens, mol, table, step, level=None):
-    from .ensemble import Ensemble
-    return Ensemble(mol, table, level=level or ens.level, charge=ens.charge,
+    # the ensemble's own class (no import of confpop.ensemble, which forwards to this module)
+    return type(ens)(mol, table, level=level or ens.level, charge=ens.charge,
                     multiplicity=ens.multiplicity, solvent=ens.solvent,
                     provenance=list(ens.provenance) + [step], name=ens.name)
 
@@ -188,7 +204,8 @@ def add_free_energies(ens, method: str = "gfn2", temperatures=(298.15,), low_mod
                       cutoff: float = 100.0, solvent: str | None = None,
                       imaginary_threshold: float = -50.0, displace_imaginary: bool = False,
                       executor=None, *, workers: int | None = None, step: float = 0.005,
-                      standard_state: str | None = None, progress: bool = False, **backend_options):
+                      standard_state: str | None = None, progress: bool = False, store=None,
+                      **backend_options):
     """Per-conformer G(T) = E + G_corr(T) from numerical harmonic frequencies (RRHO).
 
     Parameters
@@ -224,6 +241,9 @@ def add_free_energies(ens, method: str = "gfn2", temperatures=(298.15,), low_mod
     standard_state : {"1 bar", "1 M"}, optional
         Default "1 M" with a solvent, "1 bar" in the gas phase.
     progress : bool
+    store : str, os.PathLike or confpop.store.ResultStore, optional
+        Result store: Hessians already in it are reused, each new one is written as soon as
+        it is done (an interrupted run resumes where it stopped).
     **backend_options
         Passed to the backend.
 
@@ -251,7 +271,7 @@ def add_free_energies(ens, method: str = "gfn2", temperatures=(298.15,), low_mod
     >>> int(out.column("symmetry_number")[0]), int(out.column("imaginary_modes")[0])
     (2, 0)
     """
-    from .ensemble import step_record, temperature_key
+    from .records import step_record, temperature_key
 
     started = time.perf_counter()
     temps = check_temperatures(temperatures)
@@ -279,7 +299,10 @@ def add_free_energies(ens, method: str = "gfn2", temperatures=(298.15,), low_mod
               "imaginary_threshold": float(imaginary_threshold),
               "displace_imaginary": bool(displace_imaginary), "standard_state": standard_state,
               "step": float(step)} for cid in ids]
-    outcomes = _run(free_energy_unit, tasks, executor, workers, progress, "free energies")
+    outcomes = _run(free_energy_unit, tasks, executor, workers, progress, "free energies",
+                    store=store, kind="free-energy",
+                    unit_settings=("temperatures", "low_mode", "cutoff", "imaginary_threshold",
+                                   "displace_imaginary", "standard_state", "step"))
 
     table = ens.raw_table
     keys = [temperature_key(t) for t in temps]
@@ -312,12 +335,12 @@ def add_free_energies(ens, method: str = "gfn2", temperatures=(298.15,), low_mod
             if method.lower() == ens.level.lower() and level_col in table.columns:
                 table.loc[cid, level_col] = v["new_energy"]
             else:
-                log.warning("conformer %d was re-optimized at %s; its %s energy is from the old "
-                            "geometry", cid, method, ens.level)
+                caution(log, FrequencyWarning, "conformer %d was re-optimized at %s; its %s "
+                        "energy is from the old geometry", cid, method, ens.level)
     n_flagged = int((table["imaginary_modes"].fillna(0) > 0).sum())
     if n_flagged:
-        log.warning("%d conformer(s) have imaginary modes below %.0f cm-1 (column "
-                    "imaginary_modes)", n_flagged, imaginary_threshold)
+        caution(log, FrequencyWarning, "%d conformer(s) have imaginary modes below %.0f cm-1 "
+                "(column imaginary_modes)", n_flagged, imaginary_threshold)
     step_info = step_record("free energies", started=started, n_in=len(ids),
                             n_out=int(sum(o.ok for o in outcomes)), method=method,
                             solvent=solvent, temperatures=temps, low_mode=low_mode,
@@ -332,7 +355,7 @@ def add_free_energies(ens, method: str = "gfn2", temperatures=(298.15,), low_mod
 def rescore(ens, method: str = "dft", functional: str | None = None, basis: str | None = None,
             dispersion: str | None = "d3bj", solvent: str | None = None, executor=None,
             progress: bool = False, *, workers: int | None = None, rank: bool = True,
-            **backend_options):
+            store=None, **backend_options):
     """Single-point energies of every active conformer at another level of theory.
 
     Parameters
@@ -351,6 +374,8 @@ def rescore(ens, method: str = "dft", functional: str | None = None, basis: str 
     progress : bool
     rank : bool
         Make the new level the one that ranks the conformers (default True).
+    store : str, os.PathLike or confpop.store.ResultStore, optional
+        Result store: energies already in it are reused, new ones written as they come.
     **backend_options
         Other backend options (``grid_level``, ``threads``, ...).
 
@@ -372,7 +397,7 @@ def rescore(ens, method: str = "dft", functional: str | None = None, basis: str 
     ('mmff94', True)
     """
     from .backends import backend_class
-    from .ensemble import step_record
+    from .records import step_record
 
     started = time.perf_counter()
     if not isinstance(method, str):
@@ -392,7 +417,8 @@ def rescore(ens, method: str = "dft", functional: str | None = None, basis: str 
     ids = _active_ids(ens)
     tasks = [{"mol": _conformer_binary(mol, cid), "method": method, "settings": settings}
              for cid in ids]
-    outcomes = _run(single_point_unit, tasks, executor, workers, progress, f"{method} single points")
+    outcomes = _run(single_point_unit, tasks, executor, workers, progress,
+                    f"{method} single points", store=store, kind="rescore-singlepoint")
     level = method.lower()
     column = f"energy_{level}"
     table = ens.raw_table

@@ -16,12 +16,14 @@ no defined value (p1 and p2 on top of each other, or p0 or p3 on the p1-p2 line 
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
 from .errors import InputError
 
-__all__ = ["DEGENERATE_LENGTH", "dihedral", "dihedral_at", "wrap_degrees", "centered",
-           "kabsch_rmsd"]
+__all__ = ["DEGENERATE_LENGTH", "dihedral", "dihedral_at", "dihedral_angle", "set_dihedral",
+           "wrap_degrees", "centered", "kabsch_rmsd"]
 
 #: Angstrom. Below this distance of p0 (or p3) from the p1-p2 line, or between p1 and p2,
 #: a dihedral is undefined. Coordinates carry about 1e-15 relative rounding, so 1e-8 A is
@@ -184,3 +186,80 @@ def kabsch_rmsd(ref, probes, *, allow_reflection: bool = False):
     msd = (np.sum(r * r) + np.einsum("pni,pni->p", p, p) - 2.0 * trace) / r.shape[0]
     rmsd = np.sqrt(np.clip(msd, 0.0, None))
     return float(rmsd[0]) if single else rmsd
+
+
+# moved here from torsion.py: the checked dihedral of one structure and the rotation
+# that sets it
+def dihedral_angle(positions, atoms) -> float:
+    """The dihedral angle i-j-k-l in degrees, in (−180, 180] (:func:`confpop.geometry.dihedral`).
+
+    Parameters
+    ----------
+    positions : (n_atoms, 3) array, angstrom
+    atoms : (i, j, k, l) ints, 0-based
+
+    Raises
+    ------
+    InputError
+        If j and k coincide or a bond angle at j or k is linear (no dihedral is defined).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> p = np.array([[1.0, 0, 0], [0, 0, 0], [0, 0, 1.5], [0, 1.0, 1.5]])
+    >>> round(dihedral_angle(p, (0, 1, 2, 3)), 6)
+    90.0
+    """
+    p = np.asarray(positions, dtype=float)
+    angle = float(dihedral_at(p, atoms))
+    if math.isnan(angle):
+        _, j, k, _ = atoms
+        if np.linalg.norm(p[k] - p[j]) < DEGENERATE_LENGTH:
+            raise InputError(f"atoms {j} and {k} sit on top of each other; no dihedral is defined")
+        raise InputError(f"dihedral {tuple(atoms)} is undefined: a bond angle at atom {j} or "
+                         f"{k} is linear")
+    return angle
+
+
+def _circular_difference(a, b):
+    """|a − b| on the circle, degrees in [0, 180]."""
+    return np.abs(wrap_degrees(np.asarray(a, dtype=float) - np.asarray(b, dtype=float)))
+
+
+def _rotation_matrix(axis, angle_deg):
+    axis = np.asarray(axis, dtype=float)
+    axis = axis / np.linalg.norm(axis)
+    t = math.radians(angle_deg)
+    x, y, z = axis
+    c, s, C = math.cos(t), math.sin(t), 1.0 - math.cos(t)
+    return np.array([[c + x * x * C, x * y * C - z * s, x * z * C + y * s],
+                     [y * x * C + z * s, c + y * y * C, y * z * C - x * s],
+                     [z * x * C - y * s, z * y * C + x * s, c + z * z * C]])
+
+
+def set_dihedral(positions, atoms, target, moving) -> np.ndarray:
+    """Rotate the atoms ``moving`` about the j-k axis so that dihedral i-j-k-l equals ``target``.
+
+    Parameters
+    ----------
+    positions : (n_atoms, 3) array, angstrom
+    atoms : (i, j, k, l)
+    target : float, degrees
+    moving : collection of int
+        The fragment on the k side (containing l) or on the j side (containing i) of the bond.
+
+    Returns
+    -------
+    (n_atoms, 3) array, angstrom
+        A new array; bond lengths and angles are unchanged.
+    """
+    p = np.array(positions, dtype=float)
+    i, j, k, l = atoms
+    moving = np.array(sorted(moving), dtype=int)
+    delta = wrap_degrees(target - dihedral_angle(p, atoms))
+    # rotating the k-side by +delta about j->k raises the dihedral by delta; the j side by -delta
+    sign = 1.0 if l in moving else -1.0
+    rot = _rotation_matrix(p[k] - p[j], sign * delta)
+    origin = p[j]
+    p[moving] = (p[moving] - origin) @ rot.T + origin
+    return p

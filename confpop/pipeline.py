@@ -75,6 +75,7 @@ from .ensemble import Ensemble, step_record
 from .errors import InputError
 from .prune import PruneSettings, find_duplicates, integrity_problems, is_achiral
 from .sampling import sample_conformers
+from .settings import SEARCH_DEFAULTS
 from .units import EBOHR_DEBYE, convert
 
 __all__ = ["search", "FORCE_FIELDS"]
@@ -82,14 +83,15 @@ __all__ = ["search", "FORCE_FIELDS"]
 log = logging.getLogger(__name__)
 
 FORCE_FIELDS = ("mmff94", "mmff94s", "uff")
-MAX_ROUNDS = 20
-TARGET_COMPLETENESS = 0.85
+# the defaults are declared once, in confpop.settings (tests/test_settings.py checks search's)
+MAX_ROUNDS = SEARCH_DEFAULTS.max_rounds
+TARGET_COMPLETENESS = SEARCH_DEFAULTS.target_completeness
 #: Final cut: a conformer is dropped when its population at the highest temperature asked
 #: for is below this share (see the module notes for the measurement behind it).
-MIN_POPULATION = 1e-4
+MIN_POPULATION = SEARCH_DEFAULTS.min_population
 #: Screening margin, kcal/mol, added to the population cut's energy (module notes).
-SCREEN_MARGIN = 3.0
-DEFAULT_TEMPERATURES = (298.15,)
+SCREEN_MARGIN = SEARCH_DEFAULTS.screen_margin
+DEFAULT_TEMPERATURES = SEARCH_DEFAULTS.temperatures
 
 
 def population_energy_cut(temperature: float, share: float, degeneracy: int = 2) -> float:

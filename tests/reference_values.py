@@ -17,6 +17,11 @@ Each entry has a value (a number, a tuple of numbers, or a ``(low, high)`` range
   constants; the number is exact to the digits given, the formula carries the citation.
 
 Tolerances stay in the tests, next to the method error they allow for.
+
+``note`` records the checks made against other sources. A search of public pages and code
+(2026-12-02, Karplus sets first) found no primary source for any "secondary" or "from
+memory" entry; where it found independent quotes, they are named in the note and agree with
+the value (so those tags stay as they are, with a note of the agreement).
 """
 
 from dataclasses import dataclass
@@ -142,7 +147,11 @@ REFERENCE_VALUES = {
     "methane_rotational_constant": _r(5.241, "cm-1", "experimental B of CH4 (as in the NIST "
                                       "CCCBDB)", "from memory"),
     "methane_standard_entropy": _r(186.251, "J/(mol K)", JANAF + " (CH4, gas, 298.15 K, 1 bar)",
-                                   "from memory"),
+                                   "from memory",
+                                   "checked 2026-12-02: only rounded secondary values found (186.16 "
+                                   "at 1 atm in an engineering textbook table, 186.26 quoted as "
+                                   "NIST on a calculator page), consistent to 0.1 J/(mol K); the "
+                                   "JANAF table itself was not found"),
     "methane_rrho_entropy": _r(186.31, "J/(mol K)", RRHO + "; from the CH4 constants above",
                                "computed"),
     # single-mode vibrational entropy at 298.15 K: (S_HO, S_free-rotor, S_qRRHO)
@@ -165,10 +174,14 @@ REFERENCE_VALUES = {
     "symmetry_number_ethanol": _r(1, "1", SYMMETRY + " (C1 / Cs)", "from memory"),
     # --------------------------------------------------------------- vicinal couplings
     "haasnoot_a": _r((13.86, -0.81, 0.0, 0.56, -2.32, 17.9, 0.0), "(Hz x5, deg, 1)",
-                     HLA + ", set A (no beta correction)" + HLA_SEEN, "secondary"),
+                     HLA + ", set A (no beta correction)" + HLA_SEEN, "secondary",
+                     "checked 2026-12-02: a second, independent public NMR coupling script lists "
+                     "the same six coefficients (13.86, -0.81, 0, 0.56, -2.32, 17.9) for the "
+                     "equation of Haasnoot, de Leeuw and Altona; the paper was not found"),
     "haasnoot_general": _r((13.70, -0.73, 0.0, 0.56, -2.47, 16.9, 0.14), "(Hz x5, deg, 1)",
                            HLA + ", set B (general, with the beta correction)" + HLA_SEEN
-                           + " and on a university NMR course page", "secondary"),
+                           + " and on a university NMR course page", "secondary",
+                           "checked 2026-12-02: no further quote found; the paper was not found"),
     "haasnoot_2": _r((13.89, -0.98, 0.0, 1.02, -3.40, 14.9, 0.24), "(Hz x5, deg, 1)",
                      HLA + ", set C (two non-H substituents)" + HLA_SEEN, "secondary"),
     "haasnoot_3": _r((13.22, -0.99, 0.0, 0.87, -2.46, 19.9, 0.0), "(Hz x5, deg, 1)",
@@ -178,10 +191,16 @@ REFERENCE_VALUES = {
     "vuister_bax_1993": _r((6.51, -1.76, 1.60), "Hz",
                            "Vuister & Bax, J. Am. Chem. Soc. 1993, 115, 7772: "
                            "3J(HN,HA) = A cos^2 theta + B cos theta + C, theta = phi - 60 deg; "
-                           "seen in coefficient tables of public NMR analysis code", "secondary"),
+                           "seen in coefficient tables of public NMR analysis code", "secondary",
+                           "checked 2026-12-02: the same (6.51, -1.76, 1.60) with theta = phi - 60 deg "
+                           "in at least five independent public codes (among them the "
+                           "dihedral-analysis tool of a widely used MD package); the paper was "
+                           "not found"),
     "hu_bax_1997": _r((7.09, -1.42, 1.55), "Hz",
                       "Hu & Bax, J. Am. Chem. Soc. 1997, 119, 6360 (Table 2); seen in "
-                      "coefficient tables of public NMR analysis code", "secondary"),
+                      "coefficient tables of public NMR analysis code", "secondary",
+                      "checked 2026-12-02: two independent public analysis scripts give the same "
+                      "(7.09, -1.42, 1.55) with this citation; the paper was not found"),
     "vuister_bax_j_at_phi_minus_120": _r(9.87, "Hz", "Vuister & Bax 1993 set at phi = -120 deg",
                                          "computed"),
     "vuister_bax_j_at_phi_minus_60": _r(4.11, "Hz", "Vuister & Bax 1993 set at phi = -60 deg",
@@ -190,7 +209,11 @@ REFERENCE_VALUES = {
                                    "Wasylishen & Schaefer, Can. J. Chem. 1973, 51, 961: "
                                    "3J(C,H) = 4.26 - 1.00 cos phi + 3.56 cos 2 phi; seen quoted "
                                    "with its citation in public molecular-viewer source code",
-                                   "secondary"),
+                                   "secondary",
+                                   "checked 2026-12-02: the manual of a public NMR coupling program "
+                                   "gives J = 3.56 cos 2theta - cos theta + 4.26 with the same "
+                                   "citation (Can. J. Chem. 1973, 51, 961); the paper was not "
+                                   "found"),
     "cyclohexane_j_ax_ax": _r(13.1, "Hz", "cyclohexane chair 3J(Hax,Hax), NMR handbook tables",
                               "from memory"),
     "cyclohexane_j_ax_ax_range": _r((10.0, 13.5), "Hz", "3J(Hax,Hax) in six-membered rings, NMR "

@@ -8,8 +8,6 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from rdkit import Chem
-from rdkit.Chem import AllChem
-from rdkit.Chem import rdMolTransforms
 
 pytest.importorskip("pyscf")
 pytest.importorskip("dftd3")
@@ -19,20 +17,10 @@ from confpop.backends.dft import DIELECTRIC_CONSTANTS, dielectric_constant  # no
 from confpop.ensemble import Ensemble  # noqa: E402
 from confpop.errors import InputError  # noqa: E402
 from confpop.freeenergy import rescore  # noqa: E402
-from confpop.optimize import optimize_structure  # noqa: E402
 from confpop.units import EBOHR_DEBYE, convert  # noqa: E402
 from reference_values import value as refval  # noqa: E402
 
 pytestmark = pytest.mark.slow
-
-def _gfn2_minimum(smiles, atoms=None, dihedral=None, constrain=False, seed=3):
-    mol = Chem.AddHs(Chem.MolFromSmiles(smiles))
-    AllChem.EmbedMolecule(mol, randomSeed=seed)
-    if atoms is not None:
-        rdMolTransforms.SetDihedralDeg(mol.GetConformer(), *atoms, dihedral)
-    cons = [(atoms, dihedral)] if constrain else None
-    return optimize_structure(mol, "gfn2", convergence="tight", dihedral_constraints=cons)
-
 
 def _two_conformers(a, b, degeneracy):
     mol = Chem.Mol(a)
@@ -44,8 +32,8 @@ def _two_conformers(a, b, degeneracy):
 
 
 @pytest.fixture(scope="module")
-def water():
-    return _gfn2_minimum("O", seed=1)
+def water(gfn2_minimum):
+    return gfn2_minimum("O", seed=1)
 
 
 # ---------------------------------------------------------------------------------- backend
@@ -146,12 +134,12 @@ def test_errors(water):
 
 
 # ---------------------------------------------------------------------------------- physics
-def test_ethane_barrier():
+def test_ethane_barrier(gfn2_minimum):
     # ethane rotational barrier 2.9 kcal/mol (Weiss & Leroi, J. Chem. Phys. 1968, 48, 962,
     # primary); B3LYP-D3(BJ)/def2-SVP single points at GFN2 geometries give 2.93,
     # GFN2 itself 2.59 [measured here]
-    staggered = _gfn2_minimum("CC", (2, 0, 1, 5), 60.0)
-    eclipsed = _gfn2_minimum("CC", (2, 0, 1, 5), 0.0, constrain=True)
+    staggered = gfn2_minimum("CC", (2, 0, 1, 5), 60.0)
+    eclipsed = gfn2_minimum("CC", (2, 0, 1, 5), 0.0, constrain=True)
     ens = rescore(_two_conformers(staggered, eclipsed, [1, 1]), "dft", basis="def2-svp",
                   grid_level=1, workers=1)
     assert ens.level == "dft"
@@ -159,15 +147,15 @@ def test_ethane_barrier():
 
 
 @pytest.mark.slow
-def test_difluoroethane_gauche_effect():
+def test_difluoroethane_gauche_effect(gfn2_minimum):
     # 1,2-difluoroethane, gas: gauche lies 0.6-0.8 kcal/mol below anti (experiment, [from
     # memory]). GFN2 gets the gas-phase fluorine gauche effect wrong (a known weakness of the
     # method [from memory]): measured here +0.94 kcal/mol (anti lower), gauche minimum at 86° instead of
     # ~70°. B3LYP-D3(BJ)/def2-SVPD (the default level) single points at the GFN2 geometries
     # put gauche lower by 0.36 (def2-SVP, without diffuse functions, would not: +0.29)
     # [measured here]; the tolerance allows the GFN2 geometries and the functional.
-    anti = _gfn2_minimum("FCCF", (0, 1, 2, 3), 180.0)
-    gauche = _gfn2_minimum("FCCF", (0, 1, 2, 3), 65.0)
+    anti = gfn2_minimum("FCCF", (0, 1, 2, 3), 180.0)
+    gauche = gfn2_minimum("FCCF", (0, 1, 2, 3), 65.0)
     ens = _two_conformers(anti, gauche, [1, 2])  # gauche+ and gauche- are one row, g = 2
     gfn2_e = ens.energies()
     gfn2_gap = gfn2_e[1] - gfn2_e[0]

@@ -11,20 +11,11 @@ from rdkit.Chem import rdMolTransforms
 from confpop.ensemble import Ensemble
 from confpop.errors import InputError
 from confpop.freeenergy import add_free_energies, rescore
-from confpop.optimize import optimize_structure
 from confpop.thermo import boltzmann_weights, standard_state_correction
 from confpop.units import convert
 from reference_values import value as refval
 
 TEMPS = [200.0, 298.15, 400.0]
-
-
-def _conformer(smiles, atoms, dihedral, *, constrain=False, seed=3):
-    mol = Chem.AddHs(Chem.MolFromSmiles(smiles))
-    AllChem.EmbedMolecule(mol, randomSeed=seed)
-    rdMolTransforms.SetDihedralDeg(mol.GetConformer(), *atoms, dihedral)
-    cons = [(atoms, dihedral)] if constrain else None
-    return optimize_structure(mol, "gfn2", convergence="tight", dihedral_constraints=cons)
 
 
 def _ensemble(structures, degeneracy=None, level="gfn2"):
@@ -39,19 +30,16 @@ def _ensemble(structures, degeneracy=None, level="gfn2"):
 
 
 @pytest.fixture(scope="module")
-def butane():
-    """n-Butane anti and gauche GFN2 minima; gauche counts twice (its mirror image)."""
-    anti = _conformer("CCCC", (0, 1, 2, 3), 180.0)
-    gauche = _conformer("CCCC", (0, 1, 2, 3), 65.0)
-    ens = _ensemble([anti, gauche], degeneracy=[1, 2])
+def butane(gfn2_butane):
+    """n-Butane anti and gauche GFN2 minima (tests/conftest.py); gauche counts twice (its
+    mirror image)."""
+    ens = _ensemble([gfn2_butane["anti"], gfn2_butane["gauche"]], degeneracy=[1, 2])
     return add_free_energies(ens, "gfn2", temperatures=TEMPS, workers=1)
 
 
 @pytest.fixture(scope="module")
-def water():
-    mol = Chem.AddHs(Chem.MolFromSmiles("O"))
-    AllChem.EmbedMolecule(mol, randomSeed=1)
-    return _ensemble([optimize_structure(mol, "gfn2", convergence="verytight")])
+def water(gfn2_water):
+    return _ensemble([gfn2_water])
 
 
 # ---------------------------------------------------------------------------------- columns
@@ -132,12 +120,12 @@ def test_standard_state_shift(water):
 
 
 # ---------------------------------------------------------------------------------- imaginary
-def test_saddle_point_flagged_and_displaced():
+def test_saddle_point_flagged_and_displaced(gfn2_minimum):
     # eclipsed ethane (torsion held at 0°) is the top of the rotational barrier: one imaginary
     # mode. Displacing along it and re-optimizing reaches staggered ethane, lower by the
     # barrier: 2.9 kcal/mol experimentally (Weiss & Leroi, J. Chem. Phys. 1968, 48, 962,
     # primary); tolerance for the GFN2 method error.
-    eclipsed = _conformer("CC", (2, 0, 1, 5), 0.0, constrain=True)
+    eclipsed = gfn2_minimum("CC", (2, 0, 1, 5), 0.0, constrain=True)
     ens = _ensemble([eclipsed])
     flagged = add_free_energies(ens, "gfn2", workers=1)
     assert int(flagged.column("imaginary_modes")[0]) == 1

@@ -40,14 +40,10 @@ def _mmff(smiles: str, seed: int = 1) -> Chem.Mol:
 
 
 @pytest.fixture(scope="module")
-def gfn2_minima():
-    """GFN2 minima of water, formaldehyde and CO2 (verytight), made once."""
-    out = {}
-    for smi in ("O", "C=O", "O=C=O"):
-        mol = Chem.AddHs(Chem.MolFromSmiles(smi))
-        AllChem.EmbedMolecule(mol, randomSeed=1)
-        out[smi] = optimize_structure(mol, "gfn2", convergence="verytight")
-    return out
+def gfn2_minima(gfn2_minimum):
+    """GFN2 minima of water, formaldehyde and CO2 (verytight; tests/conftest.py)."""
+    return {smi: gfn2_minimum(smi, seed=1, convergence="verytight")
+            for smi in ("O", "C=O", "O=C=O")}
 
 
 def _ase_frequencies(mol, tmp_path, name):

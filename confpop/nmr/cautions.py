@@ -38,6 +38,8 @@ from dataclasses import dataclass
 
 from rdkit import Chem
 
+from ..errors import ConfpopWarning
+
 __all__ = ["MethodWarning", "MethodCaution", "method_cautions", "warn_cautions",
            "amide_barrier_caution", "TIGHT_BINDING_LEVELS"]
 
@@ -47,7 +49,7 @@ TIGHT_BINDING_LEVELS = ("gfn2", "gfn1", "gfnff", "gfn0", "tblite-gfn2", "tblite-
 _WATER = ("water", "h2o")
 
 
-class MethodWarning(UserWarning):
+class MethodWarning(ConfpopWarning):
     """A known weakness of the energy method applies to this result."""
 
 

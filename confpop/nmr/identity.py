@@ -45,7 +45,7 @@ import numpy as np
 from rdkit import Chem
 from rdkit.Chem import rdCIPLabeler
 
-from ..errors import InputError
+from ..errors import ConfpopWarning, InputError
 from ..geometry import dihedral_at
 
 __all__ = ["ProchiralPair", "ProtonIdentityWarning", "prochiral_pairs",
@@ -56,7 +56,7 @@ __all__ = ["ProchiralPair", "ProtonIdentityWarning", "prochiral_pairs",
 _CACHE_PROP = "_confpop_prochiral_pairs"
 
 
-class ProtonIdentityWarning(UserWarning):
+class ProtonIdentityWarning(ConfpopWarning):
     """Protons of some conformers could not be given the common pro-R/pro-S identity."""
 
 
