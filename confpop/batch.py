@@ -126,7 +126,7 @@ class BatchResult:
         return int(len(self.failures))
 
     def _repr_html_(self) -> str:
-        from .report import batch_html
+        from .views import batch_html
         return batch_html(self)
 
     def __repr__(self) -> str:

@@ -699,7 +699,7 @@ def _add_couplings(parser: argparse.ArgumentParser) -> None:
 
 def _renumber(frame):
     """A copy of a couplings table with atoms numbered from 1 (labels, indices, tuples)."""
-    from .report import one_based_labels
+    from .describe import one_based_labels
 
     if frame is None:
         return None
@@ -829,7 +829,7 @@ def _couplings_work(args, temps, observed, folder) -> int:
         except InputError as exc:  # the library numbers atoms from 0, the command line from 1
             import re
 
-            from .report import one_based_labels
+            from .describe import one_based_labels
             text = re.sub(r"observed coupling (\d+)-(\d+)",
                           lambda m: f"--observed pair {int(m.group(1)) + 1}-{int(m.group(2)) + 1}",
                           one_based_labels(str(exc)))
@@ -1252,7 +1252,7 @@ def _scan_work(args, temps, unit, workers, folder) -> int:
     from .describe import LABEL_CONVENTION, atom_label
     from .execution import local_executor
     from .molecule import load_molecule
-    from .report import one_based_labels
+    from .describe import one_based_labels
     from .schema import solvent_model
     from .torsion import _check_dihedral_atoms, scan_torsion, torsion_for_bond
 

@@ -37,7 +37,7 @@ from rdkit import Chem
 from .errors import InputError
 from .geometry import dihedral_at
 
-__all__ = ["atom_label", "LABEL_CONVENTION", "distinguishing_torsions", "ring_puckers",
+__all__ = ["atom_label", "one_based_labels", "LABEL_CONVENTION", "distinguishing_torsions", "ring_puckers",
            "cremer_pople", "pucker_name", "hydrogen_bonds", "describe_conformers",
            "DISTINGUISHING_DEGREES"]
 
@@ -71,6 +71,22 @@ PLANAR_Q = 0.1
 def atom_label(mol: Chem.Mol, index: int) -> str:
     """Element and 1-based atom number, e.g. ``atom_label(mol, 0) == "C1"``."""
     return f"{mol.GetAtomWithIdx(int(index)).GetSymbol()}{int(index) + 1}"
+
+
+def one_based_labels(text: str) -> str:
+    """Atom labels in a text (``H7``, ``C2``) renumbered from 0-based to 1-based.
+
+    For messages and labels made by the library's 0-based parts (``confpop.torsion``,
+    ``confpop.nmr``) before a user sees them.
+
+    Examples
+    --------
+    >>> one_based_labels("H7(C2)-H9(O3)")
+    'H8(C3)-H10(O4)'
+    """
+    import re
+    return re.sub(r"\b(H|C|N|O|S|P|F|Cl|Br|I|Si|B)(\d+)\b",
+                  lambda m: f"{m.group(1)}{int(m.group(2)) + 1}", str(text))
 
 
 def _labels(mol, atoms) -> str:
@@ -171,7 +187,7 @@ def distinguishing_torsions(mol: Chem.Mol, conf_ids=None, *,
     list of DistinguishingTorsion
         Empty for one conformer or when none differ.
     """
-    from .torsion import rotatable_torsions
+    from .rotatable import rotatable_torsions
 
     if not isinstance(mol, Chem.Mol):
         raise InputError(f"mol must be an RDKit Mol, got {type(mol).__name__}")

@@ -398,7 +398,7 @@ class Ensemble:
         return head + "\n" + self._summary_frame().head(10).to_string(float_format=lambda x: f"{x:.3f}")
 
     def _repr_html_(self) -> str:
-        from .report import ensemble_html  # kcal/mol, populations at 298.15 K, torsions
+        from .views import ensemble_html  # kcal/mol, populations at 298.15 K, torsions
         return ensemble_html(self)
 
 

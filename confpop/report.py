@@ -14,9 +14,11 @@ import io
 import numpy as np
 import pandas as pd
 
+from .describe import one_based_labels
 from .errors import InputError
+from .views import conformer_table
 
-__all__ = ["report_html", "write_report"]
+__all__ = ["report_html", "write_report", "one_based_labels"]
 
 _STYLE = """
 body{font-family:sans-serif;max-width:1100px;margin:2em auto;padding:0 1em;color:#222}
@@ -54,42 +56,6 @@ def _table(frame: pd.DataFrame, text_columns=()) -> str:
             cells.append(f'<td class="{"t" if c in text_columns else ""}">{html.escape(text)}</td>')
         rows.append("<tr>" + "".join(cells) + "</tr>")
     return f"<table><thead><tr>{head}</tr></thead><tbody>{''.join(rows)}</tbody></table>"
-
-
-def _conformer_table(ens, temps, free: bool) -> tuple[pd.DataFrame, list]:
-    from .describe import describe_conformers
-
-    desc = describe_conformers(ens)
-    out = pd.DataFrame(index=pd.Index(ens.ids(), name="conformer"))
-    out["ΔE kcal/mol"] = ens.energies("kcal/mol")
-    if free:
-        for t in temps:
-            if f"gcorr_{t:.2f}" in ens.raw_table.columns:
-                out[f"ΔG({t:g} K) kcal/mol"] = ens.energies("kcal/mol", energy="free", temperature=t)
-    out["degeneracy"] = ens.degeneracy
-    pops = ens.populations(temps)
-    for t in temps:
-        out[f"p({t:g} K)"] = pops[t]
-    if free:
-        try:
-            gp = ens.populations(temps, energy="free")
-            for t in temps:
-                out[f"p_G({t:g} K)"] = gp[t]
-        except InputError:
-            pass
-    text = []
-    for t in desc.torsions:
-        out[t.label + " °"] = pd.Series(t.values).round(0).astype("Int64")
-    for c in desc.table.columns:
-        if c.startswith("ring_"):
-            out["ring " + c[5:]] = desc.table[c]
-            text.append("ring " + c[5:])
-    out["H-bonds"] = desc.table["hydrogen_bonds"].replace("", "-")
-    text.append("H-bonds")
-    shown = ens.table()
-    if "species" in shown.columns and shown["species"].nunique() > 1:
-        out["species"] = shown["species"]
-    return out, text
 
 
 #: population share above which a conformer is in the report's main table (the rest are one
@@ -130,7 +96,7 @@ def report_html(ens, *, temperatures=(298.15,), input_text: str | None = None,
         f"<dt>{html.escape(k)}</dt><dd>{html.escape(str(v))}</dd>" for k, v in job.items()) + "</dl>")
     parts.append("<h2>Cautions</h2>" + "".join(
         f"<p class='caution'>{html.escape(c)}</p>" for c in cautions))
-    table, text_cols = _conformer_table(ens, temps, free_energy)
+    table, text_cols = conformer_table(ens, temps, free_energy)
     p0 = table[f"p({temps[0]:g} K)"]
     major = p0 >= _MAJOR
     parts.append(f"<h2>Which conformers matter</h2><p>{int(major.sum())} of {len(table)} "
@@ -208,13 +174,6 @@ def _rates_section(profile, temps) -> str:
             + _table(frame, ("t½",)))
 
 
-def one_based_labels(text: str) -> str:
-    """Atom labels in a text (``H7``, ``C2``) renumbered from 0-based to 1-based."""
-    import re
-    return re.sub(r"\b(H|C|N|O|S|P|F|Cl|Br|I|Si|B)(\d+)\b",
-                  lambda m: f"{m.group(1)}{int(m.group(2)) + 1}", str(text))
-
-
 def write_report(ens, path, **kwargs) -> None:
     """Write :func:`report_html` to ``path`` (under a temporary name, then renamed)."""
     from .outdir import atomic_write
@@ -225,60 +184,3 @@ def write_report(ens, path, **kwargs) -> None:
         with open(temporary, "w", encoding="utf-8") as fh:
             fh.write(text)
     atomic_write(path, write)
-
-
-# ----------------------------------------------------------------------------- notebook views
-def _frame_html(frame: pd.DataFrame, caption: str, digits: int = 3) -> str:
-    body = frame.to_html(float_format=lambda x: f"{x:.{digits}f}", na_rep="", escape=True)
-    return f"<div><p><b>{html.escape(caption)}</b></p>{body}</div>"
-
-
-def ensemble_html(ens, temperature: float = 298.15, rows: int = 12) -> str:
-    """Jupyter view of an Ensemble: ΔE in kcal/mol, populations at ``temperature`` (K),
-    degeneracy, the distinguishing torsions (degrees, atoms numbered from 1), H-bonds."""
-    from .schema import solvent_model
-
-    first = next((p for p in ens.provenance if p.get("step") == "input"), {})
-    model = solvent_model(first.get("method", ens.level), ens.solvent) or "gas phase"
-    n_fail = len(ens.raw_table) - len(ens)
-    caption = (f"Ensemble {ens.name}: {len(ens)} conformers"
-               + (f" (+{n_fail} failed)" if n_fail else "")
-               + f", level {ens.level}, {model}; populations at {float(temperature):g} K")
-    if not len(ens):
-        return f"<p><b>{html.escape(caption)}</b></p>"
-    table, _ = _conformer_table(ens, [float(temperature)], free=False)
-    more = len(table) - rows
-    out = _frame_html(table.head(rows), caption)
-    if more > 0:
-        out += f"<p>... {more} more conformers (ens.table())</p>"
-    return out
-
-
-def profile_html(profile) -> str:
-    """Jupyter view of a TorsionProfile: minima, maxima and barriers in its unit."""
-    kind = "relaxed" if profile.relaxed else "rigid"
-    caption = (f"Torsion profile {one_based_labels(profile.label) if profile.label else profile.atoms}"
-               f" (atoms numbered from 1; {kind}, {profile.method}); energies in {profile.unit}, "
-               f"angles in degrees")
-    parts = [_frame_html(profile.minima(), caption + " - minima", 2),
-             _frame_html(profile.maxima(), "maxima", 2),
-             _frame_html(profile.barriers(), f"barriers between neighbouring minima, {profile.unit}", 2)]
-    return "".join(parts)
-
-
-def fit_html(fit) -> str:
-    """Jupyter view of a PopulationFit: fitted and Boltzmann populations, chi2."""
-    caption = (f"Population fit at {fit.temperature:g} K to {fit.n_observations} observations: "
-               f"chi2 {fit.chi2:.2f} (Boltzmann {fit.chi2_boltzmann:.2f}); implied ΔG in "
-               f"{fit.unit}")
-    out = _frame_html(fit.to_frame(), caption)
-    if fit.warning:
-        out += f"<p class='caution'>{html.escape(fit.warning)}</p>"
-    return out
-
-
-def batch_html(result) -> str:
-    """Jupyter view of a BatchResult: one row per molecule."""
-    caption = (f"Batch: {result.n_ok} ok, {result.n_failed} failed; temperatures "
-               f"{', '.join(f'{t:g} K' for t in result.temperatures)}")
-    return _frame_html(result.summary, caption)

@@ -533,7 +533,7 @@ class TorsionProfile:
         }
 
     def _repr_html_(self) -> str:
-        from .report import profile_html
+        from .views import profile_html
         return profile_html(self)
 
     def __repr__(self) -> str:

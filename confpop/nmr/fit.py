@@ -268,7 +268,7 @@ class PopulationFit:
     families: pd.DataFrame | None = field(default=None, repr=False)
 
     def _repr_html_(self) -> str:
-        from ..report import fit_html
+        from ..views import fit_html
         return fit_html(self)
 
     def to_frame(self) -> pd.DataFrame:
