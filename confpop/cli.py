@@ -414,8 +414,13 @@ def _ensemble_table_text(ens, temps, views=None, free: bool = False) -> str:
         lines.append(f"no torsion differs by more than {DISTINGUISHING_DEGREES:g}° between "
                      "these conformers")
     lines.extend(desc.ring_summary())
+    first = next(iter(views.values()))[temps[0]]
+    for ring, shares in desc.pucker_shares(first).items():
+        if len(shares) > 1:
+            lines.append(f"ring {ring}, share of the population at {temps[0]:g} K: " + "; ".join(
+                f"{name} {100 * share:.0f} %" for name, share in shares.items())
+                + " (Cremer-Pople)")
     if hbonds is not None:
-        first = next(iter(views.values()))[temps[0]]
         shares = desc.hydrogen_bond_shares(first)
         lines.append(f"hydrogen bonds, share of the population at {temps[0]:g} K: " + "; ".join(
             f"{label} {100 * share:.0f} %" for label, share in shares.items())

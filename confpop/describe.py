@@ -485,6 +485,17 @@ class ConformerDescription:
             shares[label] = float(pops.reindex(sorted(set(sub["conformer"]))).fillna(0.0).sum())
         return dict(sorted(shares.items(), key=lambda kv: -kv[1]))
 
+    def pucker_shares(self, populations) -> dict:
+        """{ring label: {pucker name: share of the population}}, largest share first."""
+        pops = pd.Series(populations, dtype=float)
+        out = {}
+        for ring, sub in self.rings.groupby("ring", sort=False):
+            shares = {}
+            for name, part in sub.groupby("pucker"):
+                shares[name] = float(pops.reindex(part["conformer"]).fillna(0.0).sum())
+            out[ring] = dict(sorted(shares.items(), key=lambda kv: -kv[1]))
+        return out
+
     def ring_summary(self) -> list[str]:
         """Rings whose pucker is the same in every conformer, as 'ring X: chair'."""
         out = []

@@ -103,7 +103,7 @@ def report_html(ens, *, temperatures=(298.15,), input_text: str | None = None,
                  f"conformers have a population of at least {100 * _MAJOR:g} % at "
                  f"{temps[0]:g} K and hold {100 * p0[major].sum():.0f} % of it; the effective "
                  f"number of conformers (Kish) is {payload['effective_conformers'][format(temps[0], 'g')]:.1f}."
-                 "</p>" + _hbond_sentence(ens, p0))
+                 "</p>" + _hbond_sentence(ens, p0) + _pucker_sentence(ens, p0))
     parts.append(_img(plot.ensemble_plot(ens, temps), "populations against temperature and energy ladder"))
     parts.append(_img(plot.draw_conformers(ens, top=top, temperature=temps[0]),
                       "the most populated conformers"))
@@ -135,6 +135,17 @@ def _hbond_sentence(ens, populations) -> str:
     return ("<p>Intramolecular hydrogen bonds, with the share of the population in conformers "
             "that have them: " + html.escape("; ".join(f"{k} {100 * v:.0f} %" for k, v in shares.items()))
             + ".</p>")
+
+
+def _pucker_sentence(ens, populations) -> str:
+    from .describe import describe_conformers
+
+    parts = [f"ring {ring}: " + ", ".join(f"{name} {100 * share:.0f} %" for name, share in shares.items())
+             for ring, shares in describe_conformers(ens).pucker_shares(populations).items()]
+    if not parts:
+        return ""
+    return ("<p>Ring puckers (Cremer-Pople), with their share of the population: "
+            + html.escape("; ".join(parts)) + ".</p>")
 
 
 def _couplings_section(ens, temps) -> str:

@@ -167,3 +167,20 @@ def test_torsions_varying_among_populated_conformers_come_first():
     assert [t.label for t in weighted] == ["C1-C2-C3-C4", "C2-C3-C4-C5"]
     reverse = distinguishing_torsions(mol, weights=[0.5, 0.05, 0.45])
     assert [t.label for t in reverse] == ["C2-C3-C4-C5", "C1-C2-C3-C4"]
+
+
+def test_pucker_shares_add_up_per_ring():
+    mol = Chem.AddHs(Chem.MolFromSmiles("C1CCCCC1"))
+    AllChem.EmbedMolecule(mol, randomSeed=3)
+    AllChem.MMFFOptimizeMolecule(mol)
+    chair = Chem.Conformer(mol.GetConformer())
+    flat = Chem.Conformer(chair)
+    ring = [0, 1, 2, 3, 4, 5]
+    xyz = _ring(6, {2: 0.0}, {2: 0.0}, q_half=0.0)  # a planar hexagon for the ring atoms
+    for a, p in zip(ring, xyz):
+        flat.SetAtomPosition(a, p.tolist())
+    mol.RemoveAllConformers()
+    for conf in (chair, flat):
+        mol.AddConformer(conf, assignId=True)
+    shares = describe_conformers(mol).pucker_shares({0: 0.7, 1: 0.3})  # invented populations
+    assert shares == {"C1-C2-C3-C4-C5-C6": {"chair": pytest.approx(0.7), "planar": pytest.approx(0.3)}}
