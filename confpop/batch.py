@@ -125,6 +125,10 @@ class BatchResult:
         """Number of molecules that failed."""
         return int(len(self.failures))
 
+    def _repr_html_(self) -> str:
+        from .views import batch_html
+        return batch_html(self)
+
     def __repr__(self) -> str:
         return (f"<BatchResult: {len(self.summary)} molecules, {self.n_ok} ok, "
                 f"{self.n_failed} failed>")

@@ -69,6 +69,30 @@ def _finite_float(text: str) -> float:
     return value
 
 
+_CELSIUS = ("c", "degc", "°c", "ºc", "celsius")
+
+
+def _temperature_arg(text: str) -> float:
+    """A --temperature value: kelvin, or °C when written with the unit (25C, 25degC, 25°C);
+    298.15K is accepted too."""
+    import re
+
+    match = re.fullmatch(r"\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*([^\d\s].*)?\s*",
+                         str(text))
+    if not match:
+        raise argparse.ArgumentTypeError(f"expected a temperature such as 298.15 (kelvin) or "
+                                         f"25C (degrees Celsius), got {text!r}")
+    value, unit = float(match.group(1)), (match.group(2) or "").strip().lower()
+    if unit in _CELSIUS:
+        value += 273.15
+    elif unit not in ("", "k"):
+        raise argparse.ArgumentTypeError(f"unknown temperature unit in {text!r}: write kelvin "
+                                         f"(298.15 or 298.15K) or degrees Celsius (25C, 25degC)")
+    if not math.isfinite(value):
+        raise argparse.ArgumentTypeError(f"expected a finite temperature, got {text!r}")
+    return round(value, 6)
+
+
 def _json_number(x: float):
     """JSON has no inf/NaN: write them as null."""
     x = float(x)
@@ -89,8 +113,8 @@ def _add_rates(parser: argparse.ArgumentParser) -> None:
         help="free energy of activation ΔG‡ of one direction (A -> B), in --unit",
     )
     parser.add_argument(
-        "--temperature", "-T", metavar="T", nargs="+", type=_finite_float, default=[298.15], action=_Once,
-        help="temperature(s) in K (default 298.15)",
+        "--temperature", "-T", metavar="T", nargs="+", type=_temperature_arg, default=[298.15], action=_Once,
+        help="temperature(s) in K (default 298.15); °C when written with the unit, e.g. 25C",
     )
     parser.add_argument(
         "--unit", default="kcal/mol",
@@ -198,9 +222,9 @@ def _add_ensemble(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--method", default="gfn2",
                         help="final level: gfn2 (default), gfn1, gfnff, tblite-gfn2, mmff94s, mmff94, uff")
     parser.add_argument("--solvent", default=None,
-                        help="implicit solvent (ALPB) for tight-binding methods, e.g. water, chloroform")
-    parser.add_argument("--temperature", "-T", nargs="+", type=_finite_float, default=[298.15], action=_Once,
-                        metavar="K", help="temperatures in kelvin (default 298.15)")
+                        help="implicit solvent, e.g. water, chloroform: GBSA with gfn2/gfn1/gfnff (xtb-python), ALPB with tblite-gfn2/tblite-gfn1; force fields have none")
+    parser.add_argument("--temperature", "-T", nargs="+", type=_temperature_arg, default=[298.15], action=_Once,
+                        metavar="K", help="temperatures in kelvin (default 298.15); °C when written with the unit, e.g. 25C")
     parser.add_argument("--seed", type=int, default=0, help="sampling seed (default 0)")
     parser.add_argument("--trials", type=int, default=None,
                         help="trial structures per sampling round (default: from flexibility; "
@@ -253,13 +277,23 @@ def _add_ensemble(parser: argparse.ArgumentParser) -> None:
                         help="single points at a higher level (dft: B3LYP-D3(BJ)/def2-SVPD through "
                              "PySCF) and populations from them")
     parser.add_argument("--out", default=None, metavar="DIR",
-                        help="write ensemble.sdf, table.csv and run.json into DIR (checked "
-                             "before any work; files confpop did not write are never replaced)")
+                        help="write ensemble.sdf, table.csv, run.json, populations.png "
+                             "(populations against temperature, energy ladder) and "
+                             "conformers.png (the most populated conformers, distinguishing "
+                             "torsions marked) into DIR (checked before any work; files "
+                             "confpop did not write are never replaced)")
     parser.add_argument("--into-nonempty-folder", action="store_true",
                         help="allow an --out folder holding files confpop did not write (they "
                              "stay; a taken name gets -2)")
+    parser.add_argument("--plot", default=None, metavar="FILE.png",
+                        help="draw populations against temperature and the energy ladder "
+                             "(checked before any work)")
+    parser.add_argument("--report", default=None, metavar="FILE.html",
+                        help="write one self-contained HTML report (job, cautions, table, "
+                             "pictures, free energies; no network needed to open it)")
     parser.add_argument("--json", action="store_true", help="print machine-readable JSON only")
-    parser.add_argument("--quiet", action="store_true", help="no progress bars")
+    parser.add_argument("--quiet", action="store_true",
+                        help="no progress bars (and no per-stage lines when stderr is a log)")
 
 
 def _cap_workers(workers):
@@ -282,11 +316,18 @@ def _temperatures(values) -> list:
     """--temperature values, checked; a value below 150 K gets a note (kelvin, not °C)."""
     from .thermo import check_temperatures
 
-    temps = check_temperatures(values, "--temperature")
+    try:
+        temps = check_temperatures(values, "--temperature")
+    except InputError as exc:  # thermo counts from 0; the command line from 1
+        import re
+        raise InputError(re.sub(r"at position (\d+)",
+                                lambda m: f"(value {int(m.group(1)) + 1} of -T/--temperature)",
+                                str(exc))) from None
     low = [t for t in temps if t < 150.0]
     if low:
         print(f"{_PROG}: note: --temperature {low[0]:g} K is below 150 K; temperatures are in "
-              f"kelvin ({low[0]:g} °C would be {low[0] + 273.15:g} K)", file=sys.stderr)
+              f"kelvin ({low[0]:g} °C would be {low[0] + 273.15:g} K; write {low[0]:g}C for "
+              f"degrees Celsius)", file=sys.stderr)
     return temps
 
 
@@ -317,48 +358,73 @@ def _population_views(ens, temps, free: bool, dft: bool) -> dict:
     return views
 
 
-def _key_torsions(ens, count: int = 2):
-    """The rotatable dihedrals that differ most between the conformers: [(label, atoms)]."""
-    import numpy as np
-
-    from .geometry import dihedral_at
-    from .torsion import rotatable_torsions
-
-    mol = ens.mol
-    ids = ens.ids()
-    scored = []
-    for t in rotatable_torsions(mol):
-        values = np.radians([dihedral_at(mol.GetConformer(c).GetPositions(), t.atoms) for c in ids])
-        spread = 1.0 - abs(np.mean(np.exp(1j * values))) if len(values) else 0.0
-        scored.append((spread, t.label, t.atoms))
-    scored.sort(key=lambda s: -s[0])
-    return [(label, atoms) for _, label, atoms in scored[:count]]
+#: the CLI table shows at most this many distinguishing torsions (all are in table.csv and
+#: run.json); four fit an 120-column terminal beside three temperatures
+_TABLE_TORSIONS = 4
 
 
-def _ensemble_table_text(ens, temps, views=None) -> str:
-    from .geometry import dihedral_at
+def _ensemble_table_text(ens, temps, views=None, free: bool = False) -> str:
+    """The conformer table: ΔE (and ΔG with --free-energy), degeneracy, populations per
+    temperature, the torsions that distinguish the conformers, ring puckers that differ,
+    hydrogen bonds and species; atoms numbered from 1."""
+    from .describe import LABEL_CONVENTION, describe_conformers
 
     rel = ens.energies("kcal/mol")
     views = views or {"": ens.populations(temps)}
-    torsions = _key_torsions(ens)
+    desc = describe_conformers(ens)
+    torsions = desc.torsions[:_TABLE_TORSIONS]
+    rings = [c for c in desc.table.columns if c.startswith("ring_")
+             and desc.table[c].nunique() > 1]
+    hbonds = desc.table["hydrogen_bonds"] if (desc.table["hydrogen_bonds"] != "").any() else None
+    gaps = {t: ens.energies("kcal/mol", energy="free", temperature=t) for t in temps} if free else {}
     labels = [(name, t) for t in temps for name in views]
-    head = f"{'conf':>4}  {'dE kcal/mol':>11}  {'deg':>3}  " + "  ".join(
+    head = f"{'conf':>4}  {'ΔE kcal/mol':>11}  " + "".join(
+        f"{'ΔG(' + format(t, 'g') + ' K)':>12}  " for t in gaps) + f"{'deg':>3}  " + "  ".join(
         f"{'p' + ('_' + name if name else '') + '(' + format(t, 'g') + ' K)':>12}" for name, t in labels)
-    head += "".join(f"  {label + ' (deg)':>18}" for label, _ in torsions)
+    widths = [max(len(t.label) + 1, 6) for t in torsions]
+    head += "".join(f"  {t.label + '°':>{w}}" for t, w in zip(torsions, widths))
+    ring_widths = [max(len(c) - 5, 10) for c in rings]
+    head += "".join(f"  {'ring ' + c[5:]:<{w}}" for c, w in zip(rings, ring_widths))
     table = ens.table()
     species = table["species"] if "species" in table.columns and table["species"].nunique() > 1 else None
     if species is not None:
         head += f"  {'species':>7}"
-    lines = [head]
-    mol = ens.mol
+    if hbonds is not None:
+        head += "  H-bonds"
+    lines = [f"conformers (ΔE, ΔG in kcal/mol; dihedrals in degrees; {LABEL_CONVENTION})", head]
     for cid in ens.ids():
-        line = f"{cid:>4}  {rel[cid]:>11.2f}  {int(ens.degeneracy[cid]):>3}  " + "  ".join(
+        line = f"{cid:>4}  {rel[cid]:>11.2f}  " + "".join(
+            f"{gaps[t][cid]:>12.2f}  " for t in gaps) + f"{int(ens.degeneracy[cid]):>3}  " + "  ".join(
             f"{views[name].loc[cid, t]:>12.3f}" for name, t in labels)
-        line += "".join(f"  {dihedral_at(mol.GetConformer(cid).GetPositions(), atoms):>18.0f}"
-                        for _, atoms in torsions)
+        line += "".join(f"  {t.values[cid]:>{w}.0f}" for t, w in zip(torsions, widths))
+        line += "".join(f"  {str(desc.table.loc[cid, c]):<{w}}" for c, w in zip(rings, ring_widths))
         if species is not None:
             line += f"  {int(species[cid]):>7}"
+        if hbonds is not None:
+            line += "  " + (hbonds[cid] or "-")
         lines.append(line)
+    if any("*" in t.label for t in torsions):
+        from .describe import STAR_NOTE
+        lines.append(STAR_NOTE)
+    if len(desc.torsions) > len(torsions):
+        lines.append(f"{len(desc.torsions) - len(torsions)} more distinguishing torsion(s) in "
+                     "table.csv and run.json (--out)")
+    if not desc.torsions and len(ens) > 1:
+        from .describe import DISTINGUISHING_DEGREES
+        lines.append(f"no torsion differs by more than {DISTINGUISHING_DEGREES:g}° between "
+                     "these conformers")
+    lines.extend(desc.ring_summary())
+    first = next(iter(views.values()))[temps[0]]
+    for ring, shares in desc.pucker_shares(first).items():
+        if len(shares) > 1:
+            lines.append(f"ring {ring}, share of the population at {temps[0]:g} K: " + "; ".join(
+                f"{name} {100 * share:.0f} %" for name, share in shares.items())
+                + " (Cremer-Pople)")
+    if hbonds is not None:
+        shares = desc.hydrogen_bond_shares(first)
+        lines.append(f"hydrogen bonds, share of the population at {temps[0]:g} K: " + "; ".join(
+            f"{label} {100 * share:.0f} %" for label, share in shares.items())
+            + f"; none {100 * (1 - first[desc.table['hydrogen_bonds'] != ''].sum()):.0f} %")
     if species is not None:
         shares = ens.species(temps[0])
         lines.append("species (slow exchange: NMR sees each as its own set of signals; "
@@ -389,8 +455,12 @@ def _run_ensemble(args: argparse.Namespace) -> int:
         raise InputError(f"--min-population must lie between 0 and 1 (exclusive), "
                          f"got {args.min_population:g}")
     args.workers = _cap_workers(args.workers)
+    if args.plot:
+        _check_plot_path(args.plot)
+    if args.report:
+        _check_report_path(args.report)
     _check_search_cost(args)
-    progress = not (args.quiet or args.json) and sys.stderr.isatty()
+    progress = _progress_mode(args.quiet or args.json)
     folder = None
     if args.out:  # created, locked and proved writable before any work
         from .outdir import OutputFolder
@@ -403,14 +473,55 @@ def _run_ensemble(args: argparse.Namespace) -> int:
             folder.close()
 
 
+def _progress_mode(quiet: bool):
+    """Progress bars on a terminal; one line per stage when stderr is a log; or nothing."""
+    if quiet:
+        return False
+    return True if sys.stderr.isatty() else "lines"
+
+
+def _heartbeat(progress, text: str) -> None:
+    if progress == "lines":  # "confpop: [12:04:31] ..." as the stage lines of execution.py
+        import time
+        print(f"{_PROG}: [{time.strftime('%H:%M:%S')}] {text}", file=sys.stderr, flush=True)
+
+
+def _check_report_path(path) -> None:
+    import os
+
+    from .outdir import check_output_file
+
+    check_output_file(path, "--report")
+    if os.path.splitext(str(path))[1].lower() not in (".html", ".htm"):
+        raise InputError(f"--report {str(path)!r}: the file name must end in .html")
+
+
 def _ensemble_files(ens, temps, payload) -> dict:
     """{file name: write(path)} of one ensemble's output files."""
+    from .io import write_csv
+
     def run_json(path):
         with open(path, "w") as fh:
             json.dump(payload, fh, indent=2)
             fh.write("\n")
-    return {"ensemble.sdf": lambda path: ens.to_sdf(path),
-            "table.csv": lambda path: ens.to_csv(path, temps), "run.json": run_json}
+    files = {"ensemble.sdf": lambda path: ens.to_sdf(path),
+             "table.csv": lambda path: write_csv(ens, path, temps), "run.json": run_json}
+    if len(ens):
+        from .plot import draw_conformers, ensemble_plot
+        files["populations.png"] = lambda path: ensemble_plot(ens, temps, path=path)
+        files["conformers.png"] = lambda path: draw_conformers(ens, path=path,
+                                                               temperature=temps[0])
+    return files
+
+
+def _ensemble_settings(args) -> dict:
+    """The command-line settings of a search, under their option names (for run.json)."""
+    names = ("method", "solvent", "temperature", "seed", "trials", "rounds", "completeness",
+             "min_population", "energy_window", "screen_margin", "screen_window",
+             "no_minimum_check", "keep_mirror_images", "charge", "multiplicity",
+             "enumerate_stereo", "keep_largest_fragment", "workers", "free_energy", "low_mode",
+             "rescore", "allow_long_run")
+    return {"--" + n.replace("_", "-"): getattr(args, n) for n in names if hasattr(args, n)}
 
 
 def _ensemble_work(args, temps, progress, folder) -> int:
@@ -418,14 +529,19 @@ def _ensemble_work(args, temps, progress, folder) -> int:
 
     from .io import ensemble_json
     from .pipeline import search
+    from .schema import solvent_model
 
     sources = [args.input]
     if args.enumerate_stereo:
         from .molecule import stereoisomers
         sources = stereoisomers(args.input, charge=args.charge,
                                 keep_largest_fragment=args.keep_largest_fragment)
+    if args.store:  # a bad --store is one error line, before the first progress line
+        from .store import ResultStore
+        ResultStore(args.store).close()
     results = []
     for source in sources:
+        _heartbeat(progress, f"sampling conformers of {source}")
         ens = search(source, method=args.method, solvent=args.solvent, seed=args.seed,
                      n_trials=args.trials, energy_window=args.energy_window,
                      temperatures=temps, min_population=args.min_population,
@@ -444,7 +560,8 @@ def _ensemble_work(args, temps, progress, folder) -> int:
             ens = ens.rescore(args.rescore, workers=args.workers, progress=progress, rank=False,
                               store=args.store)
         results.append(ens)
-    payloads = [ensemble_json(e, temps, input_text=args.input) for e in results]
+    settings = _ensemble_settings(args)
+    payloads = [ensemble_json(e, temps, input_text=args.input, settings=settings) for e in results]
     for payload, ens in zip(payloads, results):
         if len(ens) and (args.free_energy or args.rescore):
             views = _population_views(ens, temps, args.free_energy, bool(args.rescore))
@@ -464,13 +581,16 @@ def _ensemble_work(args, temps, progress, folder) -> int:
             else:
                 name = folder.claim(f"stereoisomer_{k + 1}", key=f"stereoisomer:{k + 1}")
                 written.append(str(folder.write_folder(name, files)))
+    pictures = _ensemble_pictures(args, results, temps)
     if args.json:
         print(json.dumps(payloads[0] if len(payloads) == 1 else payloads, indent=2))
         return 0
     for ens in results:
         summary = next((p for p in ens.provenance if p.get("step") == "summary"), {})
         sample = next((p for p in ens.provenance if p.get("step") == "sample"), {})
-        print(f"{ens.name}  method {ens.level}{'  solvent ' + ens.solvent if ens.solvent else ''}")
+        model = solvent_model(args.method, ens.solvent)
+        print(f"{ens.name}  method {ens.level}  "
+              + (f"solvent {ens.solvent} (implicit, {model.split('(')[0]})" if model else "gas phase"))
         if len(ens) == 0:
             for cid, row in ens.raw_table.iterrows():
                 print(f"{cid:>4}  failed: {row['reason']}")
@@ -478,7 +598,7 @@ def _ensemble_work(args, temps, progress, folder) -> int:
             return 1
         views = (_population_views(ens, temps, args.free_energy, bool(args.rescore))
                  if (args.free_energy or args.rescore) else None)
-        print(_ensemble_table_text(ens, temps, views))
+        print(_ensemble_table_text(ens, temps, views, free=args.free_energy))
         if views:
             print("p_E: from electronic energies at " + ens.level + "; "
                   + ("p_G: from G(T) = E + harmonic free-energy correction (" + args.low_mode
@@ -487,7 +607,7 @@ def _ensemble_work(args, temps, progress, folder) -> int:
                   + ("p_DFT: from B3LYP-D3(BJ)/def2-SVPD single points at the same geometries"
                      + ("; p_DFT+G: DFT energy + the free-energy correction" if args.free_energy else "")
                      if args.rescore else ""))
-        n_eff = ens.effective_count(temps[0])
+        n_eff = "; ".join(f"{ens.effective_count(t):.2f} at {t:g} K" for t in temps)
         prune = next((p for p in ens.provenance if p.get("step") == "prune"), {})
         dropped = (f" ({prune['below_min_population']} rarer ones dropped, "
                    f"{100 * prune['population_dropped']:.2g} % of the population in all)"
@@ -498,15 +618,36 @@ def _ensemble_work(args, temps, progress, folder) -> int:
               f"completeness {100 * summary.get('completeness', float('nan')):.1f} % "
               f"(Good-Turing; {sample.get('trials', 0)} trials, {sample.get('rounds', 0)} rounds, "
               f"{sample.get('embedding_failures', 0)} embedding failures); effective number of "
-              f"conformers at {temps[0]:g} K: {n_eff:.2f}; {summary.get('seconds', 0):.1f} s")
+              f"conformers (Kish 1/Σp²): {n_eff}; {summary.get('seconds', 0):.1f} s")
         stages = [p for p in ens.provenance if p.get("step") not in ("input", "summary")]
         print("stages: " + ", ".join(f"{p['step']} {p['n_in']}->{p['n_out']} ({p['seconds']:.1f} s)"
                                      for p in stages))
     if written:
         print(f"wrote {', '.join(os.path.basename(w) for w in written)} to "
               f"{os.path.abspath(args.out)}")
+    for path in pictures:
+        print(f"wrote {path}")
     print(_ENSEMBLE_CAUTION)
     return 0
+
+
+def _ensemble_pictures(args, results, temps) -> list:
+    """--plot and --report for the first stereoisomer with conformers; the paths written."""
+    written = []
+    ens = next((e for e in results if len(e)), None)
+    if ens is None:
+        return written
+    if args.plot:
+        from .plot import ensemble_plot
+        ensemble_plot(ens, temps, path=args.plot)
+        written.append(args.plot)
+    if args.report:
+        from .report import write_report
+        write_report(ens, args.report, temperatures=temps, input_text=args.input,
+                     free_energy=args.free_energy, settings=_ensemble_settings(args),
+                     cautions=[_ENSEMBLE_CAUTION])
+        written.append(args.report)
+    return written
 
 
 # --------------------------------------------------------------------------- couplings
@@ -521,11 +662,12 @@ def _add_couplings(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("input", metavar="INPUT",
                         help="an ensemble SDF written by confpop, or a SMILES (then a conformer "
                              "search with default settings runs first)")
-    parser.add_argument("--temperature", "-T", nargs="+", type=_finite_float, default=[298.15], action=_Once,
+    parser.add_argument("--temperature", "-T", nargs="+", type=_temperature_arg, default=[298.15], action=_Once,
                         metavar="K", help="temperatures in kelvin (default 298.15); the fit uses the first")
     parser.add_argument("--observed", metavar="FILE.csv", default=None,
                         help="measured couplings, CSV columns atom_a, atom_b, J_hz [, sigma_hz] "
-                             "(0-based hydrogen indices as printed); fits the populations")
+                             "(hydrogen atom numbers from 1, as printed and as in molecule "
+                             "viewers); fits the populations")
     parser.add_argument("--parameters", default="auto",
                         help="Karplus set: auto (default: Haasnoot-de Leeuw-Altona for H-C-C-H, "
                              "Hu-Bax for amide H-N-C-H) or a set name, e.g. karplus-generic")
@@ -538,7 +680,7 @@ def _add_couplings(parser: argparse.ArgumentParser) -> None:
                         help="with --observed: fit only species N (conformers separated by a slow "
                              "amide or biaryl rotation give separate signal sets; numbers as printed)")
     parser.add_argument("--method", default="gfn2", help="method for a SMILES input (default gfn2)")
-    parser.add_argument("--solvent", default=None, help="implicit solvent for a SMILES input")
+    parser.add_argument("--solvent", default=None, help="implicit solvent for a SMILES input (GBSA with gfn2)")
     parser.add_argument("--seed", type=int, default=0, help="seed for sampling, spread and bootstrap")
     parser.add_argument("--energy-property", default=None, metavar="NAME",
                         help="for an SDF ensemble from another program: the SD property "
@@ -551,7 +693,50 @@ def _add_couplings(parser: argparse.ArgumentParser) -> None:
                              "conformers equally (default: refuse)")
     parser.add_argument("--plot", metavar="FILE.png", default=None,
                         help="write a figure: predicted vs observed with --observed, else J vs temperature")
+    parser.add_argument("--out", default=None, metavar="DIR",
+                        help="write couplings.csv, couplings.json (and fit.csv with --observed) "
+                             "into DIR (checked before any work; files confpop did not write "
+                             "are never replaced)")
+    parser.add_argument("--into-nonempty-folder", action="store_true",
+                        help="allow an --out folder holding files confpop did not write")
     parser.add_argument("--json", action="store_true", help="print machine-readable JSON only")
+
+
+def _renumber(frame):
+    """A copy of a couplings table with atoms numbered from 1 (labels, indices, tuples)."""
+    from .describe import one_based_labels
+
+    if frame is None:
+        return None
+    out = frame.copy()
+    for col in ("label", "group", "torsion"):
+        if col in out.columns:
+            out[col] = out[col].map(one_based_labels)
+    for col in ("atom_a", "atom_b"):
+        if col in out.columns:
+            out[col] = out[col].map(lambda v: int(v) + 1)
+    for col in ("atoms_a", "atoms_b"):
+        if col in out.columns:
+            out[col] = out[col].map(lambda v: tuple(int(x) + 1 for x in v))
+    return out
+
+
+def _observed_from_one(frame, path):
+    """--observed atom numbers (from 1) to 0-based indices, each checked."""
+    frame = frame.copy()
+    for col in ("atom_a", "atom_b"):
+        if col not in frame.columns:
+            continue
+        for k, v in enumerate(frame[col], start=1):
+            try:
+                ok = float(v) == int(float(v)) and int(float(v)) >= 1
+            except (TypeError, ValueError):
+                ok = False
+            if not ok:
+                raise InputError(f"--observed {str(path)!r} row {k}: {col} must be a hydrogen "
+                                 f"atom number from 1 (as printed), got {v!r}")
+        frame[col] = frame[col].map(lambda v: int(float(v)) - 1)
+    return frame
 
 
 def _plain(value):
@@ -606,14 +791,25 @@ def _couplings_ensemble(args):
 
 
 def _run_couplings(args: argparse.Namespace) -> int:
-    from . import nmr
-
     temps = _temperatures(args.temperature)
     if args.plot:
         _check_plot_path(args.plot)
     observed = None
     if args.observed:  # read before any work: a bad file fails at once
-        observed = _read_observed(args.observed)
+        observed = _observed_from_one(_read_observed(args.observed), args.observed)
+    folder = _open_folder(args, "couplings")
+    try:
+        return _couplings_work(args, temps, observed, folder)
+    finally:
+        if folder is not None:
+            folder.close()
+
+
+def _couplings_work(args, temps, observed, folder) -> int:
+    from . import nmr
+    from .describe import LABEL_CONVENTION
+    from .schema import solvent_model
+
     ens = _couplings_ensemble(args)
     import warnings
     warnings.simplefilter("ignore", nmr.MethodWarning)  # printed below as "method caution:"
@@ -631,55 +827,95 @@ def _run_couplings(args: argparse.Namespace) -> int:
                                      energy_sigma=args.energy_sigma, seed=args.seed)
     fit = None
     if observed is not None:
-        fit = nmr.fit_populations(ens, observed, temperature=temps[0], parameters=args.parameters,
-                                  seed=args.seed, species=args.species)
+        try:
+            fit = nmr.fit_populations(ens, observed, temperature=temps[0],
+                                      parameters=args.parameters, seed=args.seed,
+                                      species=args.species)
+        except InputError as exc:  # the library numbers atoms from 0, the command line from 1
+            import re
+
+            from .describe import one_based_labels
+            text = re.sub(r"observed coupling (\d+)-(\d+)",
+                          lambda m: f"--observed pair {int(m.group(1)) + 1}-{int(m.group(2)) + 1}",
+                          one_based_labels(str(exc)))
+            text = text.replace("see confpop.nmr.vicinal_pairs(mol)",
+                                "the pairs that have one are listed by --by pair (hydrogen "
+                                "numbers from 1, as printed)")
+            raise InputError(text) from None
+    first = next((p for p in ens.provenance if p.get("step") == "input"), {})
+    model = solvent_model(first.get("method", ens.level), ens.solvent)
+    title = (f"{ens.name or args.input}  ({ens.level}, {model or 'gas phase'}; "
+             f"Karplus {args.parameters})")
+    table = _renumber(table)
+    spread = _renumber(spread)
+    residuals = _renumber(fit.residuals) if fit is not None else None
+    families = _renumber(fit.families) if fit is not None and fit.families is not None else None
     if args.plot:
         from . import plot
         if fit is not None:
-            plot.coupling_parity_plot(fit, path=args.plot)
+            plot.coupling_parity_plot(residuals, path=args.plot, title=title)
         else:
-            plot.coupling_temperature_plot(table, path=args.plot)
+            plot.coupling_temperature_plot(table, path=args.plot, title=title,
+                                           spread=spread)
 
-    if args.json:
-        rows = []
-        for _, row in table.iterrows():
-            item = {c: _plain(row[c]) for c in id_cols}
-            item["J_hz"] = {format(t, "g"): _json_number(row[t]) for t in temps}
-            rows.append(item)
-        payload = {"temperatures_K": temps, "parameters": args.parameters, "by": args.by,
-                   "species": [{"species": int(k), "label": v["label"],
-                                "share": {format(t, "g"): _json_number(x) for t, x in v["share"].items()}}
-                               for k, v in species.items()],
-                   "couplings": rows, "caution": _COUPLINGS_CAUTION,
-                   "method_cautions": [c.message for c in cautions]}
-        if spread is not None:
-            payload["spread"] = {"energy_sigma_kcal_mol": args.energy_sigma, "rows": [
-                {"key": r["group"] if args.by == "group" else r["label"],
-                 "species": int(r["species"]), "temperature_K": r["temperature"],
-                 **{k: _json_number(r[k]) for k in ("value", "mean", "std", "p05", "p95")}}
-                for _, r in spread.iterrows()]}
+    rows = []
+    for _, row in table.iterrows():
+        item = {c: _plain(row[c]) for c in id_cols}
+        item["J_hz"] = {format(t, "g"): _json_number(row[t]) for t in temps}
+        rows.append(item)
+    payload = {"temperatures_K": temps, "parameters": args.parameters, "by": args.by,
+               "atom_numbering": LABEL_CONVENTION, "method": ens.level,
+               "solvent_model": model,
+               "species": [{"species": int(k), "label": v["label"],
+                            "share": {format(t, "g"): _json_number(x) for t, x in v["share"].items()}}
+                           for k, v in species.items()],
+               "couplings": rows, "caution": _COUPLINGS_CAUTION,
+               "method_cautions": [c.message for c in cautions]}
+    if spread is not None:
+        payload["spread"] = {"energy_sigma_kcal_mol": args.energy_sigma, "rows": [
+            {"key": r["group"] if args.by == "group" else r["label"],
+             "species": int(r["species"]), "temperature_K": r["temperature"],
+             **{k: _json_number(r[k]) for k in ("value", "mean", "std", "p05", "p95")}}
+            for _, r in spread.iterrows()]}
+    if fit is not None:
+        frame = fit.to_frame()
+        payload["fit"] = {
+            "temperature_K": fit.temperature, "chi2": fit.chi2,
+            "chi2_boltzmann": fit.chi2_boltzmann, "n_observations": fit.n_observations,
+            "rms_deviation_hz": _json_number(fit.rms_deviation), "warning": fit.warning,
+            "minimal_subset": list(fit.minimal_subset) if fit.minimal_subset else None,
+            "free_energy_unit": fit.unit,
+            "conformers": [{"conformer": int(cid), **{k: _json_number(v) for k, v in r.items()}}
+                           for cid, r in frame.iterrows()],
+            "residuals": [{k: _plain(v) for k, v in r.items()}
+                          for _, r in residuals.iterrows()],
+            "families": [{k: _plain(v) for k, v in r.items()}
+                         for _, r in families.iterrows()] if families is not None else [],
+        }
+    written = []
+    if folder is not None:
+        def couplings_csv(path):
+            frame = table.rename(columns={t: f"J_{t:g}K_hz" for t in temps})
+            frame.to_csv(path, index=False)
+
+        def couplings_json(path):
+            with open(path, "w") as fh:
+                json.dump(payload, fh, indent=2, ensure_ascii=False, default=str)
+                fh.write("\n")
+        files = {"couplings.csv": couplings_csv, "couplings.json": couplings_json}
         if fit is not None:
-            frame = fit.to_frame()
-            payload["fit"] = {
-                "temperature_K": fit.temperature, "chi2": fit.chi2,
-                "chi2_boltzmann": fit.chi2_boltzmann, "n_observations": fit.n_observations,
-                "rms_deviation_hz": _json_number(fit.rms_deviation), "warning": fit.warning,
-                "minimal_subset": list(fit.minimal_subset) if fit.minimal_subset else None,
-                "free_energy_unit": fit.unit,
-                "conformers": [{"conformer": int(cid), **{k: _json_number(v) for k, v in r.items()}}
-                               for cid, r in frame.iterrows()],
-                "residuals": [{k: _plain(v) for k, v in r.items()}
-                              for _, r in fit.residuals.iterrows()],
-                "families": [{k: _plain(v) for k, v in r.items()}
-                             for _, r in fit.families.iterrows()],
-            }
+            files["fit.csv"] = lambda path: residuals.to_csv(path, index=False)
+        for name, write in files.items():
+            name = folder.claim(name, key=f"file:{name}")
+            written.append(str(folder.write_file(name, write)))
+    if args.json:
         print(json.dumps(payload, indent=2, ensure_ascii=False, default=str))
         return 0
 
     key = "group" if args.by == "group" else "label"
     width = max(len(key), *(len(str(v)) for v in table[key])) if len(table) else len(key)
-    lines = [f"{len(ens)} conformers ({ens.level}); population-averaged vicinal 3J(H,H) in Hz; "
-             "atom indices 0-based",
+    lines = [f"{len(ens)} conformers ({ens.level}, {model or 'gas phase'}); population-averaged "
+             f"vicinal 3J(H,H) in Hz; {LABEL_CONVENTION}",
              f"{key:<{width}}  {'set':<16}" + "".join(f"  {format(t, 'g') + ' K':>9}" for t in temps)]
     for number, sub in table.groupby("species", sort=True):
         if len(species) > 1:
@@ -708,13 +944,13 @@ def _run_couplings(args: argparse.Namespace) -> int:
             lines.append(f"{cid:>4}  {r['population']:>7.3f}  {r['population_std']:>6.3f}  "
                          f"{r['boltzmann']:>9.3f}  {dg:>20}")
         lines.append(f"{'observed':>24}  {'obs':>6}  {'fit':>6}  {'Boltz':>6}")
-        for _, r in fit.residuals.iterrows():
+        for _, r in residuals.iterrows():
             lines.append(f"{r['kind'] + ' ' + str(r['atom_a']) + '-' + str(r['atom_b']):>24}  "
                          f"{r['observed']:>6.2f}  {r['predicted']:>6.2f}  {r['boltzmann']:>6.2f}")
         if fit.minimal_subset:
             lines.append(f"smallest conformer set explaining the data within the noise: "
                          f"{list(fit.minimal_subset)} (chi2 {fit.minimal_subset_chi2:.2f})")
-        fixed = fit.families[fit.families["determined"]] if fit.families is not None else []
+        fixed = families[families["determined"]] if families is not None else []
         if len(fixed):
             lines.append("rotamer families the data determine (population ± bootstrap std; "
                          "g+ 0..120, g- -120..0, t beyond ±120 degrees):")
@@ -725,6 +961,10 @@ def _run_couplings(args: argparse.Namespace) -> int:
             lines.append("warning: " + fit.warning)
     if args.plot:
         lines.append(f"wrote {args.plot}")
+    if written:
+        import os
+        lines.append(f"wrote {', '.join(os.path.basename(w) for w in written)} to "
+                     f"{os.path.abspath(args.out)}")
     for c in cautions:
         lines.append("method caution: " + c.message)
     lines.append(_COUPLINGS_CAUTION)
@@ -760,8 +1000,8 @@ def _add_batch(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--method", default="gfn2",
                         help="final level: gfn2 (default), gfn1, gfnff, tblite-gfn2, mmff94s, mmff94, uff")
     parser.add_argument("--solvent", default=None,
-                        help="implicit solvent for tight-binding methods, e.g. water, chloroform")
-    parser.add_argument("--temperature", "-T", nargs="+", type=_finite_float, default=[298.15], action=_Once,
+                        help="implicit solvent, e.g. water, chloroform: GBSA with gfn2/gfn1/gfnff (xtb-python), ALPB with tblite-gfn2/tblite-gfn1; force fields have none")
+    parser.add_argument("--temperature", "-T", nargs="+", type=_temperature_arg, default=[298.15], action=_Once,
                         metavar="K", help="temperatures in kelvin (default 298.15); the "
                                           "effective number of conformers is at the first")
     parser.add_argument("--seed", type=int, default=0, help="sampling seed (default 0)")
@@ -918,16 +1158,17 @@ def _add_scan(parser: argparse.ArgumentParser) -> None:
                         help="a SMILES, or a MOL/SDF/XYZ file (its first structure is the start)")
     which = parser.add_mutually_exclusive_group(required=True)
     which.add_argument("--torsion", nargs=4, type=int, metavar=("I", "J", "K", "L"),
-                       help="the dihedral I-J-K-L to scan; 0-based atom indices as in RDKit "
-                            "(hydrogens included; for SMILES input they follow the heavy atoms)")
+                       help="the dihedral I-J-K-L to scan; atoms numbered from 1 as in molecule "
+                            "viewers and the SDF atom block (hydrogens included; for SMILES "
+                            "input they follow the heavy atoms)")
     which.add_argument("--bond", nargs=2, type=int, metavar=("J", "K"),
-                       help="the bond J-K to turn (0-based indices); I and L are chosen, heavy "
-                            "atoms preferred")
+                       help="the bond J-K to turn (atoms numbered from 1); I and L are chosen, "
+                            "heavy atoms preferred")
     parser.add_argument("--method", default="gfn2",
                         help="energy method: gfn2 (default), gfn1, gfnff, tblite-gfn2, mmff94s, "
                              "mmff94, uff, model")
     parser.add_argument("--solvent", default=None,
-                        help="implicit solvent for tight-binding methods, e.g. water, chloroform")
+                        help="implicit solvent, e.g. water, chloroform: GBSA with gfn2/gfn1/gfnff (xtb-python), ALPB with tblite-gfn2/tblite-gfn1; force fields have none")
     parser.add_argument("--step", type=_finite_float, default=15.0, metavar="DEG",
                         help="grid step in degrees; must divide 360 (default 15)")
     parser.add_argument("--rigid", action="store_true",
@@ -935,7 +1176,7 @@ def _add_scan(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--convergence", default="tight",
                         choices=["loose", "normal", "tight", "verytight"],
                         help="optimizer convergence at each point (default tight)")
-    parser.add_argument("--temperature", "-T", nargs="+", type=_finite_float, default=[298.15], action=_Once,
+    parser.add_argument("--temperature", "-T", nargs="+", type=_temperature_arg, default=[298.15], action=_Once,
                         metavar="K", help="temperatures in kelvin for the rates (default 298.15)")
     parser.add_argument("--delta-nu", metavar="HZ", type=_finite_float, default=100.0,
                         help="NMR signal separation in Hz for the exchange regime (default 100)")
@@ -951,7 +1192,31 @@ def _add_scan(parser: argparse.ArgumentParser) -> None:
                         help="SQLite result store: reuse finished walks, resume an interrupted scan")
     parser.add_argument("--plot", default=None, metavar="FILE.png",
                         help="draw the profile (minima, maxima, barriers) to this file")
+    parser.add_argument("--out", default=None, metavar="DIR",
+                        help="write profile.csv (every scan point), scan.json and profile.png "
+                             "into DIR (checked before any work; files confpop did not write "
+                             "are never replaced)")
+    parser.add_argument("--into-nonempty-folder", action="store_true",
+                        help="allow an --out folder holding files confpop did not write")
     parser.add_argument("--json", action="store_true", help="print machine-readable JSON only")
+
+
+def _one_based_atoms(mol, values, option: str) -> list:
+    """Command-line atom numbers (from 1) to RDKit indices, with errors in the user's terms."""
+    n = mol.GetNumAtoms()
+    bad = [v for v in values if not 1 <= v <= n]
+    if bad:
+        raise InputError(f"{option}: atom {bad[0]} does not exist; atoms are numbered from 1 "
+                         f"to {n} (hydrogens included, as in the SDF atom block)")
+    return [int(v) - 1 for v in values]
+
+
+def _open_folder(args, kind: str):
+    if not getattr(args, "out", None):
+        return None
+    from .outdir import OutputFolder
+    return OutputFolder(args.out, kind=kind, option="--out",
+                        allow_nonempty=args.into_nonempty_folder)
 
 
 def _angle_text(value: float) -> str:
@@ -961,19 +1226,11 @@ def _angle_text(value: float) -> str:
 
 
 def _run_scan(args: argparse.Namespace) -> int:
-    import time
-
-    from . import kinetics
-    from .execution import default_workers, local_executor
-    from .molecule import load_molecule
-    from .torsion import _check_dihedral_atoms, scan_torsion, torsion_for_bond
+    from .execution import default_workers
     from .units import normalize_unit
 
     unit = normalize_unit(args.unit)
-    temps = list(args.temperature)
-    bad = [t for t in temps if t <= 0.0]
-    if bad:
-        raise InputError(f"--temperature must be > 0 K, got {bad[0]:g}")
+    temps = _temperatures(args.temperature)
     if args.delta_nu <= 0.0:
         raise InputError(f"--delta-nu must be > 0 Hz, got {args.delta_nu:g}")
     if args.plot:
@@ -985,46 +1242,106 @@ def _run_scan(args: argparse.Namespace) -> int:
         workers = 2 if default_workers() >= 2 else 1
     if isinstance(workers, bool) or workers < 1:
         raise InputError(f"--workers must be >= 1, got {workers}")
-    mol = load_molecule(args.input, charge=args.charge, multiplicity=args.multiplicity)
-    if args.bond is not None:
-        atoms = torsion_for_bond(mol, *args.bond).atoms
-    else:
-        atoms = _check_dihedral_atoms(mol, args.torsion)
-    labels = [f"{mol.GetAtomWithIdx(a).GetSymbol()}{a}" for a in atoms]
+    folder = _open_folder(args, "scan")
+    try:
+        return _scan_work(args, temps, unit, workers, folder)
+    finally:
+        if folder is not None:
+            folder.close()
 
+
+def _scan_work(args, temps, unit, workers, folder) -> int:
+    import time
+
+    from . import kinetics
+    from .describe import LABEL_CONVENTION, atom_label
+    from .execution import local_executor
+    from .molecule import load_molecule
+    from .describe import one_based_labels
+    from .schema import solvent_model
+    from .torsion import _check_dihedral_atoms, scan_torsion, torsion_for_bond
+
+    mol = load_molecule(args.input, charge=args.charge, multiplicity=args.multiplicity)
+    try:
+        if args.bond is not None:
+            atoms = torsion_for_bond(mol, *_one_based_atoms(mol, args.bond, "--bond")).atoms
+        else:
+            chosen = _one_based_atoms(mol, args.torsion, "--torsion")
+            for a, b in zip(chosen, chosen[1:]):
+                if mol.GetBondBetweenAtoms(a, b) is None:
+                    raise InputError(
+                        f"--torsion {' '.join(map(str, args.torsion))}: {atom_label(mol, a)} and "
+                        f"{atom_label(mol, b)} are not bonded; give four atoms in a bonded "
+                        f"chain I-J-K-L ({LABEL_CONVENTION})")
+            atoms = _check_dihedral_atoms(mol, chosen)
+    except InputError as exc:  # torsion.py names atoms from 0
+        raise InputError(one_based_labels(str(exc))) from None
+    labels = [atom_label(mol, a) for a in atoms]
+    label = "-".join(labels)
+    model = solvent_model(args.method, args.solvent)
+
+    progress = _progress_mode(args.json)
+    _heartbeat(progress, f"scanning {label} ({'rigid' if args.rigid else 'relaxed'}, "
+                         f"step {args.step:g} deg)")
     started = time.perf_counter()
     executor = local_executor(workers) if (workers > 1 and not args.rigid) else None
     try:
-        profile = scan_torsion(mol, atoms, method=args.method, solvent=args.solvent,
-                               step=args.step, relaxed=not args.rigid,
-                               convergence=args.convergence, executor=executor, unit=unit,
-                               charge=args.charge, multiplicity=args.multiplicity,
-                               store=args.store)
+        try:
+            profile = scan_torsion(mol, atoms, method=args.method, solvent=args.solvent,
+                                   step=args.step, relaxed=not args.rigid,
+                                   convergence=args.convergence, executor=executor, unit=unit,
+                                   charge=args.charge, multiplicity=args.multiplicity,
+                                   store=args.store)
+        except InputError as exc:
+            raise InputError(one_based_labels(str(exc))) from None
     finally:
         if executor is not None:
             executor.shutdown()
     seconds = time.perf_counter() - started
+    _heartbeat(progress, f"scan done in {seconds:.1f} s")
+    title = (f"{label} of {args.input if len(args.input) <= 40 else args.input[:37] + '...'}  "
+             f"({'relaxed' if not args.rigid else 'rigid'}, {args.method.lower()}, "
+             f"{model or 'gas phase'})")
+    from .plot import plot_torsion_profile
     if args.plot:
-        from .plot import plot_torsion_profile
-        plot_torsion_profile(profile, path=args.plot)
+        plot_torsion_profile(profile, path=args.plot, title=title)
 
     rates = profile.rates(temps, delta_nu_hz=args.delta_nu)
+    payload = profile.to_dict(temps, delta_nu_hz=args.delta_nu)
+    payload.update({"input": args.input, "atoms": [a + 1 for a in atoms], "label": label,
+                    "atom_labels": labels, "index_base": 1, "atom_numbering": LABEL_CONVENTION,
+                    "solvent_model": model, "delta_nu_hz": args.delta_nu, "temperatures": temps,
+                    "seconds": seconds, "plot": args.plot,
+                    "atropisomer_class_37C": profile.atropisomer_class(),
+                    "caution": _SCAN_CAUTION})
+    written = []
+    if folder is not None:
+        import pandas as pd
+
+        def profile_csv(path):
+            pd.DataFrame({"angle_deg": profile.angles,
+                          f"energy_rel_{unit.replace('/', '_')}": profile.energies,
+                          "converged": profile.converged,
+                          "added_at_extremum": getattr(profile, "refined", False)}).to_csv(path, index=False)
+
+        def scan_json(path):
+            with open(path, "w") as fh:
+                json.dump(payload, fh, indent=2, ensure_ascii=False, default=_json_number)
+                fh.write("\n")
+        files = {"profile.csv": profile_csv, "scan.json": scan_json,
+                 "profile.png": lambda path: plot_torsion_profile(profile, path=path, title=title)}
+        for name, write in files.items():
+            name = folder.claim(name, key=f"file:{name}")
+            written.append(str(folder.write_file(name, write)))
     if args.json:
-        payload = profile.to_dict(temps, delta_nu_hz=args.delta_nu)
-        payload.update({"input": args.input, "atom_labels": labels, "index_base": 0,
-                        "delta_nu_hz": args.delta_nu, "temperatures": temps,
-                        "seconds": seconds, "plot": args.plot,
-                        "atropisomer_class_37C": profile.atropisomer_class(),
-                        "caution": _SCAN_CAUTION})
         print(json.dumps(payload, indent=2, ensure_ascii=False, default=_json_number))
         return 0
 
     kind = "rigid" if args.rigid else f"relaxed ({args.convergence})"
     n_extra = int(profile.refined.sum())
     lines = [
-        f"Torsion {'-'.join(labels)}  (0-based atom indices {' '.join(map(str, atoms))}; "
-        f"bond {labels[1]}-{labels[2]} turns)",
-        f"{kind} scan, {args.method.lower()}{'  solvent ' + args.solvent if args.solvent else ''}, "
+        f"Torsion {label}  ({LABEL_CONVENTION}; bond {labels[1]}-{labels[2]} turns)",
+        f"{kind} scan, {args.method.lower()}, {model or 'gas phase'}, "
         f"step {args.step:g} deg: {len(profile.angles) - n_extra} points"
         f"{f' + {n_extra} at fitted extrema' if n_extra else ''}, "
         f"{int((~profile.converged).sum())} not converged, {profile.gradient_calls} gradient "
@@ -1063,6 +1380,10 @@ def _run_scan(args: argparse.Namespace) -> int:
                      f"{profile.hysteresis_threshold:.2f} {unit})")
     if args.plot:
         lines.append(f"profile drawn to {args.plot}")
+    if written:
+        import os
+        lines.append(f"wrote {', '.join(os.path.basename(w) for w in written)} to "
+                     f"{os.path.abspath(args.out)}")
     lines.append(_SCAN_CAUTION)
     print("\n".join(lines))
     return 0
@@ -1108,6 +1429,34 @@ def _build_parser() -> argparse.ArgumentParser:
         add_arguments(command_parser)
         command_parser.set_defaults(_run=run)
     return parser
+
+
+#: messages from the library name Python arguments; on the command line they name options
+_CLI_TERMS = (
+    (r"pass keep_largest_fragment=True \(command line (--[\w-]+)\)", r"give \1"),
+    (r"with confpop\.stereoisomers\(\) \(command line (--[\w-]+)\)", r"with \1"),
+    (r", or pass stereo='ignore' to let conformer generation pick a configuration at random "
+     r"\(the ensemble then mixes stereoisomers\)", ""),
+    (r"fix the geometry or pass stereo='ignore'",
+     "fix the geometry (or draw the molecule with assigned configurations)"),
+    (r"pass stereo='ignore' \(and check the conformers' axis yourself\) or leave out the "
+     r"cumulene", "leave out the cumulene"),
+    (r"(?:try|use) method[= ]?'(\w+)'", r"try --method \1"),
+    (r"\(energy_property= and unit=; (--energy-property and --energy-unit) on the command "
+     r"line\)", r"(\1)"),
+    (r"\(unit=; (--energy-unit)(?: on the command line)?\)", r"(\1)"),
+    (r"\(uniform_weights=True; (--uniform-weights)\)", r"(\1)"),
+    (r"uniform_weights=True", "--uniform-weights"),
+)
+
+
+def _cli_terms(message: str) -> str:
+    """A library message in command-line terms (option names instead of Python arguments)."""
+    import re
+
+    for pattern, replacement in _CLI_TERMS:
+        message = re.sub(pattern, replacement, message)
+    return message
 
 
 class Terminated(KeyboardInterrupt):
@@ -1197,7 +1546,7 @@ def _main(argv) -> int:
         sys.stderr.close()
         return 0
     except (ConfpopError, ValueError, OSError) as err:
-        message = " ".join(str(err).split()) or type(err).__name__
+        message = _cli_terms(" ".join(str(err).split()) or type(err).__name__)
         message = "".join(ch if ch.isprintable() else f"\\x{ord(ch):02x}" for ch in message)
         print(f"{_PROG}: error: {message}", file=sys.stderr)
         return 2

@@ -8,7 +8,6 @@ when shown.
 from __future__ import annotations
 
 import copy
-import html
 from typing import Iterable, Sequence
 
 import numpy as np
@@ -399,8 +398,8 @@ class Ensemble:
         return head + "\n" + self._summary_frame().head(10).to_string(float_format=lambda x: f"{x:.3f}")
 
     def _repr_html_(self) -> str:
-        title = html.escape(f"Ensemble {self.name}: {len(self)} conformers, level {self.level}")
-        return f"<p><b>{title}</b></p>" + self._summary_frame().to_html(float_format=lambda x: f"{x:.3f}")
+        from .views import ensemble_html  # kcal/mol, populations at 298.15 K, torsions
+        return ensemble_html(self)
 
 
 def _rebuild(binary, table, level, charge, multiplicity, solvent, provenance, name) -> Ensemble:

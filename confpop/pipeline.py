@@ -217,7 +217,8 @@ def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int
         Final level: "gfn2" (default), "gfn1", "gfnff", "tblite-gfn2", or a force field
         ("mmff94s", "mmff94", "uff") for a force-field-only search.
     solvent : str, optional
-        Implicit solvent (ALPB) for tight-binding methods, e.g. "water", "chloroform".
+        Implicit solvent for tight-binding methods, e.g. "water", "chloroform" (GBSA with
+        gfn2/gfn1/gfnff through xtb-python, ALPB with tblite-gfn2/tblite-gfn1).
     seed : int
         Sampling seed; the same seed gives the same ensemble.
     n_trials : int, optional

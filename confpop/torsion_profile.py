@@ -532,6 +532,10 @@ class TorsionProfile:
             "note": self.note,
         }
 
+    def _repr_html_(self) -> str:
+        from .views import profile_html
+        return profile_html(self)
+
     def __repr__(self) -> str:
         kind = "relaxed" if self.relaxed else "rigid"
         return (f"<TorsionProfile {self.label or self.atoms} {kind} {self.method} "

@@ -248,6 +248,20 @@ REFERENCE_VALUES = {
                                              "J. Am. Chem. Soc. 1967, 89, 760", "from memory"),
     "dichloroethane_anti_preference_gas": _r((1.1, 1.2), "kcal/mol", "1,2-dichloroethane, gas "
                                              "phase, gauche - anti", "from memory"),
+    # ------------------------------------------------------- ring puckering, hydrogen bonds
+    "six_ring_ideal_theta": _r(
+        (0.0, 90.0, 50.8), "degree", "Cremer & Pople, J. Am. Chem. Soc. 1975, 97, 1354: ideal "
+        "chair (theta 0 or 180), boat and twist-boat (theta 90; phi 0 / 30 mod 60), "
+        "half-chair and envelope (theta ~50.8)", "from memory"),
+    "five_ring_ideal_phi_period": _r(
+        (36.0, 18.0), "degree", "Cremer & Pople 1975: cyclopentane envelope at phi_2 = 36k, "
+        "twist at 18 + 36k", "from memory"),
+    "cyclohexane_chair_q": _r((0.55, 0.63), "angstrom", "total puckering amplitude Q of the "
+                              "cyclohexane chair", "from memory"),
+    "hydrogen_bond_geometry": _r((2.5, 110.0), "angstrom, degree", "geometric H-bond criteria "
+                                 "H...Y <= 2.5 A (common practice), X-H...Y > 110 degrees "
+                                 "(IUPAC recommendation, Arunan et al., Pure Appl. Chem. 2011, "
+                                 "83, 1637)", "from memory"),
 }
 
 

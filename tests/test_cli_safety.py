@@ -5,6 +5,7 @@ are simple ones (ethanol) or invented inputs."""
 
 import errno
 import os
+import re
 import signal
 import subprocess
 import sys
@@ -18,7 +19,9 @@ from confpop.cli import main
 
 def one_error_line(capsys):
     captured = capsys.readouterr()
-    lines = captured.err.strip().splitlines()
+    # stage lines ("confpop: [12:04:31] ...", printed when stderr is not a terminal) aside
+    lines = [line for line in captured.err.strip().splitlines()
+             if not re.match(r"confpop: \[\d\d:\d\d:\d\d\] ", line)]
     assert len(lines) == 1 and lines[0].startswith("confpop: error: "), captured.err
     return lines[0]
 

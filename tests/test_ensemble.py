@@ -119,5 +119,7 @@ def test_xyz_and_json(tmp_path, three):
     text = path.read_text().splitlines()
     assert text[1].startswith("0.0000000000 kcal/mol")
     data = json.loads(three.to_json(temperatures=[273.15, 298.15]))
-    assert set(data) == {"input", "method", "solvent", "temperatures", "conformers", "provenance"}
+    assert {"input", "method", "solvent", "solvent_model", "temperatures", "conformers",
+            "provenance", "versions", "effective_conformers"} <= set(data)
+    assert set(data["effective_conformers"]) == {"273.15", "298.15"}
     assert data["conformers"][1]["degeneracy"] == 2 and len(data["conformers"][0]["population"]) == 2

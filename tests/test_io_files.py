@@ -142,18 +142,31 @@ def _move_first_atom(text):
     return "\n".join(lines)
 
 
+_B64 = "confpop_coordinates_angstrom_f8le_base64"
+
+
+def _b64_xyz(text):
+    import base64
+    return np.frombuffer(base64.b64decode(text), dtype="<f8").reshape(-1, 3).copy()
+
+
+def _b64_text(xyz):
+    import base64
+    return base64.b64encode(np.ascontiguousarray(xyz, dtype="<f8").tobytes()).decode()
+
+
 def _set_nan(text):
-    xyz = json.loads(text)
+    xyz = _b64_xyz(text)
     xyz[0][0] = math.nan
-    return json.dumps(xyz)
+    return _b64_text(xyz)
 
 
 @pytest.mark.parametrize("record, edit, message", [
-    (1, _edit_property("confpop_coordinates_angstrom",
-                       lambda t: json.dumps(json.loads(t)[:-3])),
+    (1, _edit_property(_B64, lambda t: _b64_text(_b64_xyz(t)[:-3])),
      r"record 2: stored coordinates have shape \(12, 3\), expected \(15, 3\)"),
-    (1, _edit_property("confpop_coordinates_angstrom", _set_nan),
-     "record 2: stored coordinates are not all finite"),
+    (1, _edit_property(_B64, _set_nan), "record 2: stored coordinates are not all finite"),
+    (1, _edit_property(_B64, lambda t: t[:-7] + "!!"), "record 2: stored coordinates are not "
+                                                        "valid base64"),
     (1, lambda t: t.replace("<conformer_id>", "<conformer_ix>"), "record 2 has no conformer_id"),
     (1, _edit_property("confpop_row", lambda t: "[" * 50000 + "]" * 50000),
      "record 2: property confpop_row is not valid JSON"),
@@ -186,3 +199,25 @@ def test_the_cli_names_the_problem_in_one_line(butanol, capsys):
                  "--energy-unit", "kcal/mol", "--json"]) == 0
     payload = json.loads(capsys.readouterr().out)
     assert payload["couplings"]
+
+
+def test_sdf_coordinates_written_before_base64_are_still_read_exactly(butanol, tmp_path):
+    """Files from before the base64 coordinates held them as JSON text: still read exactly."""
+    import base64
+    _, folder = butanol
+    source = (folder / "own.sdf").read_text()
+    old_style = []
+    for record in source.split("$$$$\n"):
+        if f"<{_B64}>" in record:
+            start = record.index(f">  <{_B64}>")
+            first = record.index("\n", start) + 1
+            end = record.index("\n", first)
+            xyz = np.frombuffer(base64.b64decode(record[first:end]), dtype="<f8").reshape(-1, 3)
+            record = (record[:start] + ">  <confpop_coordinates_angstrom>  (1) \n"
+                      + json.dumps(xyz.tolist()) + record[end:])
+        old_style.append(record)
+    path = tmp_path / "old.sdf"
+    path.write_text("$$$$\n".join(old_style))
+    new, old = read_ensemble(folder / "own.sdf"), read_ensemble(path)
+    for cid in new.ids():
+        np.testing.assert_array_equal(old.positions(cid), new.positions(cid))

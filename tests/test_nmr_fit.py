@@ -186,8 +186,9 @@ def test_couplings_command(butanol, synthetic, tmp_path, capsys):
     sdf = tmp_path / "ens.sdf"
     butanol.to_sdf(sdf)
     csv = tmp_path / "observed.csv"
-    pd.DataFrame([{"atom_a": a, "atom_b": b, "J_hz": round(v, 3)} for (a, b), v in synthetic.items()]
-                 ).to_csv(csv, index=False)
+    # the command line numbers atoms from 1, as it prints them
+    pd.DataFrame([{"atom_a": a + 1, "atom_b": b + 1, "J_hz": round(v, 3)}
+                  for (a, b), v in synthetic.items()]).to_csv(csv, index=False)
     status = main(["couplings", str(sdf), "-T", "273.15", "298.15", "--observed", str(csv),
                    "--json", "--plot", str(tmp_path / "fit.png")])
     out = capsys.readouterr().out
@@ -196,6 +197,8 @@ def test_couplings_command(butanol, synthetic, tmp_path, capsys):
     assert payload["temperatures_K"] == [273.15, 298.15]
     fitted = [c["population"] for c in payload["fit"]["conformers"]]
     np.testing.assert_allclose(fitted, TRUTH, atol=0.02)
+    assert {(r["atom_a"], r["atom_b"]) for r in payload["fit"]["residuals"]} == \
+        {(a + 1, b + 1) for a, b in synthetic}
     assert (tmp_path / "fit.png").stat().st_size > 1000
     status = main(["couplings", str(sdf), "--observed", str(tmp_path / "missing.csv")])
     err = capsys.readouterr().err

@@ -281,5 +281,5 @@ def test_ensemble_command_shows_species(capsys):
     from confpop.cli import main
     assert main(["ensemble", "CC(=O)N(C)Cc1ccccc1", "--method", "mmff94s", "--seed", "1"]) == 0
     out = capsys.readouterr().out
-    assert "species" in out.splitlines()[1]
+    assert "species" in out.splitlines()[2]  # the header, after the numbering line
     assert "species (slow exchange" in out and "cis to C5" in out and "trans to C5" in out

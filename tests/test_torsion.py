@@ -492,25 +492,29 @@ def butane_molfile(tmp_path):
 
 def test_cli_scan_prints_table_and_draws(tmp_path, butane_molfile, capsys):
     png = tmp_path / "profile.png"
-    status = main(["scan", butane_molfile, "--bond", "1", "2", "--method", "model", "--rigid",
+    # the command line numbers atoms from 1, as molecule viewers and the MOL file do
+    status = main(["scan", butane_molfile, "--bond", "2", "3", "--method", "model", "--rigid",
                    "--step", "30", "--plot", str(png)])
     out = capsys.readouterr().out
     assert status == 0
-    assert "C0-C1-C2-C3" in out and "0-based" in out
+    assert "C1-C2-C3-C4" in out and "numbered from 1" in out
     assert "minima" in out and "maxima" in out and "3.00" in out
     assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
 
 
 def test_cli_scan_json_and_errors(butane_molfile, capsys):
-    assert main(["scan", butane_molfile, "--torsion", "0", "1", "2", "3", "--method", "model",
+    assert main(["scan", butane_molfile, "--torsion", "1", "2", "3", "4", "--method", "model",
                  "--rigid", "--step", "30", "--json"]) == 0
     payload = json.loads(capsys.readouterr().out)
-    assert payload["atoms"] == list(BUTANE) and payload["index_base"] == 0
+    assert payload["atoms"] == [a + 1 for a in BUTANE] and payload["index_base"] == 1
     assert len(payload["minima"]) == 3
     assert payload["barriers"][0]["barrier_forward"] == pytest.approx(3.0, abs=1e-9)
-    assert main(["scan", "CCCC", "--bond", "1", "7", "--method", "model", "--rigid"]) == 2
+    assert main(["scan", "CCCC", "--bond", "2", "8", "--method", "model", "--rigid"]) == 2
     err = capsys.readouterr().err
     assert err.startswith("confpop: error:") and "no dihedral" in err and len(err.splitlines()) == 1
+    assert "C2" in err and "H8" in err  # the atoms as the user numbered them
+    assert main(["scan", "CCCC", "--torsion", "0", "1", "2", "3", "--method", "model"]) == 2
+    assert "atoms are numbered from 1" in capsys.readouterr().err
 
 
 def test_plot_torsion_profile(tmp_path):

@@ -267,6 +267,10 @@ class PopulationFit:
     bootstrap: np.ndarray = field(repr=False)
     families: pd.DataFrame | None = field(default=None, repr=False)
 
+    def _repr_html_(self) -> str:
+        from ..views import fit_html
+        return fit_html(self)
+
     def to_frame(self) -> pd.DataFrame:
         """Per-conformer table: population, population_std, boltzmann, free_energy."""
         return pd.DataFrame({"population": self.populations, "population_std": self.population_std,
