@@ -1567,3 +1567,7 @@ def _main(argv) -> int:
         print(f"{_PROG}: internal error: {type(err).__name__}: {message} (please report it; "
               "set CONFPOP_DEBUG=1 to see the traceback)", file=sys.stderr)
         return 1
+
+
+if __name__ == "__main__":  # `python -m confpop.cli` runs the command too (it printed nothing before)
+    sys.exit(main())
