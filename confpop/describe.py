@@ -28,6 +28,7 @@ J. Am. Chem. Soc. 1975, 97, 1354-1358. doi:10.1021/ja00839a011
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -214,10 +215,12 @@ def distinguishing_torsions(mol: Chem.Mol, conf_ids=None, *,
         # a symmetric top (every other position of an end taken by equivalent atoms: CH3, CF3,
         # a planar NMe2 or phenyl; not a pyramidal NH2, whose lone pair is a position too)
         # repeats every 360/n degrees: compare the values on that period
+        # with both ends symmetric the torsion repeats when either end's turn does: the
+        # combined period is 360/lcm(n1, n2) (CH3-CH3: 120, phenyl-NMe2: 180), not the product
         fold = 1
         for center, ends in ((j, ends_i), (k, ends_l)):
             if len(ends) > 1 and len(ends) == _positions(mol.GetAtomWithIdx(center)) - 1:
-                fold *= len(ends)
+                fold = math.lcm(fold, len(ends))
         spread = _circular_spread(values * fold) / fold
         if not spread > threshold:
             continue
