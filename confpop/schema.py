@@ -72,7 +72,7 @@ COLUMNS: tuple[Column, ...] = (
     Column(r"zpe", "zpe_{unit}", "float", "{energy}", "zero-point energy"),
     Column(r"lowest_frequency", "lowest_frequency_cm-1", "float", "cm-1",
            "lowest harmonic frequency"),
-    Column(r"max_gradient", "max_gradient_hartree_bohr", "float", "hartree/bohr",
+    Column(r"max_gradient", "max_gradient_hartree_angstrom", "float", "hartree/angstrom",
            "largest gradient component at the Hessian geometry"),
     Column(r"population_(.+)K", "population_{0}K", "float", "",
            "Boltzmann population at T (fraction of 1, degeneracy included)"),
