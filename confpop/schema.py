@@ -89,7 +89,7 @@ COLUMNS: tuple[Column, ...] = (
     Column(r"gradient_calls", "gradient_calls", "int", "", "gradient evaluations"),
     Column(r"minimum_check", "minimum_check", "str", "", "result of the symmetric-minimum check"),
     Column(r"species", "species", "int", "", "slow-exchange species number (0: lowest)"),
-    Column(r"species_label", "species_label", "str", "", "states of the slow bonds"),
+    Column(r"species_label", "species_label", "str", "", "states of the slow bonds (1-based atom labels)"),
     Column(r"symmetry_number", "symmetry_number", "int", "", "rotational symmetry number"),
     Column(r"imaginary_modes", "imaginary_modes", "int", "", "imaginary modes below the cut"),
     Column(r"mirror_of", "mirror_of", "int", "", "conformer this one is the mirror image of"),
