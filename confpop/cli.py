@@ -1262,17 +1262,22 @@ def _scan_work(args, temps, unit, workers, folder) -> int:
     from .torsion import _check_dihedral_atoms, scan_torsion, torsion_for_bond
 
     mol = load_molecule(args.input, charge=args.charge, multiplicity=args.multiplicity)
+    # the checks in the user's numbering come first, outside the renumbering below (a message
+    # already in 1-based labels must not be renumbered again)
+    option = "--bond" if args.bond is not None else "--torsion"
+    given = args.bond if args.bond is not None else args.torsion
+    chosen = _one_based_atoms(mol, given, option)
+    for a, b in zip(chosen, chosen[1:]):
+        if mol.GetBondBetweenAtoms(a, b) is None:
+            raise InputError(
+                f"{option} {' '.join(map(str, given))}: {atom_label(mol, a)} and "
+                f"{atom_label(mol, b)} are not bonded; give "
+                + ("two bonded atoms" if option == "--bond" else
+                   "four atoms in a bonded chain I-J-K-L") + f" ({LABEL_CONVENTION})")
     try:
         if args.bond is not None:
-            atoms = torsion_for_bond(mol, *_one_based_atoms(mol, args.bond, "--bond")).atoms
+            atoms = torsion_for_bond(mol, *chosen).atoms
         else:
-            chosen = _one_based_atoms(mol, args.torsion, "--torsion")
-            for a, b in zip(chosen, chosen[1:]):
-                if mol.GetBondBetweenAtoms(a, b) is None:
-                    raise InputError(
-                        f"--torsion {' '.join(map(str, args.torsion))}: {atom_label(mol, a)} and "
-                        f"{atom_label(mol, b)} are not bonded; give four atoms in a bonded "
-                        f"chain I-J-K-L ({LABEL_CONVENTION})")
             atoms = _check_dihedral_atoms(mol, chosen)
     except InputError as exc:  # torsion.py names atoms from 0
         raise InputError(one_based_labels(str(exc))) from None

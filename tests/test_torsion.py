@@ -515,6 +515,16 @@ def test_cli_scan_json_and_errors(butane_molfile, capsys):
     assert "C2" in err and "H8" in err  # the atoms as the user numbered them
     assert main(["scan", "CCCC", "--torsion", "0", "1", "2", "3", "--method", "model"]) == 2
     assert "atoms are numbered from 1" in capsys.readouterr().err
+    # atoms not bonded: named once, as the user numbered them (C2 and C4 are not bonded)
+    assert main(["scan", "CCCC", "--torsion", "1", "2", "4", "3", "--method", "model"]) == 2
+    assert capsys.readouterr().err.strip() == (
+        "confpop: error: --torsion 1 2 4 3: C2 and C4 are not bonded; give four atoms in a "
+        "bonded chain I-J-K-L (atoms numbered from 1, as in molecule viewers and the SDF atom "
+        "block)")
+    assert main(["scan", "CCCC", "--bond", "1", "4", "--method", "model"]) == 2
+    assert capsys.readouterr().err.strip() == (
+        "confpop: error: --bond 1 4: C1 and C4 are not bonded; give two bonded atoms (atoms "
+        "numbered from 1, as in molecule viewers and the SDF atom block)")
 
 
 def test_plot_torsion_profile(tmp_path):
