@@ -1509,6 +1509,30 @@ def _show_warning(message, category, filename, lineno, file=None, line=None):
         _default_show_warning(message, category, filename, lineno, file, line)
 
 
+#: library modules whose log lines name atoms from 0 (renumbered from 1 on the command line)
+_ZERO_BASED_LOGGERS = ("confpop.torsion", "confpop.torsion_scan", "confpop.torsion_profile",
+                       "confpop.interconversion")
+
+
+class _CautionHandler(__import__("logging").Handler):
+    """The library's log warnings on stderr as ``confpop: warning: ...``, one line each, atoms
+    numbered from 1 and Python argument names in command-line terms."""
+
+    def __init__(self):
+        import logging
+        super().__init__(level=logging.WARNING)
+
+    def emit(self, record):
+        try:
+            text = " ".join(record.getMessage().split())
+            if record.name in _ZERO_BASED_LOGGERS:
+                from .describe import one_based_labels
+                text = one_based_labels(text)
+            print(f"{_PROG}: warning: {_cli_terms(text)}", file=sys.stderr)
+        except Exception:  # a log line must never end a run
+            self.handleError(record)
+
+
 def main(argv=None) -> int:
     """Run the ``confpop`` command line; return the exit status.
 
@@ -1526,12 +1550,18 @@ def main(argv=None) -> int:
     import signal
     import warnings
 
+    import logging
+
     previous = _install_signal_handlers()
+    library_log = logging.getLogger("confpop")
+    caution_handler = _CautionHandler()
+    library_log.addHandler(caution_handler)
     try:
         with warnings.catch_warnings():
             warnings.showwarning = _show_warning
             return _main(argv)
     finally:
+        library_log.removeHandler(caution_handler)
         for number, handler in previous.items():
             signal.signal(number, handler)
 

@@ -543,3 +543,22 @@ def test_public_names():
     assert confpop.scan_torsion is scan_torsion
     assert confpop.rotatable_torsions is rotatable_torsions
     assert confpop.TorsionProfile is TorsionProfile
+
+
+def test_cli_scan_cautions_number_atoms_from_one(capsys):
+    # the hysteresis caution of the coupled-rotor model above, through the command line: one
+    # "confpop: warning:" line naming O1-C2-C3-O4 (the library's 0-based O0-C1-C2-O3), and no
+    # bare log line beside it
+    from confpop.backends import _REGISTRY, register_backend
+    register_backend("two-rotors-cli-test", TwoRotors)
+    try:
+        assert main(["scan", "OCCO", "--torsion", "1", "2", "3", "4", "--method",
+                     "two-rotors-cli-test", "--step", "30", "--workers", "1",
+                     "--convergence", "normal"]) == 0
+    finally:
+        _REGISTRY.pop("two-rotors-cli-test", None)
+    err = [line for line in capsys.readouterr().err.splitlines() if "[" not in line[:12]]
+    scan = [line for line in err if "up and down walks" in line]
+    assert len(scan) == 1
+    assert scan[0].startswith("confpop: warning: scan of O1-C2-C3-O4: the up and down walks")
+    assert all(line.startswith("confpop: ") for line in err), err
