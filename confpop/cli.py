@@ -702,6 +702,18 @@ def _add_couplings(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--json", action="store_true", help="print machine-readable JSON only")
 
 
+def _fit_warning_text(text: str) -> str:
+    """``FitResult.warning`` in command-line terms: atoms numbered from 1, options instead of
+    Python names."""
+    from .describe import one_based_labels
+
+    text = one_based_labels(text)
+    text = text.replace("(see minimal_subset)",
+                        "(see the smallest conformer set explaining the data, above)")
+    text = text.replace("pass species= to fit", "give --species N to fit")
+    return _cli_terms(text)
+
+
 def _renumber(frame):
     """A copy of a couplings table with atoms numbered from 1 (labels, indices, tuples)."""
     from .describe import one_based_labels
@@ -882,7 +894,8 @@ def _couplings_work(args, temps, observed, folder) -> int:
         payload["fit"] = {
             "temperature_K": fit.temperature, "chi2": fit.chi2,
             "chi2_boltzmann": fit.chi2_boltzmann, "n_observations": fit.n_observations,
-            "rms_deviation_hz": _json_number(fit.rms_deviation), "warning": fit.warning,
+            "rms_deviation_hz": _json_number(fit.rms_deviation),
+            "warning": _fit_warning_text(fit.warning),
             "minimal_subset": list(fit.minimal_subset) if fit.minimal_subset else None,
             "free_energy_unit": fit.unit,
             "conformers": [{"conformer": int(cid), **{k: _json_number(v) for k, v in r.items()}}
@@ -958,7 +971,7 @@ def _couplings_work(args, temps, observed, folder) -> int:
                 lines.append(f"{r.torsion:>24}  {r.family:<3} {r.population:6.3f} ± "
                              f"{r.population_std:5.3f}  (Boltzmann {r.boltzmann:.3f})")
         if fit.warning:
-            lines.append("warning: " + fit.warning)
+            lines.append("warning: " + _fit_warning_text(fit.warning))
     if args.plot:
         lines.append(f"wrote {args.plot}")
     if written:
