@@ -531,6 +531,7 @@ def _ensemble_work(args, temps, progress, folder) -> int:
     from .pipeline import search
     from .schema import solvent_model
 
+    _check_solvent(args)
     sources = [args.input]
     if args.enumerate_stereo:
         from .molecule import stereoisomers
@@ -1106,6 +1107,7 @@ def _run_batch(args: argparse.Namespace) -> int:
     from .batch import read_batch_input, search_many
 
     temps = _temperatures(args.temperature)
+    _check_solvent(args)
     if args.scheduler is not None and args.workers is not None:
         raise InputError("give either --scheduler or --workers, not both")
     args.workers = _cap_workers(args.workers)
@@ -1274,6 +1276,9 @@ def _scan_work(args, temps, unit, workers, folder) -> int:
     from .schema import solvent_model
     from .torsion import _check_dihedral_atoms, scan_torsion, torsion_for_bond
 
+    import re
+
+    _check_solvent(args)
     mol = load_molecule(args.input, charge=args.charge, multiplicity=args.multiplicity)
     # the checks in the user's numbering come first, outside the renumbering below (a message
     # already in 1-based labels must not be renumbered again)
@@ -1311,7 +1316,10 @@ def _scan_work(args, temps, unit, workers, folder) -> int:
                                    charge=args.charge, multiplicity=args.multiplicity,
                                    store=args.store)
         except InputError as exc:
-            raise InputError(one_based_labels(str(exc))) from None
+            text = one_based_labels(str(exc))
+            for pattern, replacement in _SCAN_TERMS:
+                text = re.sub(pattern, replacement, text)
+            raise InputError(text) from None
     finally:
         if executor is not None:
             executor.shutdown()
@@ -1465,7 +1473,37 @@ _CLI_TERMS = (
     (r"\(unit=; (--energy-unit)(?: on the command line)?\)", r"(\1)"),
     (r"\(uniform_weights=True; (--uniform-weights)\)", r"(\1)"),
     (r"uniform_weights=True", "--uniform-weights"),
+    (r"\(charge=\.\.\., command line (--charge)\)", r"(\1)"),
+    (r"\bcharge=([+-]?\d+)", r"--charge \1"),
+    (r"got solvent='([^']*)'", r"got --solvent \1"),
 )
+
+#: scan messages from confpop.torsion_scan (Python arguments -> the scan command's options)
+_SCAN_TERMS = (
+    (r"\bgot step=", "got --step "),
+    (r"^step must", "--step must"),
+    (r"\bstep=", "--step "),
+)
+
+
+def _check_solvent(args) -> None:
+    """--solvent with a --method that has no implicit solvent model: one error line before
+    any work (the library would find out only once sampling had started)."""
+    solvent = getattr(args, "solvent", None)
+    method = getattr(args, "method", None)
+    if solvent is None or not isinstance(method, str):
+        return
+    from .backends import available_backends, backend_class
+    if method.lower() not in available_backends():
+        return  # the unknown method gets its own message where it is used
+    try:
+        capabilities = backend_class(method.lower()).capabilities
+    except ConfpopError:
+        return  # a missing engine is reported where the method is used
+    if "solvent" not in capabilities:
+        raise InputError(f"--method {method} has no implicit solvent model; got --solvent "
+                         f"{solvent} (leave out --solvent, or choose a method with one, e.g. "
+                         "gfn2)")
 
 
 def _cli_terms(message: str) -> str:
