@@ -291,9 +291,16 @@ def _add_ensemble(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--report", default=None, metavar="FILE.html",
                         help="write one self-contained HTML report (job, cautions, table, "
                              "pictures, free energies; no network needed to open it)")
+    _add_overwrite(parser, "--plot/--report")
     parser.add_argument("--json", action="store_true", help="print machine-readable JSON only")
     parser.add_argument("--quiet", action="store_true",
                         help="no progress bars (and no per-stage lines when stderr is a log)")
+
+
+def _add_overwrite(parser, options: str) -> None:
+    parser.add_argument("--overwrite", action="store_true",
+                        help=f"let {options} replace an existing file that confpop did not "
+                             "write (one it wrote is replaced anyway)")
 
 
 def _cap_workers(workers):
@@ -456,9 +463,9 @@ def _run_ensemble(args: argparse.Namespace) -> int:
                          f"got {args.min_population:g}")
     args.workers = _cap_workers(args.workers)
     if args.plot:
-        _check_plot_path(args.plot)
+        _check_plot_path(args.plot, args.overwrite)
     if args.report:
-        _check_report_path(args.report)
+        _check_report_path(args.report, args.overwrite)
     _check_search_cost(args)
     progress = _progress_mode(args.quiet or args.json)
     folder = None
@@ -486,12 +493,12 @@ def _heartbeat(progress, text: str) -> None:
         print(f"{_PROG}: [{time.strftime('%H:%M:%S')}] {text}", file=sys.stderr, flush=True)
 
 
-def _check_report_path(path) -> None:
+def _check_report_path(path, replace: bool = False) -> None:
     import os
 
     from .outdir import check_output_file
 
-    check_output_file(path, "--report")
+    check_output_file(path, "--report", replace=replace)
     if os.path.splitext(str(path))[1].lower() not in (".html", ".htm"):
         raise InputError(f"--report {str(path)!r}: the file name must end in .html")
 
@@ -694,6 +701,7 @@ def _add_couplings(parser: argparse.ArgumentParser) -> None:
                              "conformers equally (default: refuse)")
     parser.add_argument("--plot", metavar="FILE.png", default=None,
                         help="write a figure: predicted vs observed with --observed, else J vs temperature")
+    _add_overwrite(parser, "--plot")
     parser.add_argument("--out", default=None, metavar="DIR",
                         help="write couplings.csv, couplings.json (and fit.csv with --observed) "
                              "into DIR (checked before any work; files confpop did not write "
@@ -763,13 +771,13 @@ def _plain(value):
     return value
 
 
-def _check_plot_path(path) -> None:
+def _check_plot_path(path, replace: bool = False) -> None:
     """--plot: a writable place and a format matplotlib knows, checked before any work."""
     import os
 
     from .outdir import check_output_file
 
-    check_output_file(path, "--plot")
+    check_output_file(path, "--plot", replace=replace)
     suffix = os.path.splitext(str(path))[1].lstrip(".").lower()
     known = ("png", "pdf", "svg", "svgz", "eps", "ps", "jpg", "jpeg", "tif", "tiff", "webp")
     if suffix not in known:
@@ -806,7 +814,7 @@ def _couplings_ensemble(args):
 def _run_couplings(args: argparse.Namespace) -> int:
     temps = _temperatures(args.temperature)
     if args.plot:
-        _check_plot_path(args.plot)
+        _check_plot_path(args.plot, args.overwrite)
     observed = None
     if args.observed:  # read before any work: a bad file fails at once
         observed = _observed_from_one(_read_observed(args.observed), args.observed)
@@ -1207,6 +1215,7 @@ def _add_scan(parser: argparse.ArgumentParser) -> None:
                         help="SQLite result store: reuse finished walks, resume an interrupted scan")
     parser.add_argument("--plot", default=None, metavar="FILE.png",
                         help="draw the profile (minima, maxima, barriers) to this file")
+    _add_overwrite(parser, "--plot")
     parser.add_argument("--out", default=None, metavar="DIR",
                         help="write profile.csv (every scan point), scan.json and profile.png "
                              "into DIR (checked before any work; files confpop did not write "
@@ -1249,7 +1258,7 @@ def _run_scan(args: argparse.Namespace) -> int:
     if args.delta_nu <= 0.0:
         raise InputError(f"--delta-nu must be > 0 Hz, got {args.delta_nu:g}")
     if args.plot:
-        _check_plot_path(args.plot)
+        _check_plot_path(args.plot, args.overwrite)
     if not 1.0 <= args.step <= 180.0:  # 0.001 deg asked for 360000 optimizations (960 MB)
         raise InputError(f"--step must be between 1 and 180 degrees, got {args.step:g}")
     workers = _cap_workers(args.workers)

@@ -77,7 +77,8 @@ def report_html(ens, *, temperatures=(298.15,), input_text: str | None = None,
     temps = [float(t) for t in temperatures]
     payload = ensemble_json(ens, temps, input_text=input_text, settings=settings)
     title = html.escape(f"Conformer ensemble of {input_text or ens.name}")
-    parts = [f"<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'>"
+    from .outdir import WRITTEN_MARK
+    parts = [f"<!DOCTYPE html><!-- {WRITTEN_MARK} --><html lang='en'><head><meta charset='utf-8'>"
              f"<title>{title}</title><style>{_STYLE}</style></head><body><h1>{title}</h1>"]
     job = {"input": input_text or ens.name, "molecule (SMILES)": ens.name,
            "method": ens.level, "solvent": payload.get("solvent_model") or "gas phase",
