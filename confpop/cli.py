@@ -374,7 +374,7 @@ def _ensemble_table_text(ens, temps, views=None, free: bool = False) -> str:
     """The conformer table: ΔE (and ΔG with --free-energy), degeneracy, populations per
     temperature, the torsions that distinguish the conformers, ring puckers that differ,
     hydrogen bonds and species; atoms numbered from 1."""
-    from .describe import LABEL_CONVENTION, describe_conformers
+    from .describe import ID_CONVENTION, LABEL_CONVENTION, describe_conformers
 
     rel = ens.energies("kcal/mol")
     views = views or {"": ens.populations(temps)}
@@ -398,7 +398,8 @@ def _ensemble_table_text(ens, temps, views=None, free: bool = False) -> str:
         head += f"  {'species':>7}"
     if hbonds is not None:
         head += "  H-bonds"
-    lines = [f"conformers (ΔE, ΔG in kcal/mol; dihedrals in degrees; {LABEL_CONVENTION})", head]
+    lines = [f"conformers (ΔE, ΔG in kcal/mol; dihedrals in degrees; {LABEL_CONVENTION}; "
+             f"{ID_CONVENTION})", head]
     for cid in ens.ids():
         line = f"{cid:>4}  {rel[cid]:>11.2f}  " + "".join(
             f"{gaps[t][cid]:>12.2f}  " for t in gaps) + f"{int(ens.degeneracy[cid]):>3}  " + "  ".join(
@@ -959,6 +960,8 @@ def _couplings_work(args, temps, observed, folder) -> int:
         lines.append(f"fit to {fit.n_observations} observations at {fit.temperature:g} K: "
                      f"chi2 {fit.chi2:.2f} (Boltzmann populations: {fit.chi2_boltzmann:.2f}); "
                      f"rms deviation {fit.rms_deviation:.2f} Hz")
+        from .describe import ID_CONVENTION
+        lines.append(f"populations per conformer ({ID_CONVENTION})")
         lines.append(f"{'conf':>4}  {'fitted':>7}  {'± std':>6}  {'Boltzmann':>9}  "
                      f"{'implied dG ' + fit.unit:>20}")
         for cid, r in fit.to_frame().iterrows():

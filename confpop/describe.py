@@ -38,7 +38,7 @@ from rdkit import Chem
 from .errors import InputError
 from .geometry import dihedral_at
 
-__all__ = ["atom_label", "one_based_labels", "LABEL_CONVENTION", "distinguishing_torsions", "ring_puckers",
+__all__ = ["atom_label", "one_based_labels", "LABEL_CONVENTION", "ID_CONVENTION", "distinguishing_torsions", "ring_puckers",
            "cremer_pople", "pucker_name", "hydrogen_bonds", "describe_conformers",
            "DISTINGUISHING_DEGREES"]
 
@@ -84,10 +84,26 @@ def one_based_labels(text: str) -> str:
     --------
     >>> one_based_labels("H7(C2)-H9(O3)")
     'H8(C3)-H10(O4)'
+    >>> one_based_labels("Se4-Ge0 and C2")   # any element
+    'Se5-Ge1 and C3'
     """
+    return _ATOM_LABEL.sub(lambda m: f"{m.group(1)}{int(m.group(2)) + 1}", str(text))
+
+
+def _atom_label_pattern():
+    """Any element symbol (RDKit's periodic table, 1-118) followed by a number, as a word."""
     import re
-    return re.sub(r"\b(H|C|N|O|S|P|F|Cl|Br|I|Si|B)(\d+)\b",
-                  lambda m: f"{m.group(1)}{int(m.group(2)) + 1}", str(text))
+    table = Chem.GetPeriodicTable()
+    symbols = sorted((table.GetElementSymbol(z) for z in range(1, 119)), key=len, reverse=True)
+    return re.compile(r"\b(" + "|".join(symbols) + r")(\d+)\b")
+
+
+_ATOM_LABEL = _atom_label_pattern()
+
+#: Said beside conformer ids wherever users see them: a conformer keeps one id in every file
+#: (ensemble.sdf names, table.csv, run.json, the --store) and in Python, so ids are not
+#: renumbered for the screen the way atom numbers are.
+ID_CONVENTION = "conformer ids from 0, the same in every file and in Python"
 
 
 def _labels(mol, atoms) -> str:

@@ -212,3 +212,13 @@ def test_two_symmetric_ends_repeat_on_the_lcm_of_their_folds(smiles, atoms, peri
             else:
                 assert len(found) == 1, (a, b)
                 assert found[0].spread == pytest.approx(expected, abs=0.5), (a, b)
+
+
+def test_one_based_labels_renumber_any_element_and_nothing_else():
+    from confpop.describe import one_based_labels
+    # element symbols from RDKit's periodic table; words and units are left alone
+    assert one_based_labels("Se4-Ge0, Sn12; C2 at 298K in H2O, step 30") == \
+        "Se5-Ge1, Sn13; C3 at 298K in H2O, step 30"
+    # atom_label is the 1-based form of the same numbers
+    mol = Chem.AddHs(Chem.MolFromSmiles("C[Se]C"))
+    assert one_based_labels(f"Se{1}") == atom_label(mol, 1) == "Se2"

@@ -299,6 +299,7 @@ def test_screen_and_sdf_species_labels_are_numbered_from_one(amide, tmp_path):
     from confpop.cli import _ensemble_table_text
     text = _ensemble_table_text(amide, [298.15])
     assert "atoms numbered from 1" in text
+    assert "conformer ids from 0, the same in every file and in Python" in text.splitlines()[0]
     assert "C2-N4 O3 cis to C6" in text and "C2-N4 O3 trans to C6" in text
     path = tmp_path / "amide.sdf"
     amide.to_sdf(path)
