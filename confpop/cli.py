@@ -398,7 +398,8 @@ def _ensemble_table_text(ens, temps, views=None, free: bool = False) -> str:
         head += f"  {'species':>7}"
     if hbonds is not None:
         head += "  H-bonds"
-    lines = [f"conformers (ΔE, ΔG in kcal/mol; dihedrals in degrees; {LABEL_CONVENTION}; "
+    energies = "ΔE, ΔG in kcal/mol" if gaps else "ΔE in kcal/mol"
+    lines = [f"conformers ({energies}; dihedrals in degrees; {LABEL_CONVENTION}; "
              f"{ID_CONVENTION})", head]
     for cid in ens.ids():
         line = f"{cid:>4}  {rel[cid]:>11.2f}  " + "".join(

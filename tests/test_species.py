@@ -300,6 +300,9 @@ def test_screen_and_sdf_species_labels_are_numbered_from_one(amide, tmp_path):
     text = _ensemble_table_text(amide, [298.15])
     assert "atoms numbered from 1" in text
     assert "conformer ids from 0, the same in every file and in Python" in text.splitlines()[0]
+    # no free energies here: the header names ΔE only (it said "ΔE, ΔG" without any ΔG)
+    assert text.splitlines()[0].startswith("conformers (ΔE in kcal/mol;")
+    assert "ΔG" not in text.splitlines()[0] and "ΔG" not in text.splitlines()[1]
     assert "C2-N4 O3 cis to C6" in text and "C2-N4 O3 trans to C6" in text
     path = tmp_path / "amide.sdf"
     amide.to_sdf(path)
