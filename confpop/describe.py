@@ -127,7 +127,10 @@ class DistinguishingTorsion:
     atoms : dict
         {conformer id: (i, j, k, l)} 0-based atoms the value was measured through.
     spread : float
-        Largest circular difference between two conformers, degrees.
+        Largest circular difference between two conformers, degrees, on ``period``.
+    period : float
+        Degrees after which the torsion repeats: 360, or 360/lcm(n1, n2) with symmetric tops
+        of n1- and n2-fold ends (120 for a CH3 end, 180 for an aryl-NMe2).
     """
 
     bond: tuple
@@ -135,6 +138,7 @@ class DistinguishingTorsion:
     values: dict
     atoms: dict
     spread: float
+    period: float = 360.0
 
     @property
     def column(self) -> str:
@@ -252,7 +256,7 @@ def distinguishing_torsions(mol: Chem.Mol, conf_ids=None, *,
             bond=(j, k), label=label,
             values={c: float(v) for c, v in zip(ids, values)},
             atoms={c: (pairs[p][0], j, k, pairs[p][1]) for c, p in zip(ids, choice)},
-            spread=spread))
+            spread=spread, period=360.0 / fold))
     order = sorted(range(len(found)), key=lambda k: (-scores[k], -found[k].spread))
     return [found[k] for k in order]
 

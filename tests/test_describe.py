@@ -212,6 +212,7 @@ def test_two_symmetric_ends_repeat_on_the_lcm_of_their_folds(smiles, atoms, peri
             else:
                 assert len(found) == 1, (a, b)
                 assert found[0].spread == pytest.approx(expected, abs=0.5), (a, b)
+                assert found[0].period == period
 
 
 def test_one_based_labels_renumber_any_element_and_nothing_else():
