@@ -291,9 +291,16 @@ def _add_ensemble(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--report", default=None, metavar="FILE.html",
                         help="write one self-contained HTML report (job, cautions, table, "
                              "pictures, free energies; no network needed to open it)")
+    _add_overwrite(parser, "--plot/--report")
     parser.add_argument("--json", action="store_true", help="print machine-readable JSON only")
     parser.add_argument("--quiet", action="store_true",
                         help="no progress bars (and no per-stage lines when stderr is a log)")
+
+
+def _add_overwrite(parser, options: str) -> None:
+    parser.add_argument("--overwrite", action="store_true",
+                        help=f"let {options} replace an existing file that confpop did not "
+                             "write (one it wrote is replaced anyway)")
 
 
 def _cap_workers(workers):
@@ -367,7 +374,7 @@ def _ensemble_table_text(ens, temps, views=None, free: bool = False) -> str:
     """The conformer table: ΔE (and ΔG with --free-energy), degeneracy, populations per
     temperature, the torsions that distinguish the conformers, ring puckers that differ,
     hydrogen bonds and species; atoms numbered from 1."""
-    from .describe import LABEL_CONVENTION, describe_conformers
+    from .describe import ID_CONVENTION, LABEL_CONVENTION, describe_conformers
 
     rel = ens.energies("kcal/mol")
     views = views or {"": ens.populations(temps)}
@@ -391,7 +398,9 @@ def _ensemble_table_text(ens, temps, views=None, free: bool = False) -> str:
         head += f"  {'species':>7}"
     if hbonds is not None:
         head += "  H-bonds"
-    lines = [f"conformers (ΔE, ΔG in kcal/mol; dihedrals in degrees; {LABEL_CONVENTION})", head]
+    energies = "ΔE, ΔG in kcal/mol" if gaps else "ΔE in kcal/mol"
+    lines = [f"conformers ({energies}; dihedrals in degrees; {LABEL_CONVENTION}; "
+             f"{ID_CONVENTION})", head]
     for cid in ens.ids():
         line = f"{cid:>4}  {rel[cid]:>11.2f}  " + "".join(
             f"{gaps[t][cid]:>12.2f}  " for t in gaps) + f"{int(ens.degeneracy[cid]):>3}  " + "  ".join(
@@ -456,9 +465,9 @@ def _run_ensemble(args: argparse.Namespace) -> int:
                          f"got {args.min_population:g}")
     args.workers = _cap_workers(args.workers)
     if args.plot:
-        _check_plot_path(args.plot)
+        _check_plot_path(args.plot, args.overwrite)
     if args.report:
-        _check_report_path(args.report)
+        _check_report_path(args.report, args.overwrite)
     _check_search_cost(args)
     progress = _progress_mode(args.quiet or args.json)
     folder = None
@@ -486,12 +495,12 @@ def _heartbeat(progress, text: str) -> None:
         print(f"{_PROG}: [{time.strftime('%H:%M:%S')}] {text}", file=sys.stderr, flush=True)
 
 
-def _check_report_path(path) -> None:
+def _check_report_path(path, replace: bool = False) -> None:
     import os
 
     from .outdir import check_output_file
 
-    check_output_file(path, "--report")
+    check_output_file(path, "--report", replace=replace)
     if os.path.splitext(str(path))[1].lower() not in (".html", ".htm"):
         raise InputError(f"--report {str(path)!r}: the file name must end in .html")
 
@@ -531,6 +540,7 @@ def _ensemble_work(args, temps, progress, folder) -> int:
     from .pipeline import search
     from .schema import solvent_model
 
+    _check_solvent(args)
     sources = [args.input]
     if args.enumerate_stereo:
         from .molecule import stereoisomers
@@ -693,6 +703,7 @@ def _add_couplings(parser: argparse.ArgumentParser) -> None:
                              "conformers equally (default: refuse)")
     parser.add_argument("--plot", metavar="FILE.png", default=None,
                         help="write a figure: predicted vs observed with --observed, else J vs temperature")
+    _add_overwrite(parser, "--plot")
     parser.add_argument("--out", default=None, metavar="DIR",
                         help="write couplings.csv, couplings.json (and fit.csv with --observed) "
                              "into DIR (checked before any work; files confpop did not write "
@@ -700,6 +711,18 @@ def _add_couplings(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--into-nonempty-folder", action="store_true",
                         help="allow an --out folder holding files confpop did not write")
     parser.add_argument("--json", action="store_true", help="print machine-readable JSON only")
+
+
+def _fit_warning_text(text: str) -> str:
+    """``FitResult.warning`` in command-line terms: atoms numbered from 1, options instead of
+    Python names."""
+    from .describe import one_based_labels
+
+    text = one_based_labels(text)
+    text = text.replace("(see minimal_subset)",
+                        "(see the smallest conformer set explaining the data, above)")
+    text = text.replace("pass species= to fit", "give --species N to fit")
+    return _cli_terms(text)
 
 
 def _renumber(frame):
@@ -750,13 +773,13 @@ def _plain(value):
     return value
 
 
-def _check_plot_path(path) -> None:
+def _check_plot_path(path, replace: bool = False) -> None:
     """--plot: a writable place and a format matplotlib knows, checked before any work."""
     import os
 
     from .outdir import check_output_file
 
-    check_output_file(path, "--plot")
+    check_output_file(path, "--plot", replace=replace)
     suffix = os.path.splitext(str(path))[1].lstrip(".").lower()
     known = ("png", "pdf", "svg", "svgz", "eps", "ps", "jpg", "jpeg", "tif", "tiff", "webp")
     if suffix not in known:
@@ -793,7 +816,7 @@ def _couplings_ensemble(args):
 def _run_couplings(args: argparse.Namespace) -> int:
     temps = _temperatures(args.temperature)
     if args.plot:
-        _check_plot_path(args.plot)
+        _check_plot_path(args.plot, args.overwrite)
     observed = None
     if args.observed:  # read before any work: a bad file fails at once
         observed = _observed_from_one(_read_observed(args.observed), args.observed)
@@ -882,7 +905,8 @@ def _couplings_work(args, temps, observed, folder) -> int:
         payload["fit"] = {
             "temperature_K": fit.temperature, "chi2": fit.chi2,
             "chi2_boltzmann": fit.chi2_boltzmann, "n_observations": fit.n_observations,
-            "rms_deviation_hz": _json_number(fit.rms_deviation), "warning": fit.warning,
+            "rms_deviation_hz": _json_number(fit.rms_deviation),
+            "warning": _fit_warning_text(fit.warning),
             "minimal_subset": list(fit.minimal_subset) if fit.minimal_subset else None,
             "free_energy_unit": fit.unit,
             "conformers": [{"conformer": int(cid), **{k: _json_number(v) for k, v in r.items()}}
@@ -937,6 +961,8 @@ def _couplings_work(args, temps, observed, folder) -> int:
         lines.append(f"fit to {fit.n_observations} observations at {fit.temperature:g} K: "
                      f"chi2 {fit.chi2:.2f} (Boltzmann populations: {fit.chi2_boltzmann:.2f}); "
                      f"rms deviation {fit.rms_deviation:.2f} Hz")
+        from .describe import ID_CONVENTION
+        lines.append(f"populations per conformer ({ID_CONVENTION})")
         lines.append(f"{'conf':>4}  {'fitted':>7}  {'± std':>6}  {'Boltzmann':>9}  "
                      f"{'implied dG ' + fit.unit:>20}")
         for cid, r in fit.to_frame().iterrows():
@@ -958,7 +984,7 @@ def _couplings_work(args, temps, observed, folder) -> int:
                 lines.append(f"{r.torsion:>24}  {r.family:<3} {r.population:6.3f} ± "
                              f"{r.population_std:5.3f}  (Boltzmann {r.boltzmann:.3f})")
         if fit.warning:
-            lines.append("warning: " + fit.warning)
+            lines.append("warning: " + _fit_warning_text(fit.warning))
     if args.plot:
         lines.append(f"wrote {args.plot}")
     if written:
@@ -1093,6 +1119,7 @@ def _run_batch(args: argparse.Namespace) -> int:
     from .batch import read_batch_input, search_many
 
     temps = _temperatures(args.temperature)
+    _check_solvent(args)
     if args.scheduler is not None and args.workers is not None:
         raise InputError("give either --scheduler or --workers, not both")
     args.workers = _cap_workers(args.workers)
@@ -1192,6 +1219,7 @@ def _add_scan(parser: argparse.ArgumentParser) -> None:
                         help="SQLite result store: reuse finished walks, resume an interrupted scan")
     parser.add_argument("--plot", default=None, metavar="FILE.png",
                         help="draw the profile (minima, maxima, barriers) to this file")
+    _add_overwrite(parser, "--plot")
     parser.add_argument("--out", default=None, metavar="DIR",
                         help="write profile.csv (every scan point), scan.json and profile.png "
                              "into DIR (checked before any work; files confpop did not write "
@@ -1234,7 +1262,7 @@ def _run_scan(args: argparse.Namespace) -> int:
     if args.delta_nu <= 0.0:
         raise InputError(f"--delta-nu must be > 0 Hz, got {args.delta_nu:g}")
     if args.plot:
-        _check_plot_path(args.plot)
+        _check_plot_path(args.plot, args.overwrite)
     if not 1.0 <= args.step <= 180.0:  # 0.001 deg asked for 360000 optimizations (960 MB)
         raise InputError(f"--step must be between 1 and 180 degrees, got {args.step:g}")
     workers = _cap_workers(args.workers)
@@ -1261,18 +1289,26 @@ def _scan_work(args, temps, unit, workers, folder) -> int:
     from .schema import solvent_model
     from .torsion import _check_dihedral_atoms, scan_torsion, torsion_for_bond
 
+    import re
+
+    _check_solvent(args)
     mol = load_molecule(args.input, charge=args.charge, multiplicity=args.multiplicity)
+    # the checks in the user's numbering come first, outside the renumbering below (a message
+    # already in 1-based labels must not be renumbered again)
+    option = "--bond" if args.bond is not None else "--torsion"
+    given = args.bond if args.bond is not None else args.torsion
+    chosen = _one_based_atoms(mol, given, option)
+    for a, b in zip(chosen, chosen[1:]):
+        if mol.GetBondBetweenAtoms(a, b) is None:
+            raise InputError(
+                f"{option} {' '.join(map(str, given))}: {atom_label(mol, a)} and "
+                f"{atom_label(mol, b)} are not bonded; give "
+                + ("two bonded atoms" if option == "--bond" else
+                   "four atoms in a bonded chain I-J-K-L") + f" ({LABEL_CONVENTION})")
     try:
         if args.bond is not None:
-            atoms = torsion_for_bond(mol, *_one_based_atoms(mol, args.bond, "--bond")).atoms
+            atoms = torsion_for_bond(mol, *chosen).atoms
         else:
-            chosen = _one_based_atoms(mol, args.torsion, "--torsion")
-            for a, b in zip(chosen, chosen[1:]):
-                if mol.GetBondBetweenAtoms(a, b) is None:
-                    raise InputError(
-                        f"--torsion {' '.join(map(str, args.torsion))}: {atom_label(mol, a)} and "
-                        f"{atom_label(mol, b)} are not bonded; give four atoms in a bonded "
-                        f"chain I-J-K-L ({LABEL_CONVENTION})")
             atoms = _check_dihedral_atoms(mol, chosen)
     except InputError as exc:  # torsion.py names atoms from 0
         raise InputError(one_based_labels(str(exc))) from None
@@ -1293,7 +1329,10 @@ def _scan_work(args, temps, unit, workers, folder) -> int:
                                    charge=args.charge, multiplicity=args.multiplicity,
                                    store=args.store)
         except InputError as exc:
-            raise InputError(one_based_labels(str(exc))) from None
+            text = one_based_labels(str(exc))
+            for pattern, replacement in _SCAN_TERMS:
+                text = re.sub(pattern, replacement, text)
+            raise InputError(text) from None
     finally:
         if executor is not None:
             executor.shutdown()
@@ -1447,7 +1486,37 @@ _CLI_TERMS = (
     (r"\(unit=; (--energy-unit)(?: on the command line)?\)", r"(\1)"),
     (r"\(uniform_weights=True; (--uniform-weights)\)", r"(\1)"),
     (r"uniform_weights=True", "--uniform-weights"),
+    (r"\(charge=\.\.\., command line (--charge)\)", r"(\1)"),
+    (r"\bcharge=([+-]?\d+)", r"--charge \1"),
+    (r"got solvent='([^']*)'", r"got --solvent \1"),
 )
+
+#: scan messages from confpop.torsion_scan (Python arguments -> the scan command's options)
+_SCAN_TERMS = (
+    (r"\bgot step=", "got --step "),
+    (r"^step must", "--step must"),
+    (r"\bstep=", "--step "),
+)
+
+
+def _check_solvent(args) -> None:
+    """--solvent with a --method that has no implicit solvent model: one error line before
+    any work (the library would find out only once sampling had started)."""
+    solvent = getattr(args, "solvent", None)
+    method = getattr(args, "method", None)
+    if solvent is None or not isinstance(method, str):
+        return
+    from .backends import available_backends, backend_class
+    if method.lower() not in available_backends():
+        return  # the unknown method gets its own message where it is used
+    try:
+        capabilities = backend_class(method.lower()).capabilities
+    except ConfpopError:
+        return  # a missing engine is reported where the method is used
+    if "solvent" not in capabilities:
+        raise InputError(f"--method {method} has no implicit solvent model; got --solvent "
+                         f"{solvent} (leave out --solvent, or choose a method with one, e.g. "
+                         "gfn2)")
 
 
 def _cli_terms(message: str) -> str:
@@ -1504,6 +1573,30 @@ def _show_warning(message, category, filename, lineno, file=None, line=None):
         _default_show_warning(message, category, filename, lineno, file, line)
 
 
+#: library modules whose log lines name atoms from 0 (renumbered from 1 on the command line)
+_ZERO_BASED_LOGGERS = ("confpop.torsion", "confpop.torsion_scan", "confpop.torsion_profile",
+                       "confpop.interconversion")
+
+
+class _CautionHandler(__import__("logging").Handler):
+    """The library's log warnings on stderr as ``confpop: warning: ...``, one line each, atoms
+    numbered from 1 and Python argument names in command-line terms."""
+
+    def __init__(self):
+        import logging
+        super().__init__(level=logging.WARNING)
+
+    def emit(self, record):
+        try:
+            text = " ".join(record.getMessage().split())
+            if record.name in _ZERO_BASED_LOGGERS:
+                from .describe import one_based_labels
+                text = one_based_labels(text)
+            print(f"{_PROG}: warning: {_cli_terms(text)}", file=sys.stderr)
+        except Exception:  # a log line must never end a run
+            self.handleError(record)
+
+
 def main(argv=None) -> int:
     """Run the ``confpop`` command line; return the exit status.
 
@@ -1521,12 +1614,18 @@ def main(argv=None) -> int:
     import signal
     import warnings
 
+    import logging
+
     previous = _install_signal_handlers()
+    library_log = logging.getLogger("confpop")
+    caution_handler = _CautionHandler()
+    library_log.addHandler(caution_handler)
     try:
         with warnings.catch_warnings():
             warnings.showwarning = _show_warning
             return _main(argv)
     finally:
+        library_log.removeHandler(caution_handler)
         for number, handler in previous.items():
             signal.signal(number, handler)
 

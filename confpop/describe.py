@@ -28,6 +28,7 @@ J. Am. Chem. Soc. 1975, 97, 1354-1358. doi:10.1021/ja00839a011
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -37,7 +38,7 @@ from rdkit import Chem
 from .errors import InputError
 from .geometry import dihedral_at
 
-__all__ = ["atom_label", "one_based_labels", "LABEL_CONVENTION", "distinguishing_torsions", "ring_puckers",
+__all__ = ["atom_label", "one_based_labels", "LABEL_CONVENTION", "ID_CONVENTION", "distinguishing_torsions", "ring_puckers",
            "cremer_pople", "pucker_name", "hydrogen_bonds", "describe_conformers",
            "DISTINGUISHING_DEGREES"]
 
@@ -50,9 +51,12 @@ STAR_NOTE = ("* an end atom chosen among symmetry-equivalent ones: in each confo
 
 #: degrees. A torsion "differs" when two conformers' canonical values are further apart than
 #: this. Measured (benchmarks/describe_threshold.py: GFN2-xTB/GBSA(chloroform) ensembles of
-#: five small molecules, 166 conformers, 25,236 pairwise torsion differences): one peak at
-#: 0-10 degrees (same well, 8,290 pairs), one at 110-120 (other well, 3,328), and a flat trough
-#: from 30 to 90 (193-378 pairs per 10-degree bin); 60 sits in its middle.
+#: five small molecules, 166 conformers; symmetric-top torsions included on their period,
+#: 360/lcm(n1, n2)): 31,077 pairwise torsion differences, one peak at 0-10 degrees (same well,
+#: 12,387 pairs), one at 110-120 (other well, 3,458), and a flat trough from 30 to 90 (195-378
+#: pairs per 10-degree bin); 60 sits in its middle. The symmetric-top torsions alone (5,841
+#: pairs): 5,613 within 0-30, 8 at 40-60, none at 60-90. (Before symmetric tops were included:
+#: 25,236 pairs, peaks 8,290 and 3,328, trough 193-378 per bin: the same threshold.)
 DISTINGUISHING_DEGREES = 60.0
 
 #: Angstrom and degrees: H...Y distance and X-H...Y angle of a hydrogen bond. The angle follows
@@ -83,10 +87,26 @@ def one_based_labels(text: str) -> str:
     --------
     >>> one_based_labels("H7(C2)-H9(O3)")
     'H8(C3)-H10(O4)'
+    >>> one_based_labels("Se4-Ge0 and C2")   # any element
+    'Se5-Ge1 and C3'
     """
+    return _ATOM_LABEL.sub(lambda m: f"{m.group(1)}{int(m.group(2)) + 1}", str(text))
+
+
+def _atom_label_pattern():
+    """Any element symbol (RDKit's periodic table, 1-118) followed by a number, as a word."""
     import re
-    return re.sub(r"\b(H|C|N|O|S|P|F|Cl|Br|I|Si|B)(\d+)\b",
-                  lambda m: f"{m.group(1)}{int(m.group(2)) + 1}", str(text))
+    table = Chem.GetPeriodicTable()
+    symbols = sorted((table.GetElementSymbol(z) for z in range(1, 119)), key=len, reverse=True)
+    return re.compile(r"\b(" + "|".join(symbols) + r")(\d+)\b")
+
+
+_ATOM_LABEL = _atom_label_pattern()
+
+#: Said beside conformer ids wherever users see them: a conformer keeps one id in every file
+#: (ensemble.sdf names, table.csv, run.json, the --store) and in Python, so ids are not
+#: renumbered for the screen the way atom numbers are.
+ID_CONVENTION = "conformer ids from 0, the same in every file and in Python"
 
 
 def _labels(mol, atoms) -> str:
@@ -110,7 +130,10 @@ class DistinguishingTorsion:
     atoms : dict
         {conformer id: (i, j, k, l)} 0-based atoms the value was measured through.
     spread : float
-        Largest circular difference between two conformers, degrees.
+        Largest circular difference between two conformers, degrees, on ``period``.
+    period : float
+        Degrees after which the torsion repeats: 360, or 360/lcm(n1, n2) with symmetric tops
+        of n1- and n2-fold ends (120 for a CH3 end, 180 for an aryl-NMe2).
     """
 
     bond: tuple
@@ -118,6 +141,7 @@ class DistinguishingTorsion:
     values: dict
     atoms: dict
     spread: float
+    period: float = 360.0
 
     @property
     def column(self) -> str:
@@ -214,10 +238,12 @@ def distinguishing_torsions(mol: Chem.Mol, conf_ids=None, *,
         # a symmetric top (every other position of an end taken by equivalent atoms: CH3, CF3,
         # a planar NMe2 or phenyl; not a pyramidal NH2, whose lone pair is a position too)
         # repeats every 360/n degrees: compare the values on that period
+        # with both ends symmetric the torsion repeats when either end's turn does: the
+        # combined period is 360/lcm(n1, n2) (CH3-CH3: 120, phenyl-NMe2: 180), not the product
         fold = 1
         for center, ends in ((j, ends_i), (k, ends_l)):
             if len(ends) > 1 and len(ends) == _positions(mol.GetAtomWithIdx(center)) - 1:
-                fold *= len(ends)
+                fold = math.lcm(fold, len(ends))
         spread = _circular_spread(values * fold) / fold
         if not spread > threshold:
             continue
@@ -233,7 +259,7 @@ def distinguishing_torsions(mol: Chem.Mol, conf_ids=None, *,
             bond=(j, k), label=label,
             values={c: float(v) for c, v in zip(ids, values)},
             atoms={c: (pairs[p][0], j, k, pairs[p][1]) for c, p in zip(ids, choice)},
-            spread=spread))
+            spread=spread, period=360.0 / fold))
     order = sorted(range(len(found)), key=lambda k: (-scores[k], -found[k].spread))
     return [found[k] for k in order]
 

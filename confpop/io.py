@@ -511,10 +511,17 @@ def write_csv(ens: Ensemble, path, temperatures=(298.15,), unit: str = "kcal/mol
     :func:`confpop.describe.describe_conformers` (``torsion_<labels>_deg`` with atoms
     numbered from 1, ``ring_<labels>`` pucker names, ``hydrogen_bonds``).
     """
-    from .describe import describe_conformers
     from .schema import file_columns
 
     unit = normalize_unit(unit)
+    table = _csv_table(ens, temperatures, unit)
+    table = table.rename(columns=file_columns(table.columns, unit))
+    table.to_csv(path)
+
+
+def _csv_table(ens: Ensemble, temperatures, unit: str, desc=None) -> pd.DataFrame:
+    """The columns of table.csv under their internal names (one builder for the file and
+    for run.json's description of it)."""
     table = ens.table(unit)
     temps = [float(t) for t in temperatures]
     if len(ens):
@@ -526,9 +533,11 @@ def write_csv(ens: Ensemble, path, temperatures=(298.15,), unit: str = "kcal/mol
                 table[f"delta_g_{t:g}K"] = g.reindex(table.index)
         for t in pops.columns:
             table[f"population_{t:g}K"] = pops[t].reindex(table.index)
-        table = table.join(describe_conformers(ens).table)
-    table = table.rename(columns=file_columns(table.columns, unit))
-    table.to_csv(path)
+        if desc is None:
+            from .describe import describe_conformers
+            desc = describe_conformers(ens)
+        table = table.join(desc.table)
+    return table
 
 
 def ensemble_json(ens: Ensemble, temperatures=(298.15,), input_text: str | None = None,
@@ -580,10 +589,8 @@ def ensemble_json(ens: Ensemble, temperatures=(298.15,), input_text: str | None 
         payload["descriptions"] = desc.to_dict()
     if settings:
         payload["settings"] = _jsonable(settings)
-    table_columns = list(shown.columns) + [f"population_{t:g}K" for t in temps]
-    try:
-        payload["table_columns"] = describe_written(table_columns)
-    except InputError:
-        pass
+    # every column of table.csv (written in kcal/mol by the command line), with its unit
+    payload["table_columns"] = describe_written(
+        list(_csv_table(ens, temps, "kcal/mol", desc=desc).columns), "kcal/mol")
     payload["provenance"] = _jsonable(ens.provenance)
     return payload

@@ -33,7 +33,8 @@ from pathlib import Path
 
 from .errors import InputError, OutputError
 
-__all__ = ["OutputFolder", "MANIFEST", "LOCK", "atomic_write", "check_output_file"]
+__all__ = ["OutputFolder", "MANIFEST", "LOCK", "atomic_write", "check_output_file",
+           "WRITTEN_MARK", "written_by_confpop"]
 
 log = logging.getLogger(__name__)
 
@@ -97,9 +98,39 @@ def atomic_write(final, write) -> None:
         raise
 
 
-def check_output_file(path, option: str) -> Path:
+#: Put into every single file confpop writes outside an output folder (a figure's
+#: Creator/Software metadata, a comment in an HTML report), so that a later run can tell its
+#: own file, which it may replace, from anyone else's, which it never does.
+WRITTEN_MARK = "written by confpop"
+
+
+def written_by_confpop(path) -> bool:
+    """Whether the file at ``path`` carries :data:`WRITTEN_MARK` (in its first MiB or last
+    64 KiB, where PNG text chunks, PDF/SVG/PS metadata and the HTML comment sit)."""
+    mark = WRITTEN_MARK.encode()
+    try:
+        with open(path, "rb") as fh:
+            head = fh.read(1 << 20)
+            if mark in head:
+                return True
+            fh.seek(0, os.SEEK_END)
+            size = fh.tell()
+            if size <= len(head):
+                return False
+            fh.seek(max(size - (1 << 16), 0))
+            return mark in fh.read()
+    except OSError:
+        return False
+
+
+def check_output_file(path, option: str, *, replace: bool = False,
+                      replace_option: str = "--overwrite") -> Path:
     """Check before any work that a file can be written at ``path`` (its folder exists and
-    is writable, and ``path`` is not a folder); return it as a Path."""
+    is writable, and ``path`` is not a folder); return it as a Path.
+
+    An existing file that confpop did not write (no :data:`WRITTEN_MARK`) is refused unless
+    ``replace``: confpop never replaces what it did not write without being told to
+    (``replace_option`` names how)."""
     if isinstance(path, bytes) or not isinstance(path, (str, os.PathLike)) or not str(path):
         raise InputError(f"{option} must be a file path, got {path!r}")
     path = Path(path).expanduser()
@@ -112,6 +143,9 @@ def check_output_file(path, option: str) -> Path:
         raise InputError(f"{option} {str(path)!r}: the folder {str(folder)!r} is not writable")
     if path.exists() and not os.access(path, os.W_OK):
         raise InputError(f"{option} {str(path)!r} exists and is not writable")
+    if path.exists() and not replace and not written_by_confpop(path):
+        raise InputError(f"{option} {str(path)!r} exists and was not written by confpop; "
+                         f"choose another file name, or give {replace_option} to replace it")
     return path
 
 

@@ -30,7 +30,22 @@ def _save(fig, path):
     # under a temporary name, renamed when complete: a full disk leaves no partial figure
     if path is not None:
         from .outdir import atomic_write
-        atomic_write(path, lambda temporary: fig.savefig(temporary, dpi=150))
+        atomic_write(path, lambda temporary: fig.savefig(temporary, dpi=150,
+                                                         metadata=_mark(temporary)))
+
+
+def _mark(path) -> dict | None:
+    """Figure metadata that tells a later run this file is confpop's (outdir.WRITTEN_MARK);
+    only for the formats whose metadata matplotlib writes as plain text."""
+    from pathlib import Path
+
+    from .outdir import WRITTEN_MARK
+    suffix = Path(path).suffix.lower()
+    if suffix == ".png":
+        return {"Software": WRITTEN_MARK}
+    if suffix in (".pdf", ".svg", ".ps", ".eps"):
+        return {"Creator": WRITTEN_MARK}
+    return None
 
 
 def coupling_parity_plot(fit, path=None, ax=None, show_boltzmann: bool = True,

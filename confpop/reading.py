@@ -328,7 +328,7 @@ def _read_xyz(path, text, charge):
         for i, (a, b) in enumerate(zip(elements, elements0)):
             if a != b:
                 raise InputError(
-                    f"frame {number} of {path}: atom {i} is {_PT.GetElementSymbol(a)}, in frame "
+                    f"frame {number} of {path}: atom {i + 1} is {_PT.GetElementSymbol(a)}, in frame "
                     f"1 it is {_PT.GetElementSymbol(b)}; frames must list the atoms in the "
                     f"same order")
     electrons = sum(elements0) - charge

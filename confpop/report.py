@@ -69,7 +69,7 @@ def report_html(ens, *, temperatures=(298.15,), input_text: str | None = None,
                 couplings: bool = True, profile=None, top: int = 4) -> str:
     """The report as one HTML string (see :func:`write_report`)."""
     from . import plot
-    from .describe import DISTINGUISHING_DEGREES, LABEL_CONVENTION, STAR_NOTE
+    from .describe import DISTINGUISHING_DEGREES, ID_CONVENTION, LABEL_CONVENTION, STAR_NOTE
     from .io import ensemble_json
 
     if not len(ens):
@@ -77,7 +77,8 @@ def report_html(ens, *, temperatures=(298.15,), input_text: str | None = None,
     temps = [float(t) for t in temperatures]
     payload = ensemble_json(ens, temps, input_text=input_text, settings=settings)
     title = html.escape(f"Conformer ensemble of {input_text or ens.name}")
-    parts = [f"<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'>"
+    from .outdir import WRITTEN_MARK
+    parts = [f"<!DOCTYPE html><!-- {WRITTEN_MARK} --><html lang='en'><head><meta charset='utf-8'>"
              f"<title>{title}</title><style>{_STYLE}</style></head><body><h1>{title}</h1>"]
     job = {"input": input_text or ens.name, "molecule (SMILES)": ens.name,
            "method": ens.level, "solvent": payload.get("solvent_model") or "gas phase",
@@ -109,7 +110,7 @@ def report_html(ens, *, temperatures=(298.15,), input_text: str | None = None,
                       "the most populated conformers"))
     note = (f"<p>Energies relative to the lowest conformer; populations are fractions of 1 with "
             f"degeneracy included; dihedrals in degrees through the atoms named "
-            f"({html.escape(LABEL_CONVENTION)}); only torsions that differ by more than "
+            f"({html.escape(LABEL_CONVENTION)}; {html.escape(ID_CONVENTION)}); only torsions that differ by more than "
             f"{DISTINGUISHING_DEGREES:g}° between conformers are listed"
             f"{'; ' + STAR_NOTE if any('*' in c for c in table.columns) else ''}.</p>")
     parts.append("<h2>Conformers</h2>" + note + _table(table[major], text_cols))
@@ -181,7 +182,13 @@ def _rates_section(profile, temps) -> str:
                           f"barrier/{profile.unit}": rates["barrier_forward"],
                           "T/K": rates["temperature"], "k/s⁻¹": rates["k_forward"],
                           "t½": [kinetics.format_duration(v) for v in rates["half_life_forward"]]})
-    return ("<h2>Torsion scan and rates</h2>" + _img(plot.plot_torsion_profile(profile), "profile")
+    # the profile's own label numbers atoms from 0 (confpop.torsion); the report from 1
+    shown = (one_based_labels(profile.label) if profile.label
+             else "-".join(str(int(a) + 1) for a in profile.atoms))
+    title = (f"{shown}  ({'relaxed' if profile.relaxed else 'rigid'}, "
+             f"{profile.method or 'unstated method'}; atoms numbered from 1)")
+    return (f"<h2>Torsion scan and rates: {html.escape(shown)}</h2>"
+            + _img(plot.plot_torsion_profile(profile, title=title), "profile")
             + _table(frame, ("t½",)))
 
 

@@ -204,7 +204,7 @@ def torsion_for_bond(mol: Chem.Mol, j: int, k: int) -> Torsion:
     """
     _check_index(mol, (j, k))
     if mol.GetBondBetweenAtoms(int(j), int(k)) is None:
-        raise InputError(f"--bond atoms {j} and {k} are not bonded "
+        raise InputError(f"atoms {j} and {k} (0-based) are not bonded "
                          f"({_label(mol, int(j))}, {_label(mol, int(k))})")
     ranks = list(Chem.CanonicalRankAtoms(mol, breakTies=False))
     bond = mol.GetBondBetweenAtoms(int(j), int(k))

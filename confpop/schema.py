@@ -4,8 +4,10 @@ Inside confpop the table keeps short names (``energy_gfn2``, ``gcorr_298.15``; h
 :attr:`Ensemble.raw_table`, the chosen unit in :meth:`Ensemble.table`). Every file a user
 reads (``table.csv``, the SD properties) uses the written names declared here, with the unit
 in every name that carries one: ``energy_gfn2_rel_kcal_mol``, ``gcorr_298.15K_kcal_mol``.
-A column without a declaration is an error in :func:`file_columns`, so a new column cannot
-reach a file without a unit.
+A column without a declaration (one a user added with ``Ensemble.with_column``) is written
+under its own name, unchanged, and described in ``run.json`` with the unit "unknown":
+confpop cannot know what a user's column measures. Every column confpop makes itself is
+declared here (tests/test_io_files.py checks that).
 
 Examples
 --------
@@ -72,7 +74,7 @@ COLUMNS: tuple[Column, ...] = (
     Column(r"zpe", "zpe_{unit}", "float", "{energy}", "zero-point energy"),
     Column(r"lowest_frequency", "lowest_frequency_cm-1", "float", "cm-1",
            "lowest harmonic frequency"),
-    Column(r"max_gradient", "max_gradient_hartree_bohr", "float", "hartree/bohr",
+    Column(r"max_gradient", "max_gradient_hartree_angstrom", "float", "hartree/angstrom",
            "largest gradient component at the Hessian geometry"),
     Column(r"population_(.+)K", "population_{0}K", "float", "",
            "Boltzmann population at T (fraction of 1, degeneracy included)"),
@@ -89,7 +91,7 @@ COLUMNS: tuple[Column, ...] = (
     Column(r"gradient_calls", "gradient_calls", "int", "", "gradient evaluations"),
     Column(r"minimum_check", "minimum_check", "str", "", "result of the symmetric-minimum check"),
     Column(r"species", "species", "int", "", "slow-exchange species number (0: lowest)"),
-    Column(r"species_label", "species_label", "str", "", "states of the slow bonds"),
+    Column(r"species_label", "species_label", "str", "", "states of the slow bonds (1-based atom labels)"),
     Column(r"symmetry_number", "symmetry_number", "int", "", "rotational symmetry number"),
     Column(r"imaginary_modes", "imaginary_modes", "int", "", "imaginary modes below the cut"),
     Column(r"mirror_of", "mirror_of", "int", "", "conformer this one is the mirror image of"),
@@ -112,9 +114,17 @@ def column_spec(name: str) -> tuple[Column, tuple]:
                      "(give it a written name and a unit there)")
 
 
+#: the unit run.json gives a column confpop did not make (a user's with_column)
+UNKNOWN_UNIT = "unknown"
+
+
 def file_name(name: str, unit: str = "kcal/mol") -> str:
-    """The written name of an internal column, with ``unit`` for energy-like columns."""
-    col, groups = column_spec(name)
+    """The written name of an internal column, with ``unit`` for energy-like columns; a
+    column without a declaration keeps its name."""
+    try:
+        col, groups = column_spec(name)
+    except InputError:
+        return str(name)
     return col.written.format(*groups, unit=unit_suffix(unit))
 
 
@@ -130,7 +140,12 @@ def describe_written(names, unit: str = "kcal/mol") -> dict:
     """{written name: {"unit", "dtype", "meaning"}} for run.json."""
     out = {}
     for name in names:
-        col, groups = column_spec(name)
+        try:
+            col, groups = column_spec(name)
+        except InputError:  # a user's own column: written unchanged, unit unknown
+            out[str(name)] = {"unit": UNKNOWN_UNIT, "dtype": "", "meaning": "a column added "
+                              "by the user (Ensemble.with_column), written as given"}
+            continue
         out[col.written.format(*groups, unit=unit_suffix(unit))] = {
             "unit": col.unit.replace("{energy}", unit), "dtype": col.dtype,
             "meaning": col.meaning}

@@ -89,7 +89,8 @@ class SlowBond:
         The reference dihedral (0-based): for an amide O=C-N-R with R the N-substituent
         named in the label; for a biaryl axis the two ortho atoms on the substituted side.
     label : str
-        E.g. "C1(=O)-N3" or "C2-C8 axis".
+        Atoms numbered from 1 like every label users see (``atoms`` stay 0-based Python
+        indices), e.g. "C2(=O)-N4" or "C3-C9".
     barrier_range : (float, float), kcal/mol
     """
 
@@ -114,7 +115,7 @@ class SlowBond:
 
     def describe(self, state: str, mol: Chem.Mol) -> str:
         i, j, k, l = self.atoms
-        sym = [f"{mol.GetAtomWithIdx(a).GetSymbol()}{a}" for a in self.atoms]
+        sym = [f"{mol.GetAtomWithIdx(a).GetSymbol()}{a + 1}" for a in self.atoms]  # 1-based
         if self.kind == "hindered biaryl":
             return f"{sym[1]}-{sym[2]} axis {state}"
         if self.kind == "stereocentre":
@@ -155,7 +156,7 @@ def _amide_bonds(mol, ranks):
                 continue  # NH2, NMe2, N-piperidinyl ...: both states are the same molecule
             # the reference substituent: heavy before H, then the higher canonical rank
             ref = max(subs, key=lambda a: (a.GetAtomicNum() > 1, ranks[a.GetIdx()]))
-            sym_c, sym_n = f"C{c.GetIdx()}", f"N{n.GetIdx()}"
+            sym_c, sym_n = f"C{c.GetIdx() + 1}", f"N{n.GetIdx() + 1}"
             label = f"{sym_c}(={x.GetSymbol()})-{sym_n}"
             out.append(SlowBond(kind, (x.GetIdx(), c.GetIdx(), n.GetIdx(), ref.GetIdx()), label,
                                 SLOW_CLASSES[kind]))
@@ -205,7 +206,7 @@ def _biaryl_bonds(mol, ranks):
             ends.append(ref.GetIdx())
         if len(ends) != 2 or n_subst < 2:
             continue
-        label = f"{a.GetSymbol()}{a.GetIdx()}-{b.GetSymbol()}{b.GetIdx()}"
+        label = f"{a.GetSymbol()}{a.GetIdx() + 1}-{b.GetSymbol()}{b.GetIdx() + 1}"
         out.append(SlowBond("hindered biaryl", (ends[0], a.GetIdx(), b.GetIdx(), ends[1]),
                             label, SLOW_CLASSES["hindered biaryl"]))
     return out
@@ -237,7 +238,7 @@ def _double_bonds(mol, ranks):
             hetero = any(x.GetAtomicNum() in (7, 8) for x in n_atom.GetNeighbors()
                          if x.GetIdx() not in (a.GetIdx(), b.GetIdx()))
             kind = "oxime/hydrazone E/Z" if hetero else "imine E/Z"
-        label = f"{a.GetSymbol()}{a.GetIdx()}={b.GetSymbol()}{b.GetIdx()}"
+        label = f"{a.GetSymbol()}{a.GetIdx() + 1}={b.GetSymbol()}{b.GetIdx() + 1}"
         out.append(SlowBond(kind, (refs[0], a.GetIdx(), b.GetIdx(), refs[1]), label,
                             SLOW_CLASSES[kind]))
     return out
@@ -251,7 +252,7 @@ def _stereocentres(mol):
         nbrs = [n.GetIdx() for n in mol.GetAtomWithIdx(idx).GetNeighbors()]
         if len(nbrs) < 3:
             continue
-        label = f"{mol.GetAtomWithIdx(idx).GetSymbol()}{idx}"
+        label = f"{mol.GetAtomWithIdx(idx).GetSymbol()}{idx + 1}"
         out.append(SlowBond("stereocentre", (nbrs[0], idx, nbrs[1], nbrs[2]), label,
                             SLOW_CLASSES["stereocentre"]))
     return out
@@ -272,7 +273,7 @@ def slow_bonds(mol: Chem.Mol) -> list[SlowBond]:
     --------
     >>> from rdkit import Chem
     >>> [b.label for b in slow_bonds(Chem.AddHs(Chem.MolFromSmiles("CC(=O)N(C)Cc1ccccc1")))]
-    ['C1(=O)-N3']
+    ['C2(=O)-N4']
     >>> slow_bonds(Chem.AddHs(Chem.MolFromSmiles("CC(=O)N(C)C")))   # both N-methyls alike
     []
     """
@@ -296,8 +297,8 @@ def species_table(ens, ids=None) -> pd.DataFrame:
     pandas.DataFrame
         Indexed by conformer id: ``species`` (int; 0 for the species holding the lowest
         conformer at the ranking level when energies are known, then in order of first
-        appearance) and ``species_label`` (e.g. "C1-N3 O2 cis to C4"; "" when the molecule
-        has no slow bond).
+        appearance) and ``species_label`` (e.g. "C2-N4 O3 cis to C5"; "" when the molecule
+        has no slow bond); atoms in labels are numbered from 1, as in molecule viewers.
     """
     if isinstance(ens, Chem.Mol):
         mol = ens

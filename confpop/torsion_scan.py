@@ -399,7 +399,8 @@ def scan_torsion(molecule, atoms, method=_SCAN.method, solvent=_SCAN.solvent,
     factor = convert(1.0, "hartree", unit)
     rel = (energy_h - ref) * factor
     rel_up, rel_down = (col("up") - ref) * factor, (col("down") - ref) * factor
-    hyst = _hysteresis(records, rel_up, rel_down, threshold, atoms, unit) if relaxed else []
+    hyst = (_hysteresis(records, rel_up, rel_down, threshold,
+                       "-".join(_label(mol, a) for a in atoms), unit) if relaxed else [])
     positions = np.full((len(records), mol.GetNumAtoms(), 3), np.nan)
     for m, r in enumerate(records):
         if r["positions"] is not None:
@@ -429,8 +430,9 @@ def _single_conformer(mol, conf_id):
     return single
 
 
-def _hysteresis(records, rel_up, rel_down, threshold, atoms, unit) -> list:
-    """(angle, |E_up - E_down|) where the two walks differ by more than ``threshold``."""
+def _hysteresis(records, rel_up, rel_down, threshold, label, unit) -> list:
+    """(angle, |E_up - E_down|) where the two walks differ by more than ``threshold``;
+    ``label``: the dihedral's atom labels (0-based, as in this module's other messages)."""
     hyst = []
     both = np.isfinite(rel_up) & np.isfinite(rel_down)
     for m in np.flatnonzero(both & (np.abs(rel_up - rel_down) > threshold)):
@@ -438,7 +440,7 @@ def _hysteresis(records, rel_up, rel_down, threshold, atoms, unit) -> list:
     if hyst:
         caution(log, ScanWarning, "scan of %s: the up and down walks differ by more than "
                 "%.2f %s at %s degrees (a neighbouring group changed during the scan)",
-                atoms, threshold, unit, ", ".join(f"{a:g}" for a, _ in hyst), stacklevel=4)
+                label, threshold, unit, ", ".join(f"{a:g}" for a, _ in hyst), stacklevel=4)
     return hyst
 
 

@@ -13,7 +13,7 @@ import html
 
 import pandas as pd
 
-from .describe import describe_conformers, one_based_labels
+from .describe import ID_CONVENTION, describe_conformers, one_based_labels
 from .errors import InputError
 
 __all__ = ["conformer_table", "ensemble_html", "profile_html", "fit_html", "batch_html"]
@@ -71,7 +71,8 @@ def ensemble_html(ens, temperature: float = 298.15, rows: int = 12) -> str:
     n_fail = len(ens.raw_table) - len(ens)
     caption = (f"Ensemble {ens.name}: {len(ens)} conformers"
                + (f" (+{n_fail} failed)" if n_fail else "")
-               + f", level {ens.level}, {model}; populations at {float(temperature):g} K")
+               + f", level {ens.level}, {model}; populations at {float(temperature):g} K; "
+               + ID_CONVENTION)
     if not len(ens):
         return f"<p><b>{html.escape(caption)}</b></p>"
     table, _ = conformer_table(ens, [float(temperature)], free=False)
@@ -85,7 +86,9 @@ def ensemble_html(ens, temperature: float = 298.15, rows: int = 12) -> str:
 def profile_html(profile) -> str:
     """Jupyter view of a TorsionProfile: minima, maxima and barriers in its unit."""
     kind = "relaxed" if profile.relaxed else "rigid"
-    caption = (f"Torsion profile {one_based_labels(profile.label) if profile.label else profile.atoms}"
+    shown = (one_based_labels(profile.label) if profile.label
+             else "atoms " + ", ".join(str(int(a) + 1) for a in profile.atoms))
+    caption = (f"Torsion profile {shown}"
                f" (atoms numbered from 1; {kind}, {profile.method}); energies in {profile.unit}, "
                f"angles in degrees")
     parts = [_frame_html(profile.minima(), caption + " - minima", 2),

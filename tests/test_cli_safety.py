@@ -87,6 +87,48 @@ def test_plot_path_checked_before_any_work(tmp_path, capsys, monkeypatch, plot, 
     assert re.search(message, one_error_line(capsys))
 
 
+@pytest.mark.parametrize("option, name", [("--plot", "populations.png"),
+                                          ("--report", "report.html")])
+def test_plot_and_report_never_replace_a_file_confpop_did_not_write(tmp_path, capsys, option,
+                                                                     name, no_search):
+    target = tmp_path / name
+    target.write_bytes(b"a user's file\n")
+    assert main(["ensemble", "CCO", "--method", "mmff94s", option, str(target)]) == 2
+    line = one_error_line(capsys)
+    assert line == (f"confpop: error: {option} '{target}' exists and was not written by "
+                    "confpop; choose another file name, or give --overwrite to replace it")
+    assert target.read_bytes() == b"a user's file\n"
+
+
+def test_plot_and_report_replace_their_own_files_and_foreign_ones_when_told(tmp_path, capsys):
+    from confpop.outdir import written_by_confpop
+
+    png, html = tmp_path / "p.png", tmp_path / "r.html"
+    run = ["ensemble", "CCO", "--method", "mmff94s", "--workers", "1", "--plot", str(png),
+           "--report", str(html)]
+    assert main(run) == 0
+    assert written_by_confpop(png) and written_by_confpop(html)
+    assert main(run) == 0          # its own files: replaced without being told
+    capsys.readouterr()
+    png.write_bytes(b"a user's picture\n")
+    assert main(run) == 2
+    assert png.read_bytes() == b"a user's picture\n"
+    capsys.readouterr()
+    assert main(run + ["--overwrite"]) == 0
+    assert written_by_confpop(png)
+
+
+def test_scan_and_couplings_plots_are_checked_the_same_way(tmp_path, capsys):
+    target = tmp_path / "profile.png"
+    target.write_bytes(b"a user's file\n")
+    assert main(["scan", "CCCC", "--bond", "2", "3", "--method", "model", "--rigid",
+                 "--plot", str(target)]) == 2
+    assert "was not written by confpop" in one_error_line(capsys)
+    assert main(["scan", "CCCC", "--bond", "2", "3", "--method", "model", "--rigid",
+                 "--step", "30", "--plot", str(target), "--overwrite"]) == 0
+    assert target.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+
+
 def test_a_full_disk_names_the_file_and_leaves_no_partial_file(tmp_path, capsys, monkeypatch):
     from confpop.ensemble import Ensemble
 

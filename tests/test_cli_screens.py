@@ -48,6 +48,7 @@ def test_a_log_gets_one_timestamped_line_per_stage(capsys):
     assert any(s.startswith("free energies: 2 of 2 done") for s in stages)
     assert "gas phase" in captured.out.splitlines()[0]
     assert "ΔG(298.15 K)" in captured.out  # --free-energy shows the ΔG column
+    assert "conformers (ΔE, ΔG in kcal/mol;" in captured.out  # and the header names it
     assert main(["ensemble", "CCCC", "--method", "mmff94s", "--quiet"]) == 0
     assert "confpop: [" not in capsys.readouterr().err
 

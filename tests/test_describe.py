@@ -75,10 +75,13 @@ def test_cyclohexane_is_a_chair_with_the_known_amplitude():
     assert desc.ring_summary() == ["ring C1-C2-C3-C4-C5-C6: chair in every conformer"]
 
 
-def _with_dihedrals(smiles, settings, seed=11):
-    """A molecule with one conformer per entry of settings ({(i, j, k, l): degrees})."""
+def _with_dihedrals(smiles, settings, seed=11, relax=False):
+    """A molecule with one conformer per entry of settings ({(i, j, k, l): degrees});
+    relax: MMFF-optimise the embedded geometry first (regular symmetric tops)."""
     mol = Chem.AddHs(Chem.MolFromSmiles(smiles))
     AllChem.EmbedMolecule(mol, randomSeed=seed)
+    if relax:
+        AllChem.MMFFOptimizeMolecule(mol)
     base = Chem.Conformer(mol.GetConformer())
     mol.RemoveAllConformers()
     for values in settings:
@@ -184,3 +187,39 @@ def test_pucker_shares_add_up_per_ring():
         mol.AddConformer(conf, assignId=True)
     shares = describe_conformers(mol).pucker_shares({0: 0.7, 1: 0.3})  # invented populations
     assert shares == {"C1-C2-C3-C4-C5-C6": {"chair": pytest.approx(0.7), "planar": pytest.approx(0.3)}}
+
+
+@pytest.mark.parametrize("smiles, atoms, period, relax", [
+    # p-tolyl-NMe2: a planar NMe2 (2-fold) on a phenyl (2-fold) repeats every 180 degrees
+    # (the embedded geometry keeps NMe2 planar; MMFF puckers it slightly)
+    ("Cc1ccc(N(C)C)cc1", (3, 4, 5, 6), 180.0, False),
+    # ethane: two 3-fold methyl tops repeat every 120 degrees (relaxed: regular methyls)
+    ("CC", (2, 0, 1, 5), 120.0, True),
+])
+def test_two_symmetric_ends_repeat_on_the_lcm_of_their_folds(smiles, atoms, period, relax):
+    # brute force over a 2D grid of dihedral pairs: the reported spread is the circular
+    # distance of the two settings modulo the combined period 360/lcm(n1, n2) (an end of n
+    # equivalent atoms turned by 360/n is the same molecule; common practice)
+    grid = np.arange(0.0, 360.0, 30.0)
+    for a in grid:
+        for b in grid[::2]:
+            mol = _with_dihedrals(smiles, [{atoms: a}, {atoms: b}], relax=relax)
+            d = abs(a - b) % period
+            expected = min(d, period - d)
+            found = distinguishing_torsions(mol, threshold=1.0)
+            if expected < 1.0:
+                assert found == [], (a, b)
+            else:
+                assert len(found) == 1, (a, b)
+                assert found[0].spread == pytest.approx(expected, abs=0.5), (a, b)
+                assert found[0].period == period
+
+
+def test_one_based_labels_renumber_any_element_and_nothing_else():
+    from confpop.describe import one_based_labels
+    # element symbols from RDKit's periodic table; words and units are left alone
+    assert one_based_labels("Se4-Ge0, Sn12; C2 at 298K in H2O, step 30") == \
+        "Se5-Ge1, Sn13; C3 at 298K in H2O, step 30"
+    # atom_label is the 1-based form of the same numbers
+    mol = Chem.AddHs(Chem.MolFromSmiles("C[Se]C"))
+    assert one_based_labels(f"Se{1}") == atom_label(mol, 1) == "Se2"

@@ -210,3 +210,33 @@ def test_executor_gives_the_same_columns():
         parallel = add_free_energies(ens, "mmff94", executor=pool)
     np.testing.assert_allclose(parallel.column("gcorr_298.15"), serial.column("gcorr_298.15"),
                                rtol=0, atol=1e-12)
+
+
+def test_max_gradient_is_hartree_per_angstrom_and_named_so():
+    # an ethane geometry off its minimum on the analytic model backend: max_gradient equals a
+    # brute-force central difference of the energy over Cartesian steps in angstrom
+    from confpop.backends import get_backend
+    from confpop.schema import describe_written, file_name
+    mol = Chem.AddHs(Chem.MolFromSmiles("CC"))
+    AllChem.EmbedMolecule(mol, randomSeed=7)
+    conf = mol.GetConformer()
+    p = conf.GetAtomPosition(2)
+    conf.SetAtomPosition(2, (p.x + 0.02, p.y, p.z))   # stretch one C-H off the reference
+    backend = get_backend("model", mol)
+    x0 = conf.GetPositions()
+    e0 = backend.compute(x0).energy
+    ens = Ensemble.from_mol(mol, [e0], level="model", unit="hartree")
+    table = add_free_energies(ens, "model", temperatures=[298.15], workers=1).raw_table
+    h = 1e-4  # angstrom
+    grad = np.zeros_like(x0)
+    for a in range(len(x0)):
+        for c in range(3):
+            up, down = x0.copy(), x0.copy()
+            up[a, c] += h
+            down[a, c] -= h
+            grad[a, c] = (backend.compute(up).energy - backend.compute(down).energy) / (2 * h)
+    assert np.max(np.abs(grad)) > 1e-3   # off the minimum: a bohr/angstrom mix-up shows
+    assert table["max_gradient"].iloc[0] == pytest.approx(np.max(np.abs(grad)), rel=1e-4)
+    assert file_name("max_gradient") == "max_gradient_hartree_angstrom"
+    assert describe_written(["max_gradient"])["max_gradient_hartree_angstrom"]["unit"] \
+        == "hartree/angstrom"

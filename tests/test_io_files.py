@@ -221,3 +221,30 @@ def test_sdf_coordinates_written_before_base64_are_still_read_exactly(butanol, t
     new, old = read_ensemble(folder / "own.sdf"), read_ensemble(path)
     for cid in new.ids():
         np.testing.assert_array_equal(old.positions(cid), new.positions(cid))
+
+
+# -- table.csv and its description in run.json ----------------------------------------------------
+def test_every_csv_column_is_described_in_run_json_and_user_columns_pass_through(tmp_path):
+    import pandas as pd
+
+    from confpop.io import ensemble_json
+    # cyclohexanol: distinguishing torsions, a ring pucker column and the H-bond column
+    ens = search("OC1CCCCC1", method="mmff94s", workers=1)
+    assert len(ens) >= 2
+    ids = ens.ids(active=False)
+    # a thermal correction column makes delta_g_<T>K (invented values, hartree) and a user's
+    # own column rides along unchanged
+    ens = ens.with_column("gcorr_298.15", {c: 0.1 + 1e-4 * k for k, c in enumerate(ids)})
+    ens = ens.with_column("my_col", {c: 10.0 * k for k, c in enumerate(ids)})
+    ens.to_csv(tmp_path / "table.csv", temperatures=[298.15])
+    csv = pd.read_csv(tmp_path / "table.csv", index_col=0)
+    assert csv.loc[ids, "my_col"].tolist() == [10.0 * k for k in range(len(ids))]
+    described = ensemble_json(ens, [298.15])["table_columns"]
+    assert set(described) == set(csv.columns)
+    # every column confpop makes is declared in confpop.schema; only the user's is unknown
+    assert [c for c, d in described.items() if d["unit"] == "unknown"] == ["my_col"]
+    for prefix, unit in (("delta_g_298.15K", "kcal/mol"), ("torsion_", "degree"),
+                         ("ring_", ""), ("hydrogen_bonds", "")):
+        names = [c for c in csv.columns if c.startswith(prefix)]
+        assert names, prefix
+        assert all(described[c]["unit"] == unit for c in names)

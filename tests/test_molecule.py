@@ -217,7 +217,8 @@ def test_xyz_frames_with_other_atoms_are_refused(tmp_path):
     ethanol = embedded("CCO")
     dimethyl_ether = embedded("COC")  # same formula, other atom order
     path.write_text(Chem.MolToXYZBlock(ethanol) + Chem.MolToXYZBlock(dimethyl_ether))
-    with pytest.raises(InputError, match=r"frame 2 .*atom 1 is O, in frame 1 it is C"):
+    # the second atom (numbered from 1, as in the file) is C in ethanol, O in the ether
+    with pytest.raises(InputError, match=r"frame 2 .*atom 2 is O, in frame 1 it is C"):
         load_molecule(path)
 
 

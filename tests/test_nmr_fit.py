@@ -237,6 +237,11 @@ def test_underdetermined_fit_reports_the_rotamer_families():
     fit = fit_populations(ens, observed, sigma=0.3, n_bootstrap=100, seed=1)
     assert "underdetermined" in fit.warning
     assert "rotamer-family populations" in fit.warning
+    # on the command line (screen and JSON) the same warning numbers atoms from 1
+    from confpop.cli import _fit_warning_text
+    shown = _fit_warning_text(fit.warning)
+    assert "O3-C4-C5-O6" in fit.warning and "O4-C5-C6-O7 " in shown
+    assert "O3-C4-C5-O6" not in shown
     fam = fit.families[fit.families.torsion == "O3-C4-C5-O6"].set_index("family")
     assert fam["determined"].all()
     for f, share in truth.items():
@@ -245,3 +250,28 @@ def test_underdetermined_fit_reports_the_rotamer_families():
     # the methyl-ether torsion does not touch these couplings: not determined
     other = fit.families[fit.families.torsion == "C0-O1-C2-O3"]
     assert len(other) and not other["determined"].any()
+
+
+def test_couplings_command_fit_warning_in_command_line_terms(butanol, synthetic, tmp_path,
+                                                              capsys):
+    # one rotamer-sensitive coupling cannot fix three populations: the warning on the screen
+    # and in the JSON names atoms from 1 and points at what the screen shows, not at a Python
+    # attribute (the library's warning says "minimal_subset" and numbers atoms from 0)
+    from confpop.cli import main
+
+    sdf = tmp_path / "ens.sdf"
+    butanol.to_sdf(sdf)
+    csv = tmp_path / "observed.csv"
+    csv.write_text(f"atom_a,atom_b,J_hz\n9,11,{synthetic[(8, 10)]:.3f}\n")
+    library = fit_populations(butanol, {(8, 10): synthetic[(8, 10)]}, n_bootstrap=20).warning
+    assert "minimal_subset" in library
+    assert main(["couplings", str(sdf), "--observed", str(csv)]) == 0
+    out = capsys.readouterr().out
+    warning = next(line for line in out.splitlines() if line.startswith("warning: "))
+    assert "underdetermined" in warning and "minimal_subset" not in warning
+    assert "smallest conformer set explaining the data" in out
+    assert main(["couplings", str(sdf), "--observed", str(csv), "--json"]) == 0
+    payload = json.loads(capsys.readouterr().out)
+    assert "minimal_subset" not in payload["fit"]["warning"]
+    from confpop.describe import one_based_labels
+    assert payload["fit"]["warning"].startswith(one_based_labels(library.split(";")[0])[:40])

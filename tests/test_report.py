@@ -79,6 +79,8 @@ def test_the_report_shows_rates_when_a_scan_is_given(butane, tmp_path):
     write_report(butane, path, temperatures=[298.15], profile=profile)
     text = path.read_text()
     assert "Torsion scan and rates" in text and text.count("data:image/png;base64,") == 3
+    # the profile's label numbers atoms from 0 (library); the report, from 1
+    assert "Torsion scan and rates: C1-C2-C3-C4" in text and "C0-C1" not in text
 
 
 @pytest.mark.skipif(_BROWSER is None, reason="no chromium binary on this machine "
@@ -122,3 +124,8 @@ def test_notebook_views_name_units_and_temperature(butane):
                                            label="C0-C1-C2-C3")
     view = profile._repr_html_()
     assert "C1-C2-C3-C4" in view and "minima" in view and "kcal/mol" in view
+    # without a label the atoms are listed from 1 too, under the same caption
+    unlabelled = TorsionProfile.from_energies(phi, 1.5 * (1 + np.cos(np.radians(3 * phi))),
+                                              atoms=(0, 1, 2, 3))
+    view = unlabelled._repr_html_()
+    assert "Torsion profile atoms 1, 2, 3, 4 (atoms numbered from 1" in view

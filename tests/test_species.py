@@ -52,7 +52,9 @@ def test_species_column_and_shares(amide):
     assert table["species"].nunique() == 2
     assert table["species"].iloc[0] == 0          # species 0 holds the lowest conformer
     labels = set(table["species_label"])
-    assert labels == {"C1-N3 O2 cis to C5", "C1-N3 O2 trans to C5"}
+    # 1-based like every label users see (and like the torsion labels of the same table):
+    # CC(=O)N(C)CCOC has C2 carbonyl, O3, N4, C5 N-methyl, C6 N-CH2 (count the SMILES atoms)
+    assert labels == {"C2-N4 O3 cis to C6", "C2-N4 O3 trans to C6"}
     # shares = sums of conformer populations (brute force), summing to 1
     temps = [273.15, 298.15]
     shares = amide.species(temps)
@@ -178,9 +180,12 @@ def test_couplings_command_shows_species_and_cautions(amide, tmp_path, capsys):
     amide.to_sdf(sdf)
     assert main(["couplings", str(sdf)]) == 0
     out = capsys.readouterr().out
-    assert "species 0 (C1-N3 O2 cis to C5)" in out and "species 1 (C1-N3 O2 trans to C5)" in out
+    # atoms numbered from 1 on the screen, as the header says (C2 carbonyl C, N4, O3, C6)
+    assert "species 0 (C2-N4 O3 cis to C6)" in out and "species 1 (C2-N4 O3 trans to C6)" in out
     assert main(["couplings", str(sdf), "--json"]) == 0
     payload = json.loads(capsys.readouterr().out)
+    assert {s["label"] for s in payload["species"]} == {"C2-N4 O3 cis to C6",
+                                                        "C2-N4 O3 trans to C6"}
     assert [s["species"] for s in payload["species"]] == [0, 1]
     assert {r["species"] for r in payload["couplings"]} == {0, 1}
     observed = tmp_path / "observed.csv"   # any well-formed file: the species check comes first
@@ -282,4 +287,24 @@ def test_ensemble_command_shows_species(capsys):
     assert main(["ensemble", "CC(=O)N(C)Cc1ccccc1", "--method", "mmff94s", "--seed", "1"]) == 0
     out = capsys.readouterr().out
     assert "species" in out.splitlines()[2]  # the header, after the numbering line
-    assert "species (slow exchange" in out and "cis to C5" in out and "trans to C5" in out
+    # atoms from 1: C2 carbonyl, N4, O3, C6 the benzylic CH2
+    assert "species (slow exchange" in out and "C2-N4 O3 cis to C6" in out and "trans to C6" in out
+
+
+def test_screen_and_sdf_species_labels_are_numbered_from_one(amide, tmp_path):
+    # the ensemble screen's species line and the SDF species_label number atoms from 1, like
+    # the torsion labels beside them (CC(=O)N(C)CCOC: C2 carbonyl, O3, N4, C6 N-CH2)
+    from rdkit import Chem
+
+    from confpop.cli import _ensemble_table_text
+    text = _ensemble_table_text(amide, [298.15])
+    assert "atoms numbered from 1" in text
+    assert "conformer ids from 0, the same in every file and in Python" in text.splitlines()[0]
+    # no free energies here: the header names ΔE only (it said "ΔE, ΔG" without any ΔG)
+    assert text.splitlines()[0].startswith("conformers (ΔE in kcal/mol;")
+    assert "ΔG" not in text.splitlines()[0] and "ΔG" not in text.splitlines()[1]
+    assert "C2-N4 O3 cis to C6" in text and "C2-N4 O3 trans to C6" in text
+    path = tmp_path / "amide.sdf"
+    amide.to_sdf(path)
+    labels = {m.GetProp("species_label") for m in Chem.SDMolSupplier(str(path), removeHs=False)}
+    assert labels == {"C2-N4 O3 cis to C6", "C2-N4 O3 trans to C6"}

@@ -515,6 +515,16 @@ def test_cli_scan_json_and_errors(butane_molfile, capsys):
     assert "C2" in err and "H8" in err  # the atoms as the user numbered them
     assert main(["scan", "CCCC", "--torsion", "0", "1", "2", "3", "--method", "model"]) == 2
     assert "atoms are numbered from 1" in capsys.readouterr().err
+    # atoms not bonded: named once, as the user numbered them (C2 and C4 are not bonded)
+    assert main(["scan", "CCCC", "--torsion", "1", "2", "4", "3", "--method", "model"]) == 2
+    assert capsys.readouterr().err.strip() == (
+        "confpop: error: --torsion 1 2 4 3: C2 and C4 are not bonded; give four atoms in a "
+        "bonded chain I-J-K-L (atoms numbered from 1, as in molecule viewers and the SDF atom "
+        "block)")
+    assert main(["scan", "CCCC", "--bond", "1", "4", "--method", "model"]) == 2
+    assert capsys.readouterr().err.strip() == (
+        "confpop: error: --bond 1 4: C1 and C4 are not bonded; give two bonded atoms (atoms "
+        "numbered from 1, as in molecule viewers and the SDF atom block)")
 
 
 def test_plot_torsion_profile(tmp_path):
@@ -533,3 +543,22 @@ def test_public_names():
     assert confpop.scan_torsion is scan_torsion
     assert confpop.rotatable_torsions is rotatable_torsions
     assert confpop.TorsionProfile is TorsionProfile
+
+
+def test_cli_scan_cautions_number_atoms_from_one(capsys):
+    # the hysteresis caution of the coupled-rotor model above, through the command line: one
+    # "confpop: warning:" line naming O1-C2-C3-O4 (the library's 0-based O0-C1-C2-O3), and no
+    # bare log line beside it
+    from confpop.backends import _REGISTRY, register_backend
+    register_backend("two-rotors-cli-test", TwoRotors)
+    try:
+        assert main(["scan", "OCCO", "--torsion", "1", "2", "3", "4", "--method",
+                     "two-rotors-cli-test", "--step", "30", "--workers", "1",
+                     "--convergence", "normal"]) == 0
+    finally:
+        _REGISTRY.pop("two-rotors-cli-test", None)
+    err = [line for line in capsys.readouterr().err.splitlines() if "[" not in line[:12]]
+    scan = [line for line in err if "up and down walks" in line]
+    assert len(scan) == 1
+    assert scan[0].startswith("confpop: warning: scan of O1-C2-C3-O4: the up and down walks")
+    assert all(line.startswith("confpop: ") for line in err), err
