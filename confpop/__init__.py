@@ -86,6 +86,7 @@ _PUBLIC: dict[str, str] = {
     "fit_populations": "nmr",
     "PopulationFit": "nmr",
     "ResultStore": "store",
+    "chemical_shifts": "nmr.shifts",
 }
 
 __all__ = sorted(_PUBLIC) + ["__version__"]
