@@ -1089,7 +1089,7 @@ def _add_shifts(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--nuclei", nargs="+", default=["1H", "13C"], choices=["1H", "13C"],
                         help="nuclei to predict (default 1H 13C)")
     parser.add_argument("--functional", default=None,
-                        help="DFT functional of the shieldings (default b3lyp, measured)")
+                        help="DFT functional of the shieldings (default pbe0, measured)")
     parser.add_argument("--basis", default=None,
                         help="basis set of the shieldings (default def2-svp, measured)")
     parser.add_argument("--reference", default="auto", choices=["auto", "scaling", "tms"],
