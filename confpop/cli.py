@@ -1077,9 +1077,10 @@ def _add_shifts(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("inputs", metavar="INPUT", nargs="+",
                         help="one or more candidates: SMILES, or ensemble SDF files written by "
                              "confpop; atom numbers in --measured follow the first candidate")
-    parser.add_argument("--measured", metavar="FILE.csv", default=None,
+    parser.add_argument("--measured", metavar="FILE.csv", nargs="+", default=None, action=_Once,
                         help="measured shifts, CSV columns nucleus (13C or 1H; default 13C), "
-                             "atom (1-based, as in the labels printed), shift_ppm")
+                             "atom (1-based, as in the labels printed), shift_ppm; one file per "
+                             "candidate also gives the pairing of spectra with candidates")
     parser.add_argument("--enumerate-stereo", action="store_true",
                         help="take every stereoisomer of one input (unassigned centres and "
                              "double bonds) as the candidates")
@@ -1150,23 +1151,51 @@ def _renumber(table, mol_ref, mol):
     return table
 
 
+def _spectrum_name(path) -> str:
+    from pathlib import Path
+    return Path(str(path)).name
+
+
+def _shift_comparison_lines(name, comp, temp) -> list:
+    lines = [f"  {name}: measured vs predicted at {temp:.2f} K (error = predicted - measured):"]
+    for row in comp.itertuples(index=False):
+        flag = "  OUTLIER" if row.outlier else ""
+        lines.append(f"    {row.nucleus:>4} atom {row.atom:<4} {row.label:<24} "
+                     f"{row.measured_ppm:8.2f} {row.predicted_ppm:8.2f} {row.error_ppm:+8.2f}{flag}")
+    lines.append("    MAE: " + ", ".join(f"{k} {v:.2f} ppm" for k, v in comp.attrs["mae"].items())
+                 + " (expected after scaling: "
+                 + ", ".join(f"{k} {v:.2f}" for k, v in comp.attrs["expected_error"].items()
+                             if k in comp.attrs["mae"]) + " ppm)")
+    return lines
+
+
 def _run_shifts(args: argparse.Namespace) -> int:
     import pandas as pd
 
-    from .nmr.assign import assignment_probabilities
+    from .nmr.assign import assignment_probabilities, pairing_probabilities
     from .nmr.shifts import chemical_shifts, compare_shifts, read_measured_shifts
 
     temps = _temperatures(args.temperature)
-    if args.measured:  # read before any work: a bad file fails at once
+    spectra = list(args.measured or [])
+    for path in spectra:  # read before any work: a bad file fails at once
         try:
-            read_measured_shifts(args.measured)
+            read_measured_shifts(path)
         except InputError as exc:
             raise InputError(f"--measured: {exc}") from None
+    names = [_spectrum_name(p) for p in spectra]
+    if len(set(names)) != len(names):
+        raise InputError("--measured: give files with different names (they label the spectra)")
+    if len(spectra) > 1 and not args.enumerate_stereo and len(spectra) != len(args.inputs):
+        raise InputError(f"--measured: one file, or one per candidate ({len(args.inputs)}) to "
+                         f"pair spectra with candidates; got {len(spectra)}")
     workers = _cap_workers(args.workers)
     candidates = _shift_candidates(args)
+    if len(spectra) > 1 and len(spectra) != len(candidates):
+        raise InputError(f"--measured: {len(spectra)} files for {len(candidates)} candidates; "
+                         "give one file, or one per candidate")
     ref_mol = candidates[0][1].mol
-    payload = {"candidates": [], "temperatures": temps}
-    comparisons = {}
+    payload = {"temperatures": temps, "candidates": []}
+    comparisons = {}  # (candidate, spectrum) -> comparison
     lines = []
     for name, ens in candidates:
         table = chemical_shifts(ens, temps, nuclei=tuple(args.nuclei), functional=args.functional,
@@ -1184,49 +1213,52 @@ def _run_shifts(args: argparse.Namespace) -> int:
                             for _, r in table.iterrows()]}
         lines.append(f"candidate {name}: {len(ens.ids())} conformer(s), {entry['level']}, "
                      f"reference {entry['reference']}")
-        head = f"  {'signal':<28}{'nucleus':>8}" + "".join(f"{t:>10.2f}K" for t in temps)
-        lines.append(head)
+        lines.append(f"  {'signal':<28}{'nucleus':>8}" + "".join(f"{t:>10.2f}K" for t in temps))
+        several = table["species"].nunique() > 1
         for r in entry["shifts"]:
-            sp = f" [species {r['species']}]" if table["species"].nunique() > 1 else ""
+            sp = f" [species {r['species']}]" if several else ""
             lines.append(f"  {r['label'] + sp:<28}{r['nucleus']:>8}"
                          + "".join(f"{r[f'{t:.2f}']:>11.2f}" for t in temps))
-        if args.measured:
-            comp = compare_shifts(table, args.measured, temperature=temps[0], mol=ref_mol)
-            comparisons[name] = comp
-            entry["comparison"] = [{k: _plain(v) for k, v in row.items()}
-                                   for row in comp.to_dict("records")]
-            entry["mae_ppm"] = {k: _json_number(v) for k, v in comp.attrs["mae"].items()}
-            lines.append(f"  measured vs predicted at {temps[0]:.2f} K (error = predicted - measured):")
-            for row in comp.itertuples(index=False):
-                flag = "  OUTLIER" if row.outlier else ""
-                lines.append(f"    {row.nucleus:>4} atom {row.atom:<4} {row.label:<24} "
-                             f"{row.measured_ppm:8.2f} {row.predicted_ppm:8.2f} "
-                             f"{row.error_ppm:+8.2f}{flag}")
-            lines.append("  MAE: " + ", ".join(f"{k} {v:.2f} ppm" for k, v in comp.attrs["mae"].items())
-                         + " (expected after scaling: "
-                         + ", ".join(f"{k} {v:.2f}" for k, v in comp.attrs["expected_error"].items()
-                                     if k in comp.attrs["mae"]) + " ppm)")
+        entry["comparisons"] = {}
+        for path, spectrum in zip(spectra, names):
+            comp = compare_shifts(table, path, temperature=temps[0], mol=ref_mol)
+            comparisons[(name, spectrum)] = comp
+            entry["comparisons"][spectrum] = {
+                "rows": [{k: _plain(v) for k, v in row.items()} for row in comp.to_dict("records")],
+                "mae_ppm": {k: _json_number(v) for k, v in comp.attrs["mae"].items()}}
+            lines.extend(_shift_comparison_lines(spectrum, comp, temps[0]))
         payload["candidates"].append(entry)
-    if len(comparisons) >= 2:
-        probs, contrib = assignment_probabilities(comparisons, scaling=args.scaling)
-        payload["assignment"] = {
-            "method": "DP4 (Smith & Goodman, J. Am. Chem. Soc. 2010, 132, 12946)",
-            "probabilities": {c: {k: _json_number(float(v)) for k, v in row.items()}
-                              for c, row in probs.iterrows()},
-            "contributions": [{k: _plain(v) for k, v in row.items()}
-                              for row in contrib.to_dict("records")]}
-        lines.append("assignment (DP4 probabilities, Smith & Goodman 2010):")
-        lines.append(f"  {'candidate':<30}{'P(13C)':>9}{'P(1H)':>9}{'P(all)':>9}")
-        for c, row in probs.iterrows():
-            cells = "".join(f"{'-' if pd.isna(row[k]) else format(row[k], '.3f'):>9}"
-                            for k in ("P_13C", "P_1H", "P_all"))
-            lines.append(f"  {c:<30}{cells}")
-        lines.append("  per-signal terms ln S(|e|/sigma) (more negative = speaks against):")
-        for row in contrib.itertuples(index=False):
-            lines.append(f"    {row.candidate:<24} {row.nucleus:>4} atom {row.atom:<4} "
-                         f"scaled {row.scaled_ppm:8.2f} error {row.error_ppm:+7.2f} "
-                         f"term {row.log_term:7.2f} ({row.scaling})")
-    elif len(candidates) >= 2 and not args.measured:
+    if len(candidates) >= 2 and spectra:
+        payload["assignment"] = {"method": "DP4 (Smith & Goodman, J. Am. Chem. Soc. 2010, 132, "
+                                           "12946)", "spectra": {}}
+        for spectrum in names:
+            probs, contrib = assignment_probabilities(
+                {c: comparisons[(c, spectrum)] for c, _ in candidates}, scaling=args.scaling)
+            payload["assignment"]["spectra"][spectrum] = {
+                "probabilities": {c: {k: _json_number(float(v)) for k, v in row.items()}
+                                  for c, row in probs.iterrows()},
+                "contributions": [{k: _plain(v) for k, v in row.items()}
+                                  for row in contrib.to_dict("records")]}
+            lines.append(f"assignment of {spectrum} (DP4 probabilities, Smith & Goodman 2010):")
+            lines.append(f"  {'candidate':<30}{'P(13C)':>9}{'P(1H)':>9}{'P(all)':>9}")
+            for c, row in probs.iterrows():
+                cells = "".join(f"{'-' if pd.isna(row[k]) else format(row[k], '.3f'):>9}"
+                                for k in ("P_13C", "P_1H", "P_all"))
+                lines.append(f"  {c:<30}{cells}")
+            lines.append("  per-signal terms ln S(|e|/sigma) (more negative = speaks against):")
+            for row in contrib.itertuples(index=False):
+                lines.append(f"    {row.candidate:<24} {row.nucleus:>4} atom {row.atom:<4} "
+                             f"scaled {row.scaled_ppm:8.2f} error {row.error_ppm:+7.2f} "
+                             f"term {row.log_term:7.2f} ({row.scaling})")
+        if len(spectra) > 1:
+            pairing = pairing_probabilities(comparisons, scaling=args.scaling)
+            payload["assignment"]["pairing"] = [
+                {"pairing": list(r.pairing), "probability": _json_number(float(r.probability))}
+                for r in pairing.itertuples(index=False)]
+            lines.append("pairing of spectra with candidates (DP4 over all spectra at once):")
+            for r in pairing.itertuples(index=False):
+                lines.append(f"  {r.probability:7.3f}  " + ";  ".join(r.pairing))
+    elif len(candidates) >= 2:
         lines.append("note: give --measured to compare the candidates and assign")
     lines.append(_SHIFTS_CAUTION)
     payload["caution"] = _SHIFTS_CAUTION

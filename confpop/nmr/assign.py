@@ -38,7 +38,7 @@ from scipy import stats
 
 from ..errors import InputError
 
-__all__ = ["DP4_PARAMETERS", "assignment_probabilities"]
+__all__ = ["DP4_PARAMETERS", "assignment_probabilities", "pairing_probabilities"]
 
 #: Student t parameters of scaled-shift errors: nucleus -> (σ ppm, ν); Smith & Goodman 2010
 DP4_PARAMETERS = {"13C": (2.306, 11.38), "1H": (0.185, 14.18)}
@@ -51,6 +51,88 @@ def _scale(pred: np.ndarray, meas: np.ndarray) -> np.ndarray:
     if not np.isfinite(b) or abs(b) < 1e-6:
         return pred
     return (pred - a) / b
+
+
+def _log_likelihood(comparison, scaling, nuclei) -> float:
+    total = 0.0
+    for nucleus in nuclei:
+        mask = (comparison["nucleus"] == nucleus).to_numpy()
+        if not mask.any():
+            continue
+        meas = comparison.loc[mask, "measured_ppm"].to_numpy(float)
+        pred = comparison.loc[mask, "predicted_ppm"].to_numpy(float)
+        mode = scaling
+        if mode == "auto":
+            mode = "candidate" if len(np.unique(np.round(meas, 2))) >= \
+                _MIN_SIGNALS_FOR_REGRESSION else "fixed"
+        scaled = _scale(pred, meas) if mode == "candidate" else pred
+        sigma, nu = DP4_PARAMETERS[nucleus]
+        total += float(stats.t.logsf(np.abs(scaled - meas) / sigma, nu).sum())
+    return total
+
+
+def pairing_probabilities(comparisons: dict, *, scaling: str = "auto",
+                          nuclei=("13C", "1H")) -> pd.DataFrame:
+    """Which measured spectrum belongs to which candidate, when each was measured.
+
+    When every candidate stereoisomer was made and measured, the question is the pairing:
+    the DP4 likelihood of a pairing is the product of the likelihoods of its
+    (candidate, spectrum) comparisons, and the pairings are normalized against each other
+    (all one-to-one pairings, equal prior). A systematic error shared by the candidates (a
+    computed methyl shift 3 ppm high in all of them) then cancels to first order, which it
+    does not when one spectrum is compared with every candidate.
+
+    Parameters
+    ----------
+    comparisons : dict
+        (candidate name, spectrum name) -> DataFrame from
+        :func:`confpop.nmr.shifts.compare_shifts`, for every candidate and spectrum.
+    scaling, nuclei
+        As for :func:`assignment_probabilities`.
+
+    Returns
+    -------
+    pandas.DataFrame
+        One row per pairing, most probable first: ``pairing`` (a tuple of "candidate =
+        spectrum" strings) and ``probability`` (sums to 1).
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> def comp(meas, pred):
+    ...     return pd.DataFrame({"nucleus": ["13C"] * 2, "atom": [1, 2], "label": ["a", "b"],
+    ...                          "measured_ppm": meas, "predicted_ppm": pred})
+    >>> e, z = [17.6, 126.0], [12.1, 124.6]           # measured spectra
+    >>> pe, pz = [21.0, 127.6], [14.9, 125.5]         # predictions, methyls 3 ppm high
+    >>> table = pairing_probabilities({("E", "s1"): comp(e, pe), ("Z", "s1"): comp(e, pz),
+    ...                                ("E", "s2"): comp(z, pe), ("Z", "s2"): comp(z, pz)})
+    >>> table.iloc[0]["pairing"], round(float(table.iloc[0]["probability"]), 3)
+    (('E = s1', 'Z = s2'), 0.992)
+    """
+    from itertools import permutations
+
+    if scaling not in ("auto", "candidate", "fixed"):
+        raise InputError(f"scaling must be 'auto', 'candidate' or 'fixed', got {scaling!r}")
+    candidates = list(dict.fromkeys(c for c, _ in comparisons))
+    spectra = list(dict.fromkeys(s for _, s in comparisons))
+    if len(candidates) < 2 or len(candidates) != len(spectra):
+        raise InputError(f"pairing needs as many spectra as candidates (at least two), got "
+                         f"{len(candidates)} candidate(s) and {len(spectra)} spectrum/spectra")
+    missing = [(c, s) for c in candidates for s in spectra if (c, s) not in comparisons]
+    if missing:
+        raise InputError(f"pairing needs every candidate compared with every spectrum; missing "
+                         f"{missing[:3]}")
+    nuclei = [n for n in nuclei if n in DP4_PARAMETERS]
+    logs = {key: _log_likelihood(comp, scaling, nuclei) for key, comp in comparisons.items()}
+    rows = []
+    for perm in permutations(spectra):
+        rows.append({"pairing": tuple(f"{c} = {s}" for c, s in zip(candidates, perm)),
+                     "log": sum(logs[(c, s)] for c, s in zip(candidates, perm))})
+    table = pd.DataFrame(rows)
+    weights = np.exp(table["log"] - table["log"].max())
+    table["probability"] = weights / weights.sum()
+    table = table.drop(columns="log").sort_values("probability", ascending=False)
+    return table.reset_index(drop=True)
 
 
 def assignment_probabilities(comparisons: dict, *, scaling: str = "auto",
