@@ -12,8 +12,9 @@ function of the t distribution with ν_n degrees of freedom (the chance of an er
 this large). Parameters (scaled shifts, from the paper's main text as quoted in a public
 reimplementation, and as we remember them): 13C σ = 2.306 ppm, ν = 11.38; 1H σ = 0.185 ppm,
 ν = 14.18. They were fitted to B3LYP/6-31G(d,p) GIAO shifts on MMFF geometries (from
-memory); our level differs, so the probabilities are indicative: they rank candidates and say how decisive the
-data are, and the README gives the measured errors to weigh them against.
+memory); our level differs, so the probabilities are indicative: they rank candidates and
+say how decisive the data are, and the README gives the measured errors to weigh them
+against.
 
 Scaling of each candidate's shifts (``scaling``):
 
