@@ -1110,12 +1110,9 @@ def _add_shifts(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--json", action="store_true", help="print machine-readable JSON only")
 
 
-def _shift_candidates(args):
-    """[(name, Ensemble)] for the inputs; a SMILES gets a conformer search."""
-    from pathlib import Path
-
+def _shift_sources(args) -> list:
+    """The candidate inputs (with --enumerate-stereo: the stereoisomers' SMILES); cheap."""
     from .molecule import stereoisomers
-    from .pipeline import search
 
     sources = list(args.inputs)
     if args.enumerate_stereo:
@@ -1126,6 +1123,15 @@ def _shift_candidates(args):
         if len(sources) < 2:
             raise InputError(f"--enumerate-stereo: {args.inputs[0]!r} has no unassigned "
                              "stereocentre or double bond, so there is only one candidate")
+    return sources
+
+
+def _shift_candidates(args, sources):
+    """[(name, Ensemble)] for the inputs; a SMILES gets a conformer search."""
+    from pathlib import Path
+
+    from .pipeline import search
+
     out = []
     for src in sources:
         if Path(src).is_file():
@@ -1185,14 +1191,12 @@ def _run_shifts(args: argparse.Namespace) -> int:
     names = [_spectrum_name(p) for p in spectra]
     if len(set(names)) != len(names):
         raise InputError("--measured: give files with different names (they label the spectra)")
-    if len(spectra) > 1 and not args.enumerate_stereo and len(spectra) != len(args.inputs):
-        raise InputError(f"--measured: one file, or one per candidate ({len(args.inputs)}) to "
-                         f"pair spectra with candidates; got {len(spectra)}")
+    sources = _shift_sources(args)
+    if len(spectra) > 1 and len(spectra) != len(sources):
+        raise InputError(f"--measured: {len(spectra)} files for {len(sources)} candidates; "
+                         "give one file, or one per candidate to pair spectra with candidates")
     workers = _cap_workers(args.workers)
-    candidates = _shift_candidates(args)
-    if len(spectra) > 1 and len(spectra) != len(candidates):
-        raise InputError(f"--measured: {len(spectra)} files for {len(candidates)} candidates; "
-                         "give one file, or one per candidate")
+    candidates = _shift_candidates(args, sources)
     ref_mol = candidates[0][1].mol
     payload = {"temperatures": temps, "candidates": []}
     comparisons = {}  # (candidate, spectrum) -> comparison

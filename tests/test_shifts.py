@@ -252,3 +252,15 @@ def test_cli_enumerate_stereo_needs_one_input(capsys):
     status = main(["shifts", "CC=CC", "CCC", "--enumerate-stereo"])
     assert status == 2
     assert "--enumerate-stereo takes one INPUT" in capsys.readouterr().err
+
+
+def test_cli_refuses_a_spectrum_count_that_matches_no_pairing(tmp_path, capsys):
+    files = []
+    for name in ("a.csv", "b.csv", "c.csv"):
+        path = tmp_path / name
+        path.write_text("nucleus,atom,shift_ppm\n13C,1,20.0\n")
+        files.append(str(path))
+    status = main(["shifts", "C/C=C/C", "C/C=C\\C", "--measured", *files])
+    err = capsys.readouterr().err.strip().splitlines()
+    assert status == 2
+    assert len(err) == 1 and "3 files for 2 candidates" in err[0]
