@@ -264,3 +264,20 @@ def test_cli_refuses_a_spectrum_count_that_matches_no_pairing(tmp_path, capsys):
     err = capsys.readouterr().err.strip().splitlines()
     assert status == 2
     assert len(err) == 1 and "3 files for 2 candidates" in err[0]
+
+
+def test_shieldings_are_stored_and_reused(tmp_path):
+    # Hartree-Fock/STO-3G water: the smallest run of the real shielding route
+    from confpop.nmr.shifts import conformer_shieldings
+    from confpop.store import ResultStore
+    ens = Ensemble.from_mol(_embedded("O", n=2, seed=5))
+    path = tmp_path / "store.sqlite"
+    first = conformer_shieldings(ens, functional="hf", basis="sto-3g", workers=1, store=path)
+    with ResultStore(path) as store:
+        assert len(store) == 2
+    second = conformer_shieldings(ens, functional="hf", basis="sto-3g", workers=1, store=path)
+    pd.testing.assert_frame_equal(first, second)
+    assert first.shape == (2, 3) and np.all(first.to_numpy() > 0)
+    with pytest.raises(InputError, match="implicit solvent are not available"):
+        from confpop.backends.shielding import compute_shieldings
+        compute_shieldings(["O", "H", "H"], ens.positions(0), solvent="water")
