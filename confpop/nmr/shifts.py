@@ -563,7 +563,8 @@ def compare_shifts(predicted: pd.DataFrame, measured, *, temperature: float | No
         Lets a 1H row name the heavy atom carrying the protons.
     outlier_factor : float
         A signal is flagged when |error| > outlier_factor x the method's expected error
-        for the nucleus (the leave-one-out MAE of the scaling; 3 is common practice).
+        for the nucleus (the leave-one-out MAE of the level's scaling, else of the default
+        level's; 3 is common practice).
 
     Returns
     -------
@@ -593,10 +594,14 @@ def compare_shifts(predicted: pd.DataFrame, measured, *, temperature: float | No
                     for a in mol.GetAtoms()}
     rows = _match_rows(table, meas, mol.GetNumAtoms() if mol is not None else None, heavy_of)
     level = predicted.attrs.get("level") or {}
+    from ..backends.shielding import SHIELDING_DEFAULTS
+    default = SCALING[(SHIELDING_DEFAULTS["functional"], SHIELDING_DEFAULTS["basis"])]
     expected = {}
     for n in NUCLEI:
+        # a level without a fitted line (TMS reference) has no error of its own measured
+        # here: the default level's leave-one-out error stands in for it
         p = SCALING.get((level.get("functional"), level.get("basis")), {}).get(n)
-        expected[n] = p["loo_mae"] if p else {"1H": 0.2, "13C": 3.0}[n]
+        expected[n] = (p or default[n])["loo_mae"]
     out = pd.DataFrame({
         "nucleus": meas["nucleus"].to_numpy(), "atom": meas["atom"].to_numpy(),
         "label": [table.loc[r, "label"] for r in rows],
