@@ -83,13 +83,15 @@ def accuracy(levels) -> None:
         print("    },")
 
 
-def cost(bases) -> None:
+def cost(bases, only=None) -> None:
     from confpop import Ensemble
     from confpop.backends.shielding import compute_shieldings
     from confpop.nmr.shifts import conformer_shieldings
 
     molecules = [("methanol", "CO"), ("propan-2-ol", "CC(C)O"), ("butan-2-one", "CCC(C)=O"),
                  ("toluene", "Cc1ccccc1"), ("isopropoxybenzene", "CC(C)Oc1ccccc1")]
+    if only:
+        molecules = [m for m in molecules if m[0] in only]
     print(f"{'molecule':<20}{'atoms':>6}{'level':>18}{'SCF s':>9}{'shield s':>10}{'total s':>9}")
     for name, smi in molecules:
         mol = _gfn2_geometry(smi)
@@ -126,11 +128,13 @@ def main(argv=None) -> int:
     a.add_argument("levels", nargs="*", default=["b3lyp/def2-svp"])
     c = sub.add_parser("cost")
     c.add_argument("--basis", nargs="+", default=["def2-svp", "def2-tzvp"])
+    c.add_argument("--only", nargs="+", default=None, metavar="NAME",
+                   help="only these molecules of the size series (the 1-vs-2-worker part runs always)")
     args = parser.parse_args(argv)
     if args.what == "accuracy":
         accuracy(args.levels)
     else:
-        cost(args.basis)
+        cost(args.basis, args.only)
     return 0
 
 
