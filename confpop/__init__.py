@@ -104,6 +104,7 @@ _MACHINERY: dict[str, str] = {
     "OptimizationResult": "optimize",
     "run_units": "execution",
     "ResultStore": "store",
+    "chemical_shifts": "nmr.shifts",
 }
 
 __all__ = sorted(_PUBLIC) + ["__version__"]

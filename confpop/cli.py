@@ -1428,6 +1428,216 @@ def _scan_work(args, temps, unit, workers, folder) -> int:
     return 0
 
 
+# --------------------------------------------------------------------------- shifts
+# (self-contained block: chemical shifts and stereoisomer assignment, confpop.nmr.shifts/assign)
+
+_SHIFTS_CAUTION = (
+    "caution: computed shifts carry the method's error (scaled GIAO, measured on rigid "
+    "molecules: see the README, 'Chemical shifts'); DP4 probabilities rank candidates and "
+    "show how decisive the data are, they do not replace experiment or a spectroscopist's "
+    "judgement.")
+
+
+def _add_shifts(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("inputs", metavar="INPUT", nargs="+",
+                        help="one or more candidates: SMILES, or ensemble SDF files written by "
+                             "confpop; atom numbers in --measured follow the first candidate")
+    parser.add_argument("--measured", metavar="FILE.csv", nargs="+", default=None, action=_Once,
+                        help="measured shifts, CSV columns nucleus (13C or 1H; default 13C), "
+                             "atom (1-based, as in the labels printed), shift_ppm; one file per "
+                             "candidate also gives the pairing of spectra with candidates")
+    parser.add_argument("--enumerate-stereo", action="store_true",
+                        help="take every stereoisomer of one input (unassigned centres and "
+                             "double bonds) as the candidates")
+    parser.add_argument("--temperature", "-T", nargs="+", type=_finite_float, default=[298.15],
+                        action=_Once, metavar="K",
+                        help="temperatures in kelvin (default 298.15); the comparison uses the first")
+    parser.add_argument("--nuclei", nargs="+", default=["1H", "13C"], choices=["1H", "13C"],
+                        help="nuclei to predict (default 1H 13C)")
+    parser.add_argument("--functional", default=None,
+                        help="DFT functional of the shieldings (default pbe0, measured)")
+    parser.add_argument("--basis", default=None,
+                        help="basis set of the shieldings (default def2-svp, measured)")
+    parser.add_argument("--reference", default="auto", choices=["auto", "scaling", "tms"],
+                        help="shielding -> shift: our fitted linear scaling, TMS at the same level, "
+                             "or auto (scaling where fitted, default)")
+    parser.add_argument("--scaling", default="auto", choices=["auto", "candidate", "fixed"],
+                        help="DP4 scaling: per-candidate regression (>= 5 signals with auto) or "
+                             "our fixed scaling")
+    parser.add_argument("--method", default="gfn2", help="conformer search method (default gfn2)")
+    parser.add_argument("--solvent", default=None,
+                        help="implicit solvent of the conformer search (shieldings are gas phase)")
+    parser.add_argument("--seed", type=int, default=0, help="sampling seed (default 0)")
+    parser.add_argument("--workers", type=int, default=None,
+                        help="worker processes (default: all cores; 1 = serial)")
+    parser.add_argument("--store", default=None, metavar="FILE",
+                        help="SQLite result store: reuse finished calculations, resume interrupted runs")
+    parser.add_argument("--json", action="store_true", help="print machine-readable JSON only")
+
+
+def _shift_sources(args) -> list:
+    """The candidate inputs (with --enumerate-stereo: the stereoisomers' SMILES); cheap."""
+    from .molecule import stereoisomers
+
+    sources = list(args.inputs)
+    if args.enumerate_stereo:
+        if len(sources) != 1:
+            raise InputError("--enumerate-stereo takes one INPUT (its stereoisomers are the "
+                             f"candidates), got {len(sources)}")
+        sources = [m.GetProp("_Name") for m in stereoisomers(sources[0])]
+        if len(sources) < 2:
+            raise InputError(f"--enumerate-stereo: {args.inputs[0]!r} has no unassigned "
+                             "stereocentre or double bond, so there is only one candidate")
+    return sources
+
+
+def _shift_candidates(args, sources):
+    """[(name, Ensemble)] for the inputs; a SMILES gets a conformer search."""
+    from pathlib import Path
+
+    from .pipeline import search
+
+    out = []
+    for src in sources:
+        if Path(src).is_file():
+            from .io import read_ensemble
+            ens = read_ensemble(src)
+        else:
+            ens = search(src, method=args.method, solvent=args.solvent, seed=args.seed,
+                         workers=_cap_workers(args.workers), store=args.store, progress=False)
+        out.append((src, ens))
+    return out
+
+
+def _renumber(table, mol_ref, mol):
+    """Predicted rows of ``mol`` in the atom numbering of ``mol_ref`` (same constitution)."""
+    match = mol.GetSubstructMatch(mol_ref, useChirality=False)
+    if len(match) != mol_ref.GetNumAtoms():
+        raise InputError("the candidates must have the same atoms and bonds (stereoisomers); "
+                         "atom numbers in --measured follow the first candidate")
+    back = {j: i for i, j in enumerate(match)}
+    table = table.copy()
+    table["atoms"] = [tuple(sorted(back[a] for a in g)) for g in table["atoms"]]
+    table["atom_index"] = [g[0] for g in table["atoms"]]
+    return table
+
+
+def _spectrum_name(path) -> str:
+    from pathlib import Path
+    return Path(str(path)).name
+
+
+def _shift_comparison_lines(name, comp, temp) -> list:
+    lines = [f"  {name}: measured vs predicted at {temp:.2f} K (error = predicted - measured):"]
+    for row in comp.itertuples(index=False):
+        flag = "  OUTLIER" if row.outlier else ""
+        lines.append(f"    {row.nucleus:>4} atom {row.atom:<4} {row.label:<24} "
+                     f"{row.measured_ppm:8.2f} {row.predicted_ppm:8.2f} {row.error_ppm:+8.2f}{flag}")
+    lines.append("    MAE: " + ", ".join(f"{k} {v:.2f} ppm" for k, v in comp.attrs["mae"].items())
+                 + " (expected after scaling: "
+                 + ", ".join(f"{k} {v:.2f}" for k, v in comp.attrs["expected_error"].items()
+                             if k in comp.attrs["mae"]) + " ppm)")
+    return lines
+
+
+def _run_shifts(args: argparse.Namespace) -> int:
+    import pandas as pd
+
+    from .nmr.assign import assignment_probabilities, pairing_probabilities
+    from .nmr.shifts import chemical_shifts, compare_shifts, read_measured_shifts
+
+    temps = _temperatures(args.temperature)
+    spectra = list(args.measured or [])
+    for path in spectra:  # read before any work: a bad file fails at once
+        try:
+            read_measured_shifts(path)
+        except InputError as exc:
+            raise InputError(f"--measured: {exc}") from None
+    names = [_spectrum_name(p) for p in spectra]
+    if len(set(names)) != len(names):
+        raise InputError("--measured: give files with different names (they label the spectra)")
+    sources = _shift_sources(args)
+    if len(spectra) > 1 and len(spectra) != len(sources):
+        raise InputError(f"--measured: {len(spectra)} files for {len(sources)} candidates; "
+                         "give one file, or one per candidate to pair spectra with candidates")
+    workers = _cap_workers(args.workers)
+    candidates = _shift_candidates(args, sources)
+    ref_mol = candidates[0][1].mol
+    payload = {"temperatures": temps, "candidates": []}
+    comparisons = {}  # (candidate, spectrum) -> comparison
+    lines = []
+    for name, ens in candidates:
+        table = chemical_shifts(ens, temps, nuclei=tuple(args.nuclei), functional=args.functional,
+                                basis=args.basis, reference=args.reference, workers=workers,
+                                store=args.store)
+        level = table.attrs["level"]
+        if ens is not candidates[0][1]:
+            table = _renumber(table, ref_mol, ens.mol)
+        entry = {"input": name, "conformers": len(ens.ids()),
+                 "level": f"{level['functional']}/{level['basis']} GIAO on {ens.level} geometries",
+                 "reference": table.attrs["reference"],
+                 "shifts": [{"label": r["label"], "nucleus": r["nucleus"],
+                             "atoms": [a + 1 for a in r["atoms"]], "species": int(r["species"]),
+                             **{f"{t:.2f}": _json_number(r[t]) for t in temps}}
+                            for _, r in table.iterrows()]}
+        lines.append(f"candidate {name}: {len(ens.ids())} conformer(s), {entry['level']}, "
+                     f"reference {entry['reference']}")
+        lines.append(f"  {'signal':<28}{'nucleus':>8}" + "".join(f"{t:>10.2f}K" for t in temps))
+        several = table["species"].nunique() > 1
+        for r in entry["shifts"]:
+            sp = f" [species {r['species']}]" if several else ""
+            lines.append(f"  {r['label'] + sp:<28}{r['nucleus']:>8}"
+                         + "".join(f"{r[f'{t:.2f}']:>11.2f}" for t in temps))
+        entry["comparisons"] = {}
+        for path, spectrum in zip(spectra, names):
+            comp = compare_shifts(table, path, temperature=temps[0], mol=ref_mol)
+            comparisons[(name, spectrum)] = comp
+            entry["comparisons"][spectrum] = {
+                "rows": [{k: _plain(v) for k, v in row.items()} for row in comp.to_dict("records")],
+                "mae_ppm": {k: _json_number(v) for k, v in comp.attrs["mae"].items()}}
+            lines.extend(_shift_comparison_lines(spectrum, comp, temps[0]))
+        payload["candidates"].append(entry)
+    if len(candidates) >= 2 and spectra:
+        payload["assignment"] = {"method": "DP4 (Smith & Goodman, J. Am. Chem. Soc. 2010, 132, "
+                                           "12946)", "spectra": {}}
+        for spectrum in names:
+            probs, contrib = assignment_probabilities(
+                {c: comparisons[(c, spectrum)] for c, _ in candidates}, scaling=args.scaling)
+            payload["assignment"]["spectra"][spectrum] = {
+                "probabilities": {c: {k: _json_number(float(v)) for k, v in row.items()}
+                                  for c, row in probs.iterrows()},
+                "contributions": [{k: _plain(v) for k, v in row.items()}
+                                  for row in contrib.to_dict("records")]}
+            lines.append(f"assignment of {spectrum} (DP4 probabilities, Smith & Goodman 2010):")
+            lines.append(f"  {'candidate':<30}{'P(13C)':>9}{'P(1H)':>9}{'P(all)':>9}")
+            for c, row in probs.iterrows():
+                cells = "".join(f"{'-' if pd.isna(row[k]) else format(row[k], '.3f'):>9}"
+                                for k in ("P_13C", "P_1H", "P_all"))
+                lines.append(f"  {c:<30}{cells}")
+            lines.append("  per-signal terms ln S(|e|/sigma) (more negative = speaks against):")
+            for row in contrib.itertuples(index=False):
+                lines.append(f"    {row.candidate:<24} {row.nucleus:>4} atom {row.atom:<4} "
+                             f"scaled {row.scaled_ppm:8.2f} error {row.error_ppm:+7.2f} "
+                             f"term {row.log_term:7.2f} ({row.scaling})")
+        if len(spectra) > 1:
+            pairing = pairing_probabilities(comparisons, scaling=args.scaling)
+            payload["assignment"]["pairing"] = [
+                {"pairing": list(r.pairing), "probability": _json_number(float(r.probability))}
+                for r in pairing.itertuples(index=False)]
+            lines.append("pairing of spectra with candidates (DP4 over all spectra at once):")
+            for r in pairing.itertuples(index=False):
+                lines.append(f"  {r.probability:7.3f}  " + ";  ".join(r.pairing))
+    elif len(candidates) >= 2:
+        lines.append("note: give --measured to compare the candidates and assign")
+    lines.append(_SHIFTS_CAUTION)
+    payload["caution"] = _SHIFTS_CAUTION
+    if args.json:
+        print(json.dumps(payload, indent=1))
+    else:
+        print("\n".join(lines))
+    return 0
+
+
 # --------------------------------------------------------------------------- registry
 
 _COMMANDS: list[tuple] = [
@@ -1441,6 +1651,9 @@ _COMMANDS: list[tuple] = [
      "rates, half-lives, atropisomer classes and NMR exchange regimes from barriers"),
     ("scan", _add_scan, _run_scan,
      "torsion scan: minima, maxima, barriers and interconversion rates about one bond"),
+    ("shifts", _add_shifts, _run_shifts,
+     "population-averaged 1H/13C shifts (GIAO DFT); with --measured, errors and the "
+     "DP4 assignment of candidate stereoisomers"),
 ]
 
 
