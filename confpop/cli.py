@@ -1509,7 +1509,7 @@ def _shift_candidates(args, sources):
     return out
 
 
-def _renumber(table, mol_ref, mol):
+def _shift_rows_to_reference(table, mol_ref, mol):
     """Predicted rows of ``mol`` in the atom numbering of ``mol_ref`` (same constitution)."""
     match = mol.GetSubstructMatch(mol_ref, useChirality=False)
     if len(match) != mol_ref.GetNumAtoms():
@@ -1572,7 +1572,7 @@ def _run_shifts(args: argparse.Namespace) -> int:
                                 store=args.store)
         level = table.attrs["level"]
         if ens is not candidates[0][1]:
-            table = _renumber(table, ref_mol, ens.mol)
+            table = _shift_rows_to_reference(table, ref_mol, ens.mol)
         entry = {"input": name, "conformers": len(ens.ids()),
                  "level": f"{level['functional']}/{level['basis']} GIAO on {ens.level} geometries",
                  "reference": table.attrs["reference"],
