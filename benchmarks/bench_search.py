@@ -106,9 +106,10 @@ def one_gradient(mol, positions, repeats=15) -> float:
 
 def set_path(path: str) -> None:
     """Select an optimizer path in confpop.optimize (old versions: only "reference")."""
-    if hasattr(copt, "set_default_hessian_guess"):
-        copt.set_default_hessian_guess("geometric" if path == "reference" else path)
-    elif path != "reference":
+    guess = "geometric" if path == "reference" else path
+    if hasattr(copt, "DEFAULT_HESSIAN_GUESS"):
+        copt.DEFAULT_HESSIAN_GUESS = guess
+    elif guess != "geometric":
         sys.exit(f"this confpop has no optimizer path {path!r}")
 
 

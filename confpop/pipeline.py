@@ -137,8 +137,10 @@ def optimize_unit(item: dict) -> dict:
                              convergence=item.get("convergence", "tight"),
                              max_steps=item.get("max_steps"),
                              engine=item.get("engine", "geometric"))
-    final = backend.compute(res.positions, gradient=False)
-    dip = None if final.dipole is None else float(np.linalg.norm(final.dipole) * EBOHR_DEBYE)
+    dipole = res.dipole  # from the optimizer's last engine call: no extra single point
+    if dipole is None and "dipole" in backend.capabilities:
+        dipole = backend.compute(res.positions, gradient=False).dipole
+    dip = None if dipole is None else float(np.linalg.norm(dipole) * EBOHR_DEBYE)
     return {"positions": np.array(res.positions), "energy": res.energy, "converged": res.converged,
             "steps": res.steps, "gradient_calls": res.gradient_calls,
             "gradient_norm": res.gradient_norm, "message": res.message, "dipole_debye": dip}
