@@ -50,8 +50,8 @@ _R_REF = np.array([[1.35, 2.10, 2.53], [2.10, 2.87, 3.40], [2.53, 3.40, 3.40]])
 # per unit coordinate gradient, small against the smallest terms kept
 _CUTOFF = 1e-4
 # atoms are partners of a bend or torsion only if their rho is at least this (a product of
-# rho's each at most ~1.2 cannot reach _CUTOFF otherwise)
-_PARTNER = _CUTOFF / 1.5 ** 2
+# rho's each at most ~3, a triple bond, cannot reach _CUTOFF otherwise)
+_PARTNER = _CUTOFF / 10.0
 # bends within ~0.6 degrees of linear carry no term (the bend plane is undefined)
 _SIN2_LINEAR = 1e-4
 

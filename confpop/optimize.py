@@ -101,7 +101,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .backends.base import Backend
-from .errors import CalculationFailed, ConfpopError, InputError
+from .errors import CalculationFailed, ConfpopError, ConfpopWarning, InputError
 from .geometric_fast import HESSIAN_GUESSES
 from .geometry import dihedral_at, wrap_degrees
 from .units import ANGSTROM_BOHR, BOHR_ANGSTROM
@@ -245,7 +245,10 @@ def _geometric_silenced():
             warnings.simplefilter("always")
             yield
         for w in caught:
-            _log.debug("geomeTRIC warning: %s", w.message)
+            if issubclass(w.category, ConfpopWarning):  # ours (e.g. the version fallback)
+                warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
+            else:
+                _log.debug("geomeTRIC warning: %s", w.message)
     finally:
         logger.setLevel(level)
         logger.propagate = propagate

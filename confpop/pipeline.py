@@ -166,7 +166,7 @@ def minimum_unit(item: dict) -> dict:
 
 def _run(function, items, *, executor, workers, progress, store, kind, description):
     """Run units through the execution layer, with the store when one is given."""
-    from .execution import run_units
+    from .execution import default_workers, run_units
 
     keys = None
     if store is not None:
@@ -181,7 +181,7 @@ def _run(function, items, *, executor, workers, progress, store, kind, descripti
                                     multiplicity=it["multiplicity"], method=it["method"],
                                     solvent=it["solvent"], settings=settings, kind=kind))
     if executor is None and workers is None:
-        workers = 1 if len(items) < 8 else (os.cpu_count() or 1)
+        workers = 1 if len(items) < 8 else default_workers()  # the CPUs we may use
     return run_units(function, items, executor=executor, workers=workers, progress=progress,
                      description=description, store=store, keys=keys)
 
