@@ -5,8 +5,9 @@ one process (serial, ``OMP_NUM_THREADS=1``), per molecule:
 
 1. **Optimizer paths, interleaved** (``--starts N``, default 30): the search's own
    MMFF94s-relaxed ETKDG structures are optimized ("tight") by each path in ``--paths``
-   (default ``reference,model``: geomeTRIC's own guess Hessian, and confpop's model
-   Hessian, see :mod:`confpop.geometric_fast`), start by start, one path after the other, and
+   (default ``reference,lindh``: geomeTRIC's own guess Hessian with fresh SCF guesses, as
+   before, and Lindh's model Hessian with SCF restarts, see :mod:`confpop.geometric_fast`),
+   start by start, one path after the other, and
    once by the reference path at "verytight" (the yardstick). Printed per path: median and
    p90 gradient calls per optimization, CPU per optimization, the engine floor (gradient
    calls x the CPU time of one gradient, measured on the same molecule in the same run) and
@@ -97,20 +98,39 @@ def one_gradient(mol, positions, repeats=15) -> float:
     backend.compute(positions, gradient=True)
     times = []
     for _ in range(repeats):
-        backend._calculator = None if not hasattr(backend, "_restart") else backend._calculator
         t0 = time.process_time()
         backend.compute(positions, gradient=True)
         times.append(time.process_time() - t0)
     return statistics.median(times)
 
 
+_CONTINUATION = None
+
+
 def set_path(path: str) -> None:
-    """Select an optimizer path in confpop.optimize (old versions: only "reference")."""
-    guess = "geometric" if path == "reference" else path
+    """Select an optimizer path: an initial Hessian, "+norestart" for fresh SCF guesses.
+
+    "reference" is geomeTRIC's own guess Hessian with a fresh SCF guess at every step (the
+    optimizer before this work); old confpop versions only have that one.
+    """
+    global _CONTINUATION
+    import contextlib
+
+    from confpop.backends.base import Backend
+
+    guess, _, flag = path.partition("+")
+    restart = flag != "norestart"
+    if guess == "reference":
+        guess, restart = "geometric", False
     if hasattr(copt, "DEFAULT_HESSIAN_GUESS"):
         copt.DEFAULT_HESSIAN_GUESS = guess
     elif guess != "geometric":
         sys.exit(f"this confpop has no optimizer path {path!r}")
+    if hasattr(Backend, "continuation"):
+        if _CONTINUATION is None:
+            _CONTINUATION = Backend.continuation
+        Backend.continuation = (_CONTINUATION if restart
+                                else lambda self: contextlib.nullcontext(self))
 
 
 def p90(values) -> float:
@@ -198,8 +218,10 @@ def whole_search(name, smiles, paths, seed, trials, rounds, meter):
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--starts", type=int, default=30, help="starts per molecule for the paths")
-    ap.add_argument("--paths", default="reference,model",
-                    help="optimizer paths, comma-separated (reference = geomeTRIC's own guess)")
+    ap.add_argument("--paths", default="reference,lindh",
+                    help="optimizer paths, comma-separated: an initial Hessian (geometric, lindh, "
+                         "lindh-primitive) with '+norestart' for fresh SCF guesses; reference = "
+                         "geometric+norestart, the optimizer before the speed work")
     ap.add_argument("--only", default=None, help="molecules whose name contains this (comma-separated)")
     ap.add_argument("--seed", type=int, default=1)
     ap.add_argument("--search", action="store_true", help="also run whole searches per path")
@@ -240,20 +262,20 @@ def main() -> None:
             search_rows += rows
     if opt_rows:
         print()
-        print(f"{'molecule':28s} {'atoms':>5} {'path':>10} {'starts':>6} {'median':>6} {'p90':>5} "
+        print(f"{'molecule':28s} {'atoms':>5} {'path':>26} {'starts':>6} {'median':>6} {'p90':>5} "
               f"{'CPU s/opt':>9} {'CPU/floor':>9} {'worst dE':>8} {'>0.05':>5} {'failed':>6}")
         for r in opt_rows:
-            print(f"{r[0]:28s} {r[1]:>5d} {r[2]:>10s} {r[3]:>6d} {r[4]:>6.0f} {r[5]:>5.0f} "
+            print(f"{r[0]:28s} {r[1]:>5d} {r[2]:>26s} {r[3]:>6d} {r[4]:>6.0f} {r[5]:>5.0f} "
                   f"{r[6]:>9.2f} {r[7]:>9.2f} {r[8]:>+8.3f} {r[9]:>5d} {r[10]:>6d}")
         print("median/p90 = gradient calls per tight optimization; floor = calls x CPU of one "
               "gradient; dE vs geomeTRIC 'verytight' from the same start, kcal/mol")
     if search_rows:
         print()
-        print(f"{'molecule':28s} {'path':>10} {'CPU s':>7} {'wall s':>7} {'gradients':>9} "
+        print(f"{'molecule':28s} {'path':>26} {'CPU s':>7} {'wall s':>7} {'gradients':>9} "
               f"{'SPs':>5} {'floor s':>7} {'CPU/floor':>9} {'opts':>5} {'median':>6} {'p90':>5} "
               f"{'confs':>5}")
         for r in search_rows:
-            print(f"{r[0]:28s} {r[1]:>10s} {r[2]:>7.1f} {r[3]:>7.1f} {r[4]:>9d} {r[5]:>5d} "
+            print(f"{r[0]:28s} {r[1]:>26s} {r[2]:>7.1f} {r[3]:>7.1f} {r[4]:>9d} {r[5]:>5d} "
                   f"{r[6]:>7.1f} {r[7]:>9.2f} {r[8]:>5d} {r[9]:>6.0f} {r[10]:>5.0f} {r[11]:>5d}")
     print(f"load average at end: {os.getloadavg()[0]:.2f}")
 
