@@ -5,8 +5,8 @@ one process (serial, ``OMP_NUM_THREADS=1``), per molecule:
 
 1. **Optimizer paths, interleaved** (``--starts N``, default 30): the search's own
    MMFF94s-relaxed ETKDG structures are optimized ("tight") by each path in ``--paths``
-   (default ``reference,lindh``: geomeTRIC's own guess Hessian with fresh SCF guesses, as
-   before, and Lindh's model Hessian with SCF restarts, see :mod:`confpop.geometric_fast`),
+   (default ``reference,lindh-primitive``: geomeTRIC's own guess Hessian with fresh SCF guesses, as
+   before, and Lindh's force constants with SCF restarts (the default), see :mod:`confpop.geometric_fast`),
    start by start, one path after the other, and
    once by the reference path at "verytight" (the yardstick). Printed per path: median and
    p90 gradient calls per optimization, CPU per optimization, the engine floor (gradient
@@ -50,7 +50,7 @@ from confpop.units import convert  # noqa: E402
 MOLECULES = {
     "invented hydroxy-ester 31": "CCOC(=O)C[C@H](O)CCCOC",
     "invented ether-amide 35": "COCCN(C)C(=O)CC[C@@H](C)OC",
-    "invented aryl ester 45": "CCOC(=O)CCc1ccc(OC[C@H](C)CC)cc1",
+    "invented aryl ester 43": "CCOC(=O)CCc1ccc(OC[C@H](C)CC)cc1",
 }
 
 
@@ -218,7 +218,7 @@ def whole_search(name, smiles, paths, seed, trials, rounds, meter):
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--starts", type=int, default=30, help="starts per molecule for the paths")
-    ap.add_argument("--paths", default="reference,lindh",
+    ap.add_argument("--paths", default="reference,lindh-primitive",
                     help="optimizer paths, comma-separated: an initial Hessian (geometric, lindh, "
                          "lindh-primitive) with '+norestart' for fresh SCF guesses; reference = "
                          "geometric+norestart, the optimizer before the speed work")
