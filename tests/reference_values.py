@@ -55,6 +55,10 @@ SYMMETRY = ("rotational symmetry number of the molecule's point group (C1/Cs 1, 
             "Dn/Dnd/Dnh 2n, Td 12, Oh 24, C-inf-v 1, D-inf-h 2; McQuarrie & Simon, Molecular "
             "Thermodynamics, 1999)")
 
+LINDH = ("Lindh, Bernhardsson, Karlstrom & Malmqvist, Chem. Phys. Lett. 1995, 241, 423, "
+         "doi:10.1016/0009-2614(95)00646-L, Table 1 (k_r, k_phi, k_tau and alpha seen quoted "
+         "with this citation in public source code; r_ref from memory)")
+
 
 @dataclass(frozen=True)
 class Reference:
@@ -225,6 +229,9 @@ REFERENCE_VALUES = {
                                              "J. Am. Chem. Soc. 1967, 89, 760", "from memory"),
     "dichloroethane_anti_preference_gas": _r((1.1, 1.2), "kcal/mol", "1,2-dichloroethane, gas "
                                              "phase, gauche - anti", "from memory"),
+    # Lindh model Hessian: k_r (stretch force constant) and the H-H reference distance
+    "lindh_k_stretch": _r(0.45, "hartree/bohr^2", LINDH, "secondary"),
+    "lindh_r_ref_hh": _r(1.35, "bohr", LINDH, "from memory"),
 }
 
 

@@ -17,6 +17,8 @@ from rdkit.Chem import AllChem
 
 from confpop.model_hessian import _CUTOFF, lindh_hessian, lindh_weights
 
+from reference_values import value
+
 
 def _embedded(smiles, seed=7):
     mol = Chem.AddHs(Chem.MolFromSmiles(smiles))
@@ -88,12 +90,13 @@ def test_lindh_hessian_equals_its_definition_summed_by_brute_force(smiles):
 
 
 def test_lindh_hessian_of_h2_at_the_reference_distance():
-    # rho = 1 at r = r_ref(H-H) = 1.35 bohr: the bond curvature is k_r = 0.45 hartree/bohr^2
-    x = np.array([[0.0, 0.0, 0.0], [0.0, 0.0, 1.35]])
+    # rho = 1 at r = r_ref(H-H): the bond curvature is k_r (Lindh et al. 1995, Table 1)
+    r_ref, k_r = value("lindh_r_ref_hh"), value("lindh_k_stretch")
+    x = np.array([[0.0, 0.0, 0.0], [0.0, 0.0, r_ref]])
     h = lindh_hessian([1, 1], x)
     u = np.array([0.0, 0.0, -1.0, 0.0, 0.0, 1.0]) / np.sqrt(2.0)  # symmetric stretch
     # a displacement s along u stretches r by s*sqrt(2): u.H.u = d2E/ds2 = 2 d2E/dr2
-    assert u @ h @ u / 2.0 == pytest.approx(0.45, rel=1e-12)
+    assert u @ h @ u / 2.0 == pytest.approx(k_r, rel=1e-12)
     assert np.linalg.matrix_rank(h, tol=1e-10) == 1
 
 
