@@ -38,7 +38,6 @@ import time
 os.environ.setdefault("OMP_NUM_THREADS", "1")
 
 import numpy as np  # noqa: E402
-from rdkit import Chem  # noqa: E402
 
 import confpop as cp  # noqa: E402
 import confpop.optimize as copt  # noqa: E402

@@ -63,7 +63,6 @@ population cut to the force-field energies.
 from __future__ import annotations
 
 import logging
-import os
 import time
 
 import numpy as np
