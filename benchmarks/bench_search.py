@@ -215,6 +215,11 @@ def whole_search(name, smiles, paths, seed, trials, rounds, meter):
 
 
 def main() -> None:
+    if "--versus-all" in sys.argv:  # every other option belongs to the earlier benchmark
+        from bench_search_all import main as versus_all
+        sys.argv = [a for a in sys.argv if a != "--versus-all"]
+        versus_all()
+        return
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--starts", type=int, default=30, help="starts per molecule for the paths")
     ap.add_argument("--paths", default="reference,lindh-primitive",
@@ -228,13 +233,9 @@ def main() -> None:
     ap.add_argument("--trials", type=int, default=None, help="search: trials per round")
     ap.add_argument("--rounds", type=int, default=None, help="search: largest number of rounds")
     ap.add_argument("--versus-all", action="store_true",
-                    help="the earlier comparison with optimizing every trial structure")
-    args, rest = ap.parse_known_args()
-    if args.versus_all:
-        from bench_search_all import main as versus_all
-        sys.argv = [sys.argv[0], *rest]
-        versus_all()
-        return
+                    help="run the earlier comparison with optimizing every trial structure "
+                         "(benchmarks/bench_search_all.py) with the other options")
+    args = ap.parse_args()
     paths = [p.strip() for p in args.paths.split(",") if p.strip()]
     print(f"confpop from {os.path.dirname(cp.__file__)}; load average at start "
           f"{os.getloadavg()[0]:.2f} ({len(os.sched_getaffinity(0))} usable cores)", flush=True)
