@@ -16,7 +16,8 @@ one process (serial, ``OMP_NUM_THREADS=1``), per molecule:
 2. **Whole search** (``--search``): ``confpop.search`` with its defaults (``--trials`` and
    ``--rounds`` to make it smaller), once per path in ``--paths``, with the CPU of the search,
    the number of gradient calls, the engine floor and the ratio, and median/p90 calls of
-   the tight optimizations (minimum check included).
+   the tight optimizations (minimum check included), and the CPU spent inside engine calls
+   against the rest (sampling, screening bookkeeping, geomeTRIC's own step work, pruning).
 
 Goals (issue "Speed"): CPU / floor <= 1.3; median calls <= 16 at 31 atoms.
 
@@ -209,7 +210,7 @@ def whole_search(name, smiles, paths, seed, trials, rounds, meter):
         floor = n_grad * t_grad
         out.append((name, p, cpu, wall, n_grad, len(meter.energy_times), floor, cpu / floor,
                     len(calls), statistics.median(calls) if calls else float("nan"), p90(calls),
-                    len(ens), sum(meter.energy_times)))
+                    len(ens), sum(meter.gradient_times) + sum(meter.energy_times)))
     set_path("reference")
     return out
 
@@ -258,7 +259,8 @@ def main() -> None:
                 print(f"  {r[0]} search [{r[1]}]: CPU {r[2]:.1f} s (wall {r[3]:.1f} s), "
                       f"{r[4]} gradient calls + {r[5]} single points, floor {r[6]:.1f} s, "
                       f"CPU/floor {r[7]:.2f}, {r[8]} optimizations median {r[9]:.0f} "
-                      f"(p90 {r[10]:.0f}) calls, {r[11]} conformers", flush=True)
+                      f"(p90 {r[10]:.0f}) calls, {r[11]} conformers; engine calls took "
+                      f"{r[12]:.1f} s, the rest {r[2] - r[12]:.1f} s", flush=True)
             search_rows += rows
     if opt_rows:
         print()
@@ -273,10 +275,11 @@ def main() -> None:
         print()
         print(f"{'molecule':28s} {'path':>26} {'CPU s':>7} {'wall s':>7} {'gradients':>9} "
               f"{'SPs':>5} {'floor s':>7} {'CPU/floor':>9} {'opts':>5} {'median':>6} {'p90':>5} "
-              f"{'confs':>5}")
+              f"{'confs':>5} {'engine s':>8} {'rest s':>7}")
         for r in search_rows:
             print(f"{r[0]:28s} {r[1]:>26s} {r[2]:>7.1f} {r[3]:>7.1f} {r[4]:>9d} {r[5]:>5d} "
-                  f"{r[6]:>7.1f} {r[7]:>9.2f} {r[8]:>5d} {r[9]:>6.0f} {r[10]:>5.0f} {r[11]:>5d}")
+                  f"{r[6]:>7.1f} {r[7]:>9.2f} {r[8]:>5d} {r[9]:>6.0f} {r[10]:>5.0f} {r[11]:>5d} "
+                  f"{r[12]:>8.1f} {r[2] - r[12]:>7.1f}")
     print(f"load average at end: {os.getloadavg()[0]:.2f}")
 
 
