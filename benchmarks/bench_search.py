@@ -1,38 +1,31 @@
-"""Multi-level search vs optimizing every sampled structure at GFN2-xTB.
+"""Speed of a GFN2 search: gradient calls per optimization and CPU against the engine floor.
 
-For three invented flexible molecules (5-8 rotatable bonds, 30-50 atoms; invented for this
-benchmark, not taken from any data set) this prints, side by side and measured in one run:
+Invented molecules (names are descriptions, not compounds of any project). In one run and
+one process (serial, ``OMP_NUM_THREADS=1``), per molecule:
 
-* wall time of ``confpop.search`` (sample, MMFF94s relax, GFN2 single-point screen, tight
-  GFN2 optimization of the survivors, prune);
-* wall time of a baseline that optimizes *every* sampled trial structure at GFN2 with the
-  same optimizer and settings and no screening, then removes duplicates and applies the same
-  final window. Its starts are the search's own trial structures: the same ETKDG seeds and
-  rounds, each relaxed with MMFF94s exactly as the search's sampling stage does, before any
-  duplicate removal or window (``--baseline-starts raw`` starts from the unrelaxed ETKDG
-  structures instead). The baseline's time includes drawing and relaxing the structures;
-* the lowest energy each found, and the population overlap sum_i min(p_i, q_i) at 298.15 K
-  (conformers matched by symmetry-aware RMSD < 0.25 A, mirror images included): this
-  measures what the screening lost;
-* the same two figures between the search and a second search with another seed (seed + 1):
-  the reproducibility of the sampling itself, which bounds any comparison of two ensembles;
-* median gradient calls per optimization for geomeTRIC (ours) and for scipy's L-BFGS-B in
-  Cartesian coordinates, from the same starting structures (a sample of them).
+1. **Optimizer paths, interleaved** (``--starts N``, default 30): the search's own
+   MMFF94s-relaxed ETKDG structures are optimized ("tight") by each path in ``--paths``
+   (default ``reference,lindh-primitive``: geomeTRIC's own guess Hessian with fresh SCF guesses, as
+   before, and Lindh's force constants with SCF restarts (the default), see :mod:`confpop.geometric_fast`),
+   start by start, one path after the other, and
+   once by the reference path at "verytight" (the yardstick). Printed per path: median and
+   p90 gradient calls per optimization, CPU per optimization, the engine floor (gradient
+   calls x the CPU time of one gradient, measured on the same molecule in the same run) and
+   the ratio CPU / floor, and the starts that ended more than 0.05 kcal/mol above the
+   verytight energy (a neighbouring minimum or a saddle) or failed.
+2. **Whole search** (``--search``): ``confpop.search`` with its defaults (``--trials`` and
+   ``--rounds`` to make it smaller), once per path in ``--paths``, with the CPU of the search,
+   the number of gradient calls, the engine floor and the ratio, and median/p90 calls of
+   the tight optimizations (minimum check included), and the CPU spent inside engine calls
+   against the rest (sampling, screening bookkeeping, geomeTRIC's own step work, pruning).
 
-With ``--screen-windows 6,4,3`` the search runs once per single-point screening window
-(kcal/mol) and each run is compared with the same baseline: the trade between work saved
-and population lost.
+Goals (issue "Speed"): CPU / floor <= 1.3; median calls <= 16 at 31 atoms.
 
-Targets: search >= 5x faster than the baseline, the same global minimum within 0.1
-kcal/mol, overlap >= 0.9; median gradient calls <= 60 at 48 atoms.
+    nice -n 10 python benchmarks/bench_search.py [--starts 30] [--only ester] [--paths reference,model]
+                                                 [--search] [--trials 60 --rounds 1]
 
-    python benchmarks/bench_search.py [--trials N] [--rounds R] [--workers 2] [--only NAME]
-                                      [--baseline-starts relaxed|raw] [--no-reseed]
-                                      [--screen-windows 6,4,3]
-
-Without ``--trials``/``--rounds`` the search runs with its defaults (trials per round by
-flexibility, rounds until the completeness target); the baseline then optimizes as many
-structures as the search drew, which takes 10-30 minutes per molecule on 2 cores.
+The ``--versus-all`` mode keeps the earlier comparison of the multi-level search with
+optimizing every trial structure (see :func:`versus_all`).
 """
 
 from __future__ import annotations
@@ -40,181 +33,253 @@ from __future__ import annotations
 import argparse
 import os
 import statistics
+import sys
 import time
 
 os.environ.setdefault("OMP_NUM_THREADS", "1")
 
 import numpy as np  # noqa: E402
-from rdkit import Chem  # noqa: E402
 
 import confpop as cp  # noqa: E402
+import confpop.optimize as copt  # noqa: E402
 from confpop.backends import get_backend  # noqa: E402
-from confpop.backends.forcefield import minimize_conformers  # noqa: E402
 from confpop.molecule import load_molecule  # noqa: E402
-from confpop.optimize import optimize_positions  # noqa: E402
-from confpop.pipeline import optimize_unit  # noqa: E402
-from confpop.prune import PruneSettings, automorphisms, best_rmsd, find_duplicates, rmsd_atoms  # noqa: E402
-from confpop.sampling import embed  # noqa: E402
 from confpop.units import convert  # noqa: E402
 
 # invented molecules (names are descriptions, not real compounds of any project)
 MOLECULES = {
-    "invented hydroxy-ester": "CC(C)OC(=O)C[C@H](O)CCOC",
-    "invented ether-amide": "COCCN(C)C(=O)CC[C@@H](C)OC",
-    "invented aryl ester": "CCOC(=O)CCc1ccc(OC[C@H](C)CC)cc1",
+    "invented hydroxy-ester 31": "CCOC(=O)C[C@H](O)CCCOC",
+    "invented ether-amide 35": "COCCN(C)C(=O)CC[C@@H](C)OC",
+    "invented aryl ester 43": "CCOC(=O)CCc1ccc(OC[C@H](C)CC)cc1",
 }
 
 
-def _overlap(ens_a, ens_b, mol) -> float:
-    """sum_i min(p_i, q_i) at 298.15 K, conformers matched by RMSD < 0.25 A (with mirrors)."""
-    pa = ens_a.populations(298.15)[298.15]
-    pb = ens_b.populations(298.15)[298.15]
-    perms = automorphisms(mol, rmsd_atoms(mol))
-    total = 0.0
-    used = set()
-    for ia in pa.index:
-        for ib in pb.index:
-            if ib in used:
-                continue
-            if best_rmsd(ens_a.positions(ia), ens_b.positions(ib), perms, allow_reflection=True) < 0.25:
-                total += min(pa[ia], pb[ib])
-                used.add(ib)
-                break
-    return total
+class Meter:
+    """Counts and times (process CPU) every engine call of the xtb-python backends."""
+
+    def __init__(self):
+        import confpop.backends.xtb as xtb_backends
+
+        self.cls = xtb_backends._XTBBackend
+        self.original = self.cls._compute
+        self.gradient_times: list[float] = []
+        self.energy_times: list[float] = []
+        self.optimizations: list[tuple[str, int]] = []
+        meter = self
+
+        def timed(backend, positions, gradient):
+            t0 = time.process_time()
+            try:
+                return meter.original(backend, positions, gradient)
+            finally:
+                (meter.gradient_times if gradient else meter.energy_times).append(
+                    time.process_time() - t0)
+
+        self.cls._compute = timed
+        self.original_optimize = copt.optimize_positions
+
+        def counted(*args, **kwargs):
+            res = meter.original_optimize(*args, **kwargs)
+            meter.optimizations.append((str(kwargs.get("convergence", "tight")),
+                                        res.gradient_calls))
+            return res
+
+        copt.optimize_positions = counted
+
+    def reset(self):
+        self.gradient_times.clear()
+        self.energy_times.clear()
+        self.optimizations.clear()
 
 
-def _e_min(ens) -> float:
-    return float(ens.raw_table.loc[ens.ids(), f"energy_{ens.level}"].min())
-
-
-def _trial_structures(mol, trials, rounds, seed, starts):
-    """The search's trial structures: same seeds and rounds; MMFF94s-relaxed or raw."""
-    structures = []
-    for rnd in range(rounds):
-        trial, _ = embed(mol, trials, seed=seed, round_index=rnd)
-        if starts == "relaxed":
-            trial, _ = minimize_conformers(trial, method="mmff94s", max_iterations=2000)
-        structures += [c.GetPositions() for c in trial.GetConformers()]
-    return structures
-
-
-def _baseline(mol, trials, rounds, seed, workers, starts):
-    """Optimize every sampled trial structure at GFN2 (same optimizer), prune, window."""
-    t0 = time.perf_counter()
-    structures = _trial_structures(mol, trials, rounds, seed, starts)
-    item = {"mol": Chem.Mol(mol).ToBinary(), "method": "gfn2", "charge": 0, "multiplicity": 1,
-            "solvent": None, "options": {}, "convergence": "tight", "engine": "geometric"}
-    outcomes = cp.run_units(optimize_unit, [{**item, "positions": p} for p in structures],
-                            workers=workers)
-    ok = [o.value for o in outcomes if o.ok]
-    e = np.array([v["energy"] for v in ok])
-    rep = find_duplicates(mol, [v["positions"] for v in ok], e, PruneSettings())
-    keep = [u for u in rep.unique if convert(e[u] - e.min(), "hartree", "kcal/mol") <= 5.0]
-    out = Chem.Mol(mol)
-    out.RemoveAllConformers()
-    for u in keep:
-        conf = Chem.Conformer(mol.GetNumAtoms())
-        for a, xyz in enumerate(ok[u]["positions"]):
-            conf.SetAtomPosition(a, tuple(float(x) for x in xyz))
-        out.AddConformer(conf, assignId=True)
-    deg = [2 if rep.chiral_conformer[u] else 1 for u in keep]
-    ens = cp.Ensemble.from_mol(out, [e[u] for u in keep], level="gfn2", degeneracy=deg)
-    calls = [v["gradient_calls"] for v in ok]
-    return (ens, time.perf_counter() - t0, len(structures), statistics.median(calls),
-            structures, len(outcomes) - len(ok))
-
-
-def _lbfgs_calls(mol, structures, n):
+def one_gradient(mol, positions, repeats=15) -> float:
+    """Median CPU seconds of one GFN2 energy+gradient from a fresh SCF guess."""
     backend = get_backend("gfn2", mol)
-    calls_g, calls_l = [], []
-    step = max(1, len(structures) // max(n, 1))
-    for pos in structures[::step][:n]:
-        calls_g.append(optimize_positions(backend, pos, convergence="tight").gradient_calls)
-        calls_l.append(optimize_positions(backend, pos, convergence="tight", engine="lbfgs").gradient_calls)
-    return statistics.median(calls_g), statistics.median(calls_l)
+    backend.compute(positions, gradient=True)
+    times = []
+    for _ in range(repeats):
+        t0 = time.process_time()
+        backend.compute(positions, gradient=True)
+        times.append(time.process_time() - t0)
+    return statistics.median(times)
 
 
-def _stage_counts(ens) -> str:
-    steps = {p["step"]: p for p in ens.provenance}
-    return " -> ".join(f"{name} {steps[name]['n_out']}" for name in ("sample", "screen", "optimize", "prune")
-                       if name in steps)
+_CONTINUATION = None
+
+
+def set_path(path: str) -> None:
+    """Select an optimizer path: an initial Hessian, "+norestart" for fresh SCF guesses.
+
+    "reference" is geomeTRIC's own guess Hessian with a fresh SCF guess at every step (the
+    optimizer before this work); old confpop versions only have that one.
+    """
+    global _CONTINUATION
+    import contextlib
+
+    from confpop.backends.base import Backend
+
+    guess, _, flag = path.partition("+")
+    restart = flag != "norestart"
+    if guess == "reference":
+        guess, restart = "geometric", False
+    if hasattr(copt, "DEFAULT_HESSIAN_GUESS"):
+        copt.DEFAULT_HESSIAN_GUESS = guess
+    elif guess != "geometric":
+        sys.exit(f"this confpop has no optimizer path {path!r}")
+    if hasattr(Backend, "continuation"):
+        if _CONTINUATION is None:
+            _CONTINUATION = Backend.continuation
+        Backend.continuation = (_CONTINUATION if restart
+                                else lambda self: contextlib.nullcontext(self))
+
+
+def p90(values) -> float:
+    return float(np.percentile(values, 90)) if len(values) else float("nan")
+
+
+def starts_of(mol, n, seed):
+    from confpop.sampling import sample_conformers
+
+    sampled = sample_conformers(mol, n_trials=max(2 * n, 40), seed=seed, max_rounds=1)
+    sampled = sampled[0] if isinstance(sampled, tuple) else sampled
+    smol = sampled.mol if hasattr(sampled, "mol") else sampled
+    confs = list(smol.GetConformers())
+    step = max(1, len(confs) // n) if len(confs) >= n else 1
+    return [c.GetPositions() for c in confs[::step][:n]]
+
+
+def optimizer_paths(name, smiles, paths, n_starts, seed, meter):
+    mol = load_molecule(smiles)
+    starts = starts_of(mol, n_starts, seed)
+    backend = get_backend("gfn2", mol)
+    rows = {p: {"calls": [], "cpu": [], "energy": [], "failed": 0} for p in paths}
+    reference_energy = []
+    for start in starts:
+        set_path("reference")
+        try:
+            ref = copt.optimize_positions(backend, start, convergence="verytight", max_steps=600)
+            reference_energy.append(ref.energy)
+        except cp.errors.ConfpopError:
+            reference_energy.append(np.nan)
+        for p in paths:
+            set_path(p)
+            t0 = time.process_time()
+            try:
+                res = copt.optimize_positions(backend, start, convergence="tight")
+            except cp.errors.ConfpopError:
+                rows[p]["failed"] += 1
+                rows[p]["energy"].append(np.nan)
+                continue
+            rows[p]["cpu"].append(time.process_time() - t0)
+            rows[p]["calls"].append(res.gradient_calls if res.converged else res.gradient_calls)
+            rows[p]["energy"].append(res.energy if res.converged else np.nan)
+            if not res.converged:
+                rows[p]["failed"] += 1
+    set_path("reference")
+    t_grad = one_gradient(mol, starts[0])
+    out = []
+    for p in paths:
+        r = rows[p]
+        de = convert(np.array(r["energy"]) - np.array(reference_energy), "hartree", "kcal/mol")
+        high = int(np.sum(de > 0.05))
+        floor = np.array(r["calls"]) * t_grad
+        cpu = np.array(r["cpu"])
+        out.append((name, mol.GetNumAtoms(), p, len(starts), statistics.median(r["calls"]),
+                    p90(r["calls"]), float(np.median(cpu)), float(np.sum(cpu) / np.sum(floor)),
+                    float(np.nanmax(de)), high, r["failed"], t_grad))
+    return out
+
+
+def whole_search(name, smiles, paths, seed, trials, rounds, meter):
+    out = []
+    mol = load_molecule(smiles)
+    for p in paths:
+        set_path(p)
+        meter.reset()
+        kw = {"workers": 1, "seed": seed}
+        if trials:
+            kw["n_trials"] = trials
+        if rounds:
+            kw["max_rounds"] = rounds
+        t0, w0 = time.process_time(), time.perf_counter()
+        ens = cp.search(smiles, **kw)
+        cpu, wall = time.process_time() - t0, time.perf_counter() - w0
+        calls = [c for conv, c in meter.optimizations if conv != "loose"]
+        n_grad = len(meter.gradient_times)
+        t_grad = one_gradient(mol, ens.positions(ens.ids()[0]))
+        floor = n_grad * t_grad
+        out.append((name, p, cpu, wall, n_grad, len(meter.energy_times), floor, cpu / floor,
+                    len(calls), statistics.median(calls) if calls else float("nan"), p90(calls),
+                    len(ens), sum(meter.gradient_times) + sum(meter.energy_times)))
+    set_path("reference")
+    return out
 
 
 def main() -> None:
+    if "--versus-all" in sys.argv:  # every other option belongs to the earlier benchmark
+        from bench_search_all import main as versus_all
+        sys.argv = [a for a in sys.argv if a != "--versus-all"]
+        versus_all()
+        return
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--trials", type=int, default=None, help="trial structures per round (default: the search's)")
-    ap.add_argument("--rounds", type=int, default=None, help="largest number of rounds (default: the search's)")
-    ap.add_argument("--workers", type=int, default=2)
+    ap.add_argument("--starts", type=int, default=30, help="starts per molecule for the paths")
+    ap.add_argument("--paths", default="reference,lindh-primitive",
+                    help="optimizer paths, comma-separated: an initial Hessian (geometric, lindh, "
+                         "lindh-primitive) with '+norestart' for fresh SCF guesses; reference = "
+                         "geometric+norestart, the optimizer before the speed work")
+    ap.add_argument("--only", default=None, help="molecules whose name contains this (comma-separated)")
     ap.add_argument("--seed", type=int, default=1)
-    ap.add_argument("--calls-sample", type=int, default=4,
-                    help="structures per molecule for the geomeTRIC vs L-BFGS-B call count")
-    ap.add_argument("--only", default=None,
-                    help="run only molecules whose name contains this (several: comma-separated)")
-    ap.add_argument("--baseline-starts", choices=("relaxed", "raw"), default="relaxed",
-                    help="baseline starts: MMFF94s-relaxed trial structures (the search's) or raw ETKDG")
-    ap.add_argument("--no-reseed", action="store_true", help="skip the second search (seed + 1)")
-    ap.add_argument("--screen-windows", default="6",
-                    help="comma-separated single-point screening windows in kcal/mol (default 6, "
-                         "the search's default); the first one is the reference run")
+    ap.add_argument("--search", action="store_true", help="also run whole searches per path")
+    ap.add_argument("--no-paths", action="store_true", help="skip the optimizer-path comparison")
+    ap.add_argument("--trials", type=int, default=None, help="search: trials per round")
+    ap.add_argument("--rounds", type=int, default=None, help="search: largest number of rounds")
+    ap.add_argument("--versus-all", action="store_true",
+                    help="run the earlier comparison with optimizing every trial structure "
+                         "(benchmarks/bench_search_all.py) with the other options")
     args = ap.parse_args()
-    print(f"load average at start: {os.getloadavg()[0]:.2f} ({os.cpu_count()} cores)", flush=True)
-    search_kw = {"method": "gfn2", "workers": args.workers}
-    if args.trials is not None:
-        search_kw["n_trials"] = args.trials
-    if args.rounds is not None:
-        search_kw["max_rounds"] = args.rounds
-    rows = []
+    paths = [p.strip() for p in args.paths.split(",") if p.strip()]
+    print(f"confpop from {os.path.dirname(cp.__file__)}; load average at start "
+          f"{os.getloadavg()[0]:.2f} ({len(os.sched_getaffinity(0))} usable cores)", flush=True)
+    meter = Meter()
+    opt_rows, search_rows = [], []
     for name, smiles in MOLECULES.items():
         if args.only and not any(part.strip() in name for part in args.only.split(",")):
             continue
-        mol = load_molecule(smiles)
-        windows = [float(w) for w in args.screen_windows.split(",")]
-        runs = []
-        for w in windows:
-            t0 = time.perf_counter()
-            ens = cp.search(smiles, seed=args.seed, screen_window=w, **search_kw)
-            runs.append((w, ens, time.perf_counter() - t0))
-        ens = runs[0][1]
-        sample = next(p for p in ens.provenance if p["step"] == "sample")
-        trials = sample["trials"] // sample["rounds"]
-        base, t_base, n_struct, base_calls, structures, base_failed = _baseline(
-            mol, trials, sample["rounds"], args.seed, args.workers, args.baseline_starts)
-        if args.no_reseed:
-            t_again, overlap_seed, d_e_seed = float("nan"), float("nan"), float("nan")
-        else:
-            t0 = time.perf_counter()
-            again = cp.search(smiles, seed=args.seed + 1, screen_window=windows[0], **search_kw)
-            t_again = time.perf_counter() - t0
-            overlap_seed = _overlap(ens, again, mol)
-            d_e_seed = convert(_e_min(again) - _e_min(ens), "hartree", "kcal/mol")
-        med_geo, med_lbfgs = _lbfgs_calls(mol, structures, args.calls_sample)
-        rot = cp.molecule.molecule_summary(mol)["rotatable_bonds"]
-        print(f"{name}: baseline {t_base:.1f} s ({n_struct} {args.baseline_starts} starts optimized, "
-              f"{base_failed} failed, {len(base)} conformers, median {base_calls:.0f} calls) | "
-              f"second search (seed {args.seed + 1}) {t_again:.1f} s: overlap {overlap_seed:.3f}, "
-              f"E_min difference {d_e_seed:+.3f} kcal/mol | median gradient calls geomeTRIC "
-              f"{med_geo:.0f}, L-BFGS-B {med_lbfgs:.0f}", flush=True)
-        for k, (w, run, t_search) in enumerate(runs):
-            d_e = convert(_e_min(run) - _e_min(base), "hartree", "kcal/mol")
-            overlap = _overlap(run, base, mol)
-            rows.append((name, mol.GetNumAtoms(), rot, w, t_search, t_base, n_struct, d_e, overlap,
-                         overlap_seed if k == 0 else float("nan"),
-                         d_e_seed if k == 0 else float("nan"), med_geo, med_lbfgs))
-            print(f"  screen window {w:g} kcal/mol: search {t_search:.1f} s ({_stage_counts(run)}; "
-                  f"{len(run)} conformers, completeness {sample['completeness']:.2f}) | speed-up "
-                  f"{t_base / t_search:.1f}x | E_min(search) - E_min(baseline) {d_e:+.3f} kcal/mol | "
-                  f"overlap {overlap:.3f}", flush=True)
-    print()
-    print(f"{'molecule':24s} {'atoms':>5} {'rot':>3} {'screen':>6} {'search s':>9} {'baseline s':>10} {'starts':>6} "
-          f"{'speed-up':>8} {'dEmin':>7} {'overlap':>7} {'seed ovl':>8} {'seed dE':>7} "
-          f"{'calls geo':>9} {'calls LBFGS':>11}")
-    for r in rows:
-        print(f"{r[0]:24s} {r[1]:>5d} {r[2]:>3d} {r[3]:>6g} {r[4]:>9.1f} {r[5]:>10.1f} {r[6]:>6d} "
-              f"{r[5] / r[4]:>7.1f}x {r[7]:>+7.3f} {r[8]:>7.3f} {r[9]:>8.3f} {r[10]:>+7.3f} "
-              f"{r[11]:>9.0f} {r[12]:>11.0f}")
-    print("screen = single-point screening window, kcal/mol; dEmin, seed dE in kcal/mol; overlap = "
-          "sum min(p, q) at 298.15 K vs the baseline; seed ovl = the same between two searches "
-          "with different seeds (first window only)")
+        if not args.no_paths:
+            rows = optimizer_paths(name, smiles, paths, args.starts, args.seed, meter)
+            for r in rows:
+                print(f"  {r[0]} [{r[2]}]: median {r[4]:.0f} calls (p90 {r[5]:.0f}), "
+                      f"{r[6]:.2f} s CPU per optimization, CPU/floor {r[7]:.2f}, worst dE "
+                      f"{r[8]:+.3f} kcal/mol, {r[9]} above +0.05, {r[10]} failed/unconverged; "
+                      f"one gradient {1000 * r[11]:.1f} ms", flush=True)
+            opt_rows += rows
+        if args.search:
+            rows = whole_search(name, smiles, paths, args.seed, args.trials, args.rounds, meter)
+            for r in rows:
+                print(f"  {r[0]} search [{r[1]}]: CPU {r[2]:.1f} s (wall {r[3]:.1f} s), "
+                      f"{r[4]} gradient calls + {r[5]} single points, floor {r[6]:.1f} s, "
+                      f"CPU/floor {r[7]:.2f}, {r[8]} optimizations median {r[9]:.0f} "
+                      f"(p90 {r[10]:.0f}) calls, {r[11]} conformers; engine calls took "
+                      f"{r[12]:.1f} s, the rest {r[2] - r[12]:.1f} s", flush=True)
+            search_rows += rows
+    if opt_rows:
+        print()
+        print(f"{'molecule':28s} {'atoms':>5} {'path':>26} {'starts':>6} {'median':>6} {'p90':>5} "
+              f"{'CPU s/opt':>9} {'CPU/floor':>9} {'worst dE':>8} {'>0.05':>5} {'failed':>6}")
+        for r in opt_rows:
+            print(f"{r[0]:28s} {r[1]:>5d} {r[2]:>26s} {r[3]:>6d} {r[4]:>6.0f} {r[5]:>5.0f} "
+                  f"{r[6]:>9.2f} {r[7]:>9.2f} {r[8]:>+8.3f} {r[9]:>5d} {r[10]:>6d}")
+        print("median/p90 = gradient calls per tight optimization; floor = calls x CPU of one "
+              "gradient; dE vs geomeTRIC 'verytight' from the same start, kcal/mol")
+    if search_rows:
+        print()
+        print(f"{'molecule':28s} {'path':>26} {'CPU s':>7} {'wall s':>7} {'gradients':>9} "
+              f"{'SPs':>5} {'floor s':>7} {'CPU/floor':>9} {'opts':>5} {'median':>6} {'p90':>5} "
+              f"{'confs':>5} {'engine s':>8} {'rest s':>7}")
+        for r in search_rows:
+            print(f"{r[0]:28s} {r[1]:>26s} {r[2]:>7.1f} {r[3]:>7.1f} {r[4]:>9d} {r[5]:>5d} "
+                  f"{r[6]:>7.1f} {r[7]:>9.2f} {r[8]:>5d} {r[9]:>6.0f} {r[10]:>5.0f} {r[11]:>5d} "
+                  f"{r[12]:>8.1f} {r[2] - r[12]:>7.1f}")
     print(f"load average at end: {os.getloadavg()[0]:.2f}")
 
 

@@ -63,7 +63,6 @@ population cut to the force-field energies.
 from __future__ import annotations
 
 import logging
-import os
 import time
 
 import numpy as np
@@ -139,8 +138,10 @@ def optimize_unit(item: dict) -> dict:
                              convergence=item.get("convergence", "tight"),
                              max_steps=item.get("max_steps"),
                              engine=item.get("engine", "geometric"))
-    final = backend.compute(res.positions, gradient=False)
-    dip = None if final.dipole is None else float(np.linalg.norm(final.dipole) * EBOHR_DEBYE)
+    dipole = res.dipole  # from the optimizer's last engine call: no extra single point
+    if dipole is None and "dipole" in backend.capabilities:
+        dipole = backend.compute(res.positions, gradient=False).dipole
+    dip = None if dipole is None else float(np.linalg.norm(dipole) * EBOHR_DEBYE)
     return {"positions": np.array(res.positions), "energy": res.energy, "converged": res.converged,
             "steps": res.steps, "gradient_calls": res.gradient_calls,
             "gradient_norm": res.gradient_norm, "message": res.message, "dipole_debye": dip}
@@ -166,7 +167,7 @@ def minimum_unit(item: dict) -> dict:
 
 def _run(function, items, *, executor, workers, progress, store, kind, description):
     """Run units through the execution layer, with the store when one is given."""
-    from .execution import run_units
+    from .execution import default_workers, run_units
 
     keys = None
     if store is not None:
@@ -181,7 +182,7 @@ def _run(function, items, *, executor, workers, progress, store, kind, descripti
                                     multiplicity=it["multiplicity"], method=it["method"],
                                     solvent=it["solvent"], settings=settings, kind=kind))
     if executor is None and workers is None:
-        workers = 1 if len(items) < 8 else (os.cpu_count() or 1)
+        workers = 1 if len(items) < 8 else default_workers()  # the CPUs we may use
     return run_units(function, items, executor=executor, workers=workers, progress=progress,
                      description=description, store=store, keys=keys)
 

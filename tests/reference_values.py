@@ -60,6 +60,10 @@ SYMMETRY = ("rotational symmetry number of the molecule's point group (C1/Cs 1, 
             "Dn/Dnd/Dnh 2n, Td 12, Oh 24, C-inf-v 1, D-inf-h 2; McQuarrie & Simon, Molecular "
             "Thermodynamics, 1999)")
 
+LINDH = ("Lindh, Bernhardsson, Karlstrom & Malmqvist, Chem. Phys. Lett. 1995, 241, 423, "
+         "doi:10.1016/0009-2614(95)00646-L, Table 1 (k_r, k_phi, k_tau and alpha seen quoted "
+         "with this citation in public source code; r_ref from memory)")
+
 
 @dataclass(frozen=True)
 class Reference:
@@ -262,6 +266,9 @@ REFERENCE_VALUES = {
                                  "H...Y <= 2.5 A (common practice), X-H...Y > 110 degrees "
                                  "(IUPAC recommendation, Arunan et al., Pure Appl. Chem. 2011, "
                                  "83, 1637)", "from memory"),
+    # Lindh model Hessian: k_r (stretch force constant) and the H-H reference distance
+    "lindh_k_stretch": _r(0.45, "hartree/bohr^2", LINDH, "secondary"),
+    "lindh_r_ref_hh": _r(1.35, "bohr", LINDH, "from memory"),
 }
 
 

@@ -270,3 +270,35 @@ def test_gfnff_is_silent_and_leaves_no_files(tmp_path, monkeypatch, capfd, butan
     captured = capfd.readouterr()
     assert captured.out == ""
     assert captured.err == ""
+
+
+@pytest.mark.parametrize("method", ["gfn2", "tblite-gfn2"])
+def test_scf_restart_inside_a_continuation_gives_the_same_energies(butane, method):
+    # Inside Backend.continuation() each SCF starts from the previous solution (the steps
+    # of one optimization); the converged energies must be those of a fresh guess (to
+    # 1e-8 hartree, the agreement asked of a restart), gradients to the SCF tolerance, and
+    # nothing is kept afterwards or pickled.
+    x = butane.GetConformer().GetPositions()
+    rng = np.random.default_rng(3)
+    path = [x + rng.normal(scale=0.02, size=x.shape) * k for k in range(4)]
+    fresh = [get_backend(method, butane).compute(p) for p in path]
+    backend = get_backend(method, butane)
+    assert backend.restarts
+    with backend.continuation():
+        warm = [backend.compute(p) for p in path]
+        assert backend._solution is not None
+        copy = pickle.loads(pickle.dumps(backend))
+        assert copy._solution is None and not copy._continuing
+    assert backend._solution is None and not backend._continuing
+    for f, w in zip(fresh, warm):
+        assert w.energy == pytest.approx(f.energy, abs=1e-8)
+        np.testing.assert_allclose(w.gradient, f.gradient, rtol=0, atol=5e-5)
+
+
+def test_gfnff_has_no_scf_to_restart(butane):
+    backend = get_backend("gfnff", butane)
+    assert not backend.restarts
+    x = butane.GetConformer().GetPositions()
+    with backend.continuation():
+        backend.compute(x)
+        assert backend._solution is None

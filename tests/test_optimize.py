@@ -339,9 +339,11 @@ def test_vectorized_geometric_takes_geometric_own_steps(engine, monkeypatch):
     for accelerate in (False, True):
         monkeypatch.setattr(optimize_module, "_ACCELERATE_GEOMETRIC", accelerate)
         backend = get_backend("mmff94", mol)
-        runs.append((optimize_positions(backend, start, engine=engine, convergence="normal"),
+        # geomeTRIC's own classes start from geomeTRIC's own guess Hessian
+        runs.append((optimize_positions(backend, start, engine=engine, convergence="normal",
+                                        hessian_guess="geometric"),
                      optimize_positions(backend, start, engine=engine, convergence="normal",
-                                        frozen_atoms=[0],
+                                        frozen_atoms=[0], hessian_guess="geometric",
                                         dihedral_constraints=[((1, 2, 3, 5), None)])))
     for own, fast in zip(*runs):
         assert own.converged and fast.converged
@@ -411,3 +413,18 @@ def _conformer(positions):
     for i, xyz in enumerate(positions):
         conf.SetAtomPosition(i, xyz.tolist())
     return conf
+
+
+def test_final_dipole_and_energy_come_from_the_last_engine_call():
+    # The search takes the dipole from the optimizer's last evaluation instead of a
+    # separate single point: it must be the dipole of a fresh single point at the final
+    # geometry (invented small polar molecule: methanol), the energy likewise.
+    mol = Chem.AddHs(Chem.MolFromSmiles("CO"))
+    assert AllChem.EmbedMolecule(mol, randomSeed=5) == 0
+    res = optimize_positions(get_backend("gfn2", mol), mol.GetConformer().GetPositions())
+    fresh = get_backend("gfn2", mol).compute(res.positions, gradient=False)
+    assert res.dipole is not None and not res.dipole.flags.writeable
+    # e*bohr; the last step restarted its SCF (Backend.continuation): equal to the SCF
+    # tolerance, 1e-4 e*bohr = 2.5e-4 debye
+    np.testing.assert_allclose(res.dipole, fresh.dipole, rtol=0, atol=1e-4)
+    assert res.energy == pytest.approx(fresh.energy, abs=1e-8)

@@ -8,6 +8,7 @@ Backends never cache: caching is the result store's job.
 
 from __future__ import annotations
 
+import contextlib
 import dataclasses
 from dataclasses import dataclass
 from typing import ClassVar
@@ -140,6 +141,36 @@ class Backend:
 
     def _compute(self, positions: np.ndarray, gradient: bool) -> BackendResult:  # pragma: no cover
         raise NotImplementedError
+
+    #: whether :meth:`continuation` makes a difference (engines that can restart an SCF)
+    restarts: ClassVar[bool] = False
+
+    @contextlib.contextmanager
+    def continuation(self):
+        """Within this block, each call may start from the previous call's solution.
+
+        For a sequence of nearby geometries (the steps of one optimization) an engine with
+        a self-consistent field starts each SCF from the last converged one instead of a
+        fresh guess: fewer SCF iterations, the same converged energies (xtb-python GFN2
+        along optimization paths: within 1e-8 hartree of a fresh guess, see
+        :mod:`confpop.backends.xtb`). Outside the block every call starts fresh, so a
+        single result never depends on the call history. Nesting is allowed.
+        """
+        depth = self.__dict__.get("_continuation_depth", 0)
+        self._continuation_depth = depth + 1
+        try:
+            yield self
+        finally:
+            self._continuation_depth = depth
+            if depth == 0:
+                self._forget_solution()
+
+    @property
+    def _continuing(self) -> bool:
+        return self.__dict__.get("_continuation_depth", 0) > 0
+
+    def _forget_solution(self) -> None:
+        """Drop a stored SCF solution (engines that keep one override this)."""
 
     def __repr__(self) -> str:
         return f"<{type(self).__name__} {self.name} charge={self.charge} mult={self.multiplicity} solvent={self.solvent}>"

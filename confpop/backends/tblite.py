@@ -79,13 +79,21 @@ class _TbliteBackend(Backend):
         if self.solvent is not None:
             self.options["solvent_model"] = model.lower()
         self._calculator = None
+        self._solution = None  # the last SCF solution, kept only inside continuation()
         _engine()  # fail early (BackendUnavailable) if tblite is missing
 
-    # The engine object holds C pointers: never pickle it (workers rebuild it).
+    restarts: ClassVar[bool] = True
+
+    # The engine objects hold C pointers: never pickle them (workers rebuild them).
     def __getstate__(self):
         state = self.__dict__.copy()
         state["_calculator"] = None
+        state["_solution"] = None
+        state["_continuation_depth"] = 0
         return state
+
+    def _forget_solution(self) -> None:
+        self._solution = None
 
     def _new_calculator(self, positions_bohr):
         interface, _ = _engine()
@@ -111,21 +119,32 @@ class _TbliteBackend(Backend):
         xyz = np.ascontiguousarray(positions * ANGSTROM_BOHR)
         try:
             # The calculator is reused across calls; each call starts from a fresh guess,
-            # so a result never depends on the call history.
+            # except inside continuation() where it starts from the previous solution.
             if self._calculator is None:
                 self._calculator = self._new_calculator(xyz)
             else:
                 self._calculator.update(xyz)
-            res = self._calculator.singlepoint()
+            previous = self.__dict__.get("_solution") if self._continuing else None
+            if previous is None:
+                res = self._calculator.singlepoint()
+            else:
+                try:
+                    res = self._calculator.singlepoint(previous)
+                except errors:  # a restart that fails gets a fresh guess
+                    self._calculator = self._new_calculator(xyz)
+                    res = self._calculator.singlepoint()
+            self._solution = res if self._continuing else None
             energy = float(res.get("energy"))
             grad = res.get("gradient") * ANGSTROM_BOHR if gradient else None
             dipole = res.get("dipole")
             charges = res.get("charges")
         except errors as exc:
             self._calculator = None  # do not reuse an engine object after a failure
+            self._solution = None
             raise CalculationFailed(f"{self.name} calculation failed: {exc}") from exc
         if not np.isfinite(energy):
             self._calculator = None
+            self._solution = None
             raise CalculationFailed(f"{self.name} returned a non-finite energy ({energy})")
         return BackendResult(energy=energy, gradient=grad, dipole=dipole, charges=charges)
 

@@ -228,13 +228,21 @@ class _XTBBackend(Backend):
         if self.solvent is not None:
             self.options["solvent_model"] = "gbsa"
         self._calculator = None
+        self._solution = None  # the last SCF solution, kept only inside continuation()
         _engine()  # fail early (BackendUnavailable) if xtb-python is missing
 
-    # The engine object holds C pointers: never pickle it (workers rebuild it).
+    restarts: ClassVar[bool] = True
+
+    # The engine objects hold C pointers: never pickle them (workers rebuild them).
     def __getstate__(self):
         state = self.__dict__.copy()
         state["_calculator"] = None
+        state["_solution"] = None
+        state["_continuation_depth"] = 0
         return state
+
+    def _forget_solution(self) -> None:
+        self._solution = None
 
     def _new_calculator(self, positions_bohr):
         interface, libxtb = _engine()
@@ -258,21 +266,34 @@ class _XTBBackend(Backend):
         xyz = np.ascontiguousarray(positions * ANGSTROM_BOHR)
         try:
             # The calculator (parameters, solvent model) is reused across calls; each call
-            # starts from a fresh guess, so a result never depends on the call history.
+            # starts from a fresh guess, except inside continuation() where it starts from
+            # the previous solution (Backend.continuation).
             if self._calculator is None:
                 self._calculator = self._new_calculator(xyz)
             else:
                 self._calculator.update(xyz)
-            res = self._calculator.singlepoint()
+            keep = self._continuing and self.restarts
+            previous = self.__dict__.get("_solution") if keep else None
+            if previous is None:
+                res = self._calculator.singlepoint()
+            else:
+                try:
+                    res = self._calculator.singlepoint(previous)
+                except interface.XTBException:  # a restart that fails gets a fresh guess
+                    self._calculator = self._new_calculator(xyz)
+                    res = self._calculator.singlepoint()
+            self._solution = res if keep else None
             energy = res.get_energy()
             grad = res.get_gradient() * ANGSTROM_BOHR if gradient else None
             dipole = res.get_dipole() if "dipole" in self.capabilities else None
             charges = res.get_charges() if "charges" in self.capabilities else None
         except interface.XTBException as exc:
             self._calculator = None  # do not reuse an engine object after a failure
+            self._solution = None
             raise CalculationFailed(f"{self.name} calculation failed: {exc}") from exc
         if not np.isfinite(energy):
             self._calculator = None
+            self._solution = None
             raise CalculationFailed(f"{self.name} returned a non-finite energy ({energy})")
         return BackendResult(energy=energy, gradient=grad, dipole=dipole, charges=charges)
 
@@ -352,6 +373,7 @@ class GFNFF(_XTBBackend):
     """
 
     name: ClassVar[str] = "gfnff"
+    restarts: ClassVar[bool] = False  # no SCF to restart
     capabilities: ClassVar[frozenset[str]] = frozenset({"energy", "gradient", "dipole", "solvent"})
     _param: ClassVar[str] = "GFNFF"
     _option_names: ClassVar[tuple[str, ...]] = ("accuracy", "solvent_model")

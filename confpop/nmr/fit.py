@@ -41,7 +41,6 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
-from scipy import optimize, stats
 
 from ..errors import InputError
 from ..units import gas_constant, normalize_unit
@@ -351,6 +350,8 @@ def _solve(aw, yw, prior=None, prior_weight=0.0, columns=None):
     big = 1e3 * (1.0 + float(np.max(np.abs(a))) if a.size else 1.0)
     a = np.vstack([a, big * np.ones((1, len(cols)))])
     y = np.concatenate([y, [big]])
+    from scipy import optimize  # lazily: scipy.optimize/stats cost ~0.3 s at import
+
     sol, _ = optimize.nnls(a, y, maxiter=50 * max(n, 10))
     total = sol.sum()
     if total <= 0:
@@ -617,6 +618,8 @@ def _families(ens, ids, a, y, sig, p, boltz, nb, seed) -> pd.DataFrame:
         return pd.DataFrame(columns=cols)
     rng = np.random.default_rng(seed)
     positions = {cid: ens.positions(cid) for cid in ids}
+    from scipy import stats  # lazily (import time)
+
     limit = float(stats.chi2.ppf(0.95, max(len(y), 1)))
     rows = []
     for t in rotatable_torsions(ens.mol):
@@ -639,6 +642,8 @@ def _families(ens, ids, a, y, sig, p, boltz, nb, seed) -> pd.DataFrame:
 
 def _minimal_subset(aw, yw, a, meta, averaging, reps, ids, n_obs, budget):
     """Smallest subset of representative conformers with chi2 <= chi2_95(n_obs)."""
+    from scipy import stats  # lazily (import time)
+
     limit = float(stats.chi2.ppf(0.95, n_obs))
     evaluations = 0
     for size in range(1, len(reps) + 1):
