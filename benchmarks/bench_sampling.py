@@ -198,8 +198,59 @@ def main(argv=None):
                 seeds=[int(s) for s in args.seeds.split(",")], log=log)
 
 
+def _ensemble_arrays(ens):
+    ids = ens.ids()
+    table = ens.raw_table
+    return ([ens.positions(c) for c in ids], table.loc[ids, "energy_gfn2"].to_numpy(dtype=float),
+            table.loc[ids, "degeneracy"].to_numpy(dtype=int))
+
+
+def _overlap(mol, a, b):
+    from confpop.moves import match_conformers, population_overlap
+    from confpop.thermo import boltzmann_weights
+
+    la, lb = match_conformers(mol, a[0], a[1], b[0], b[1], achiral=is_achiral(mol))
+    wa = boltzmann_weights(np.asarray(a[1]), TEMPERATURE, unit="hartree", degeneracy=a[2])
+    wb = boltzmann_weights(np.asarray(b[1]), TEMPERATURE, unit="hartree", degeneracy=b[2])
+    return population_overlap(la, wa, lb, wb)
+
+
 def compare(name, brute, *, sampler, seeds, log):
-    raise SystemExit("comparison not written yet")
+    """Searches with two seeds against the brute force; prints one row per search."""
+    import confpop
+
+    mol = load_molecule(brute["smiles"])
+    ref = ([np.array(p) for p in brute["positions"]], np.array(brute["energies"]),
+           np.array(brute["degeneracy"]))
+    e_ref = float(ref[1].min())
+    rel_ref = convert(ref[1] - e_ref, "hartree", "kcal/mol")
+    log(f"== {name} {brute['smiles']} [{sampler}]: brute force {len(ref[1])} GFN2 minima "
+        f"({int((rel_ref <= 3).sum())} within 3 kcal/mol) from {brute['embeddings']} embeddings, "
+        f"{brute['ff_minima']} MMFF94s minima, {brute['cpu_seconds']:.0f} s CPU")
+    options = {} if sampler == "moves" else {"moves": False, "target_overlap": None}
+    runs = []
+    for seed in seeds:
+        c0 = time.process_time()
+        ens = confpop.search(brute["smiles"], "gfn2", seed=seed, workers=1, **options)
+        cpu = time.process_time() - c0
+        arrays = _ensemble_arrays(ens)
+        summary = next(s for s in ens.provenance if s["step"] == "sample")
+        rel = convert(arrays[1] - arrays[1].min(), "hartree", "kcal/mol")
+        row = {"seed": seed, "cpu": cpu, "d_lowest": float(convert(arrays[1].min() - e_ref, "hartree", "kcal/mol")),
+               "overlap_brute": _overlap(mol, arrays, ref), "n3": int((rel <= 3).sum()),
+               "completeness": summary.get("completeness"), "stream_overlap": summary.get("stream_overlap"),
+               "stop": summary.get("stop_reason"), "trials": summary.get("trials"),
+               "ff_conformers": summary.get("unique"), "found_by_moves": summary.get("found_by_moves")}
+        runs.append((row, arrays))
+        log(f"  seed {seed}: lowest {row['d_lowest']:+.2f} kcal/mol vs brute force, overlap with brute "
+            f"force {row['overlap_brute']:.3f}, {row['n3']} conformers within 3 kcal/mol, "
+            f"CPU {cpu:.0f} s = {cpu / brute['cpu_seconds']:.2f} x brute force; sampling: "
+            f"{row['trials']} trials, {row['ff_conformers']} MMFF94s conformers "
+            f"({row['found_by_moves']} by moves only), completeness {row['completeness']:.3f}, "
+            f"stream overlap {row['stream_overlap']}, stop: {row['stop']}")
+    for (ra, aa), (rb, ab) in zip(runs, runs[1:]):
+        log(f"  seeds {ra['seed']}/{rb['seed']}: population overlap {_overlap(mol, aa, ab):.3f}")
+    return runs
 
 
 if __name__ == "__main__":

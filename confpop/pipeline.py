@@ -84,6 +84,9 @@ log = logging.getLogger(__name__)
 FORCE_FIELDS = ("mmff94", "mmff94s", "uff")
 MAX_ROUNDS = 20
 TARGET_COMPLETENESS = 0.85
+#: Agreement of two independent sampling streams (population overlap at the force-field
+#: level, sum_i min(p_i, q_i)) at which sampling stops (module notes).
+TARGET_OVERLAP = 0.9
 #: Final cut: a conformer is dropped when its population at the highest temperature asked
 #: for is below this share (see the module notes for the measurement behind it).
 MIN_POPULATION = 1e-4
@@ -204,7 +207,7 @@ def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int
            stereo: str = "refuse", keep_largest_fragment: bool = False,
            force_trans_amides: bool = True, method_options: dict | None = None,
            check_minima: bool = True, allow_long: bool = False, executor=None, workers: int | None = None, store=None,
-           progress: bool = False) -> Ensemble:
+           progress: bool = False, moves=True, target_overlap: float | None = TARGET_OVERLAP) -> Ensemble:
     """Find the conformers of a molecule that matter and rank them.
 
     Parameters
@@ -221,9 +224,16 @@ def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int
     n_trials : int, optional
         Trial structures per sampling round (default from the flexibility).
     max_rounds, target_completeness : int, float
-        Sampling rounds go on until a round adds no new conformer, the Good–Turing
-        completeness estimate reaches ``target_completeness`` (None: not used), or
-        ``max_rounds`` rounds were drawn (see the module notes for the defaults).
+        Sampling rounds go on until two independent sampling streams agree (population
+        overlap >= ``target_overlap`` at the force-field level) or ``max_rounds`` rounds were
+        drawn (the budget). With ``target_overlap=None`` one stream runs instead and stops
+        when a round adds no new conformer or the Good–Turing completeness estimate reaches
+        ``target_completeness`` (None: not used). See the module notes for the defaults.
+    moves : bool or confpop.moves.MoveSettings
+        After every ETKDG round, move the low-energy conformers to their neighbouring
+        rotamers and ring shapes (:mod:`confpop.moves`). On by default (module notes).
+    target_overlap : float or None
+        Agreement of the two sampling streams to reach (default 0.9); None: one stream.
     temperatures : sequence of float, K
         The temperatures the populations are wanted at; the cuts follow the highest.
     min_population : float
@@ -341,7 +351,9 @@ def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int
     sampled, ff_e, times_found, chiral, srep = sample_conformers(
         mol, n_trials=n_trials, seed=seed, method=ff, energy_window=ff_window,
         prune=prune_settings, max_rounds=max_rounds, force_trans_amides=force_trans_amides,
-        target_completeness=target_completeness)
+        target_completeness=target_completeness, moves=moves,
+        streams=1 if target_overlap is None else 2, target_overlap=target_overlap,
+        overlap_temperature=t_max)
     provenance.append(step_record("sample", started=t0, n_in=srep.trials, n_out=srep.unique,
                                   method=f"ETKDGv3 + {ff}", window_kcal=ff_window,
                                   force_field=ff, force_field_reason=ff_reason,
@@ -604,8 +616,7 @@ def _finish(ens: Ensemble, positions: dict, method: str, window: float | None,
                     "; ".join(sorted(set(ens.raw_table["reason"]))))
         ens = _renumber(ens)
         ens.provenance.append({"step": "summary", "seconds": round(time.perf_counter() - t_start, 3),
-                               "conformers": 0, "completeness": round(sampling.completeness, 4),
-                               "unseen_share": round(sampling.unseen_share, 4)})
+                               "conformers": 0, **_sampling_summary(sampling)})
         return ens
     table = ens.raw_table
     energies = table.loc[ids, f"energy_{method}"].to_numpy(dtype=float)
@@ -654,9 +665,18 @@ def _finish(ens: Ensemble, positions: dict, method: str, window: float | None,
         outside_window=n_window, merge_mirror_images=settings.merge_mirror_images,
         failed_kept_as_rows=len(failed)))
     ens.provenance.append({"step": "summary", "seconds": round(time.perf_counter() - t_start, 3),
-                           "conformers": len(ens), "completeness": round(sampling.completeness, 4),
-                           "unseen_share": round(sampling.unseen_share, 4)})
+                           "conformers": len(ens), **_sampling_summary(sampling)})
     return ens
+
+
+def _sampling_summary(sampling) -> dict:
+    """What the summary says about sampling: the completeness estimate, the agreement of
+    the two streams and why sampling stopped."""
+    return {"completeness": round(sampling.completeness, 4),
+            "unseen_share": round(sampling.unseen_share, 4),
+            "stream_overlap": None if sampling.stream_overlap is None else round(sampling.stream_overlap, 4),
+            "target_overlap": sampling.target_overlap, "sampling_converged": bool(sampling.converged),
+            "sampling_stop": sampling.stop_reason}
 
 
 def _add_mirror_rows(ens: Ensemble, conf_ids: list[int]) -> Ensemble:
