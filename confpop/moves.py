@@ -15,10 +15,11 @@ time,
 * **cis/trans moves**: amide C-N bonds (and the ester C(=O)-O bond, a conjugated single bond
   above) turned by 180 deg; ETKDG draws secondary amides trans only (``forceTransAmides``);
 * **ring moves** for saturated rings of 4-8 atoms that share no atom with another ring:
-  a flip (every ring atom reflected through the ring's mean plane, each carrying its
-  substituents: chair -> inverted chair, axial <-> equatorial) and a flap per ring atom (that
-  atom reflected through the plane of its two ring neighbours and the ring centre: chair ->
-  twist/boat and envelope changes).
+  a flip (every ring atom reflected through the ring's mean plane, which changes the sign of
+  every ring torsion; each atom's substituents follow in the frame of its two ring
+  neighbours, so configurations stay and axial <-> equatorial: chair -> inverted chair) and
+  a flap per ring atom (that atom reflected through the plane of its two ring neighbours and
+  the ring centre: chair -> twist/boat, envelope changes).
 
 Each child is relaxed with the sampling force field and kept when its bonds and stereo are
 those of the molecule (a move can push a ring substituent through the ring), it is not a
@@ -246,16 +247,12 @@ def apply_move(mol: Chem.Mol, positions, move: Move) -> np.ndarray:
     if move.kind in ("torsion", "cis/trans"):
         return set_dihedral(p, move.atoms, dihedral_angle(p, move.atoms) + move.offset, move.moving)
     ring = list(move.atoms)
-    subs = _substituents(mol, ring)
     if move.kind == "ring flip":
         centre = p[ring].mean(axis=0)
         _, _, vt = np.linalg.svd(p[ring] - centre)
         normal = vt[2]
-        out = p.copy()
-        for a in ring:
-            shift = -2.0 * float(np.dot(p[a] - centre, normal)) * normal
-            out[list(subs[a])] = p[list(subs[a])] + shift
-        return out
+        new_ring = p[ring] - 2.0 * ((p[ring] - centre) @ normal)[:, None] * normal
+        return _replace_ring(mol, p, ring, new_ring)
     if move.kind == "ring flap":
         a, nb1, nb2 = ring[0], ring[1], ring[-1]
         centre = p[ring].mean(axis=0)
@@ -264,11 +261,39 @@ def apply_move(mol: Chem.Mol, positions, move: Move) -> np.ndarray:
         if norm < 1e-6:
             return p
         normal /= norm
-        shift = -2.0 * float(np.dot(p[a] - centre, normal)) * normal
-        out = p.copy()
-        out[list(subs[a])] = p[list(subs[a])] + shift
-        return out
+        new_ring = p[ring].copy()
+        new_ring[0] = p[a] - 2.0 * float(np.dot(p[a] - centre, normal)) * normal
+        return _replace_ring(mol, p, ring, new_ring)
     raise InputError(f"unknown move kind {move.kind!r}")
+
+
+def _local_frame(prev, atom, nxt):
+    """Right-handed frame at a ring atom from its two ring neighbours (columns e1, e2, e3)."""
+    e1 = (prev - atom) + (nxt - atom)
+    e1 /= np.linalg.norm(e1)
+    e2 = nxt - prev
+    e2 -= np.dot(e2, e1) * e1
+    e2 /= np.linalg.norm(e2)
+    return np.column_stack([e1, e2, np.cross(e1, e2)])
+
+
+def _replace_ring(mol, p, ring, new_ring):
+    """Ring atoms to ``new_ring``; each ring atom's substituents follow rigidly in the frame of
+    its two ring neighbours. Reflecting the ring changes the sign of every ring torsion, and
+    a substituent keeps its place relative to its neighbours (so the configuration is kept):
+    axial and equatorial swap, as in a real ring inversion."""
+    subs = _substituents(mol, ring)
+    out = p.copy()
+    n = len(ring)
+    for k, a in enumerate(ring):
+        prev, nxt = (k - 1) % n, (k + 1) % n
+        old = _local_frame(p[ring[prev]], p[a], p[ring[nxt]])
+        new = _local_frame(new_ring[prev], new_ring[k], new_ring[nxt])
+        rot = new @ old.T
+        moving = [x for x in subs[a] if x != a]
+        out[moving] = (p[moving] - p[a]) @ rot.T + new_ring[k]
+        out[a] = new_ring[k]
+    return out
 
 
 # --------------------------------------------------------------- comparing two ensembles
