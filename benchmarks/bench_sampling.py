@@ -312,6 +312,22 @@ def compare(name, brute, *, sampler, seeds, log):
             f"stream overlap {row['stream_overlap']}, stop: {row['stop']}")
     for (ra, aa), (rb, ab) in zip(runs, runs[1:]):
         log(f"  seeds {ra['seed']}/{rb['seed']}: population overlap {_overlap(mol, aa, ab):.3f}")
+    # where a search finds minima the brute force lacks (lower ones included), the brute force
+    # is an incomplete reference: compare with the union of everything found as well
+    pos = list(ref[0]) + [p for _, a in runs for p in a[0]]
+    e = np.concatenate([ref[1]] + [a[1] for _, a in runs])
+    deg = np.concatenate([ref[2]] + [a[2] for _, a in runs])
+    rep = find_duplicates(mol, pos, e, PruneSettings(), achiral=is_achiral(mol))
+    union = ([pos[u] for u in rep.unique], e[rep.unique], deg[rep.unique])
+    rel = convert(union[1] - union[1].min(), "hartree", "kcal/mol")
+    log(f"  union of brute force and searches: {len(rep.unique)} minima ({int((rel <= 3).sum())} "
+        f"within 3 kcal/mol); overlap with it: brute force {_overlap(mol, ref, union):.3f}, "
+        + ", ".join(f"seed {r['seed']} {_overlap(mol, a, union):.3f}" for r, a in runs))
+    CACHE.mkdir(exist_ok=True)
+    for r, a in runs:
+        (CACHE / f"{name}.{sampler}.seed{r['seed']}.json").write_text(json.dumps(
+            {"smiles": brute["smiles"], **r, "energies": a[1].tolist(),
+             "positions": [np.asarray(p).tolist() for p in a[0]], "degeneracy": a[2].tolist()}))
     return runs
 
 
