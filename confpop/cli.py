@@ -43,6 +43,7 @@ _MAX_ROUNDS = _SEARCH_DEFAULTS.max_rounds
 _TARGET_COMPLETENESS = _SEARCH_DEFAULTS.target_completeness
 _MIN_POPULATION = _SEARCH_DEFAULTS.min_population
 _SCREEN_MARGIN = _SEARCH_DEFAULTS.screen_margin
+_TARGET_OVERLAP = _SEARCH_DEFAULTS.target_overlap
 
 
 class _Once(argparse.Action):
@@ -239,6 +240,14 @@ def _add_ensemble(parser: argparse.ArgumentParser) -> None:
                         metavar="FRACTION",
                         help="stop sampling once the estimated completeness reaches this "
                              f"(default {_TARGET_COMPLETENESS}; 0 = only when a round finds nothing new)")
+    parser.add_argument("--agreement", type=_finite_float, default=_TARGET_OVERLAP,
+                        metavar="OVERLAP",
+                        help="sample in two independent streams until their populations "
+                             f"overlap this much (default {_TARGET_OVERLAP}) or --rounds ends; "
+                             "0 = one stream, stopped by --completeness")
+    parser.add_argument("--no-moves", action="store_true",
+                        help="ETKDG trial structures only: no torsion, cis/trans and ring moves "
+                             "from the low-energy conformers")
     parser.add_argument("--min-population", type=_finite_float, default=_MIN_POPULATION,
                         metavar="SHARE",
                         help="drop a conformer only when its population at the highest "
@@ -448,6 +457,8 @@ def _ensemble_table_text(ens, temps, views=None, free: bool = False) -> str:
 
 def _run_ensemble(args: argparse.Namespace) -> int:
     temps = _temperatures(args.temperature)
+    if not 0.0 <= args.agreement <= 1.0:
+        raise InputError(f"--agreement must be >= 0 and <= 1, got {args.agreement}")
     if not 0.0 <= args.completeness < 1.0:
         raise InputError(f"--completeness must be >= 0 and < 1, got {args.completeness}")
     if args.rounds < 1:
@@ -559,6 +570,7 @@ def _ensemble_work(args, temps, progress, folder) -> int:
                      screen_margin=args.screen_margin,
                      max_rounds=args.rounds, screen_window=args.screen_window,
                      target_completeness=args.completeness or None,
+                     target_overlap=args.agreement or None, moves=not args.no_moves,
                      merge_mirror_images=not args.keep_mirror_images, charge=args.charge,
                      multiplicity=args.multiplicity, workers=args.workers, store=args.store,
                      keep_largest_fragment=args.keep_largest_fragment, progress=progress)
@@ -624,7 +636,13 @@ def _ensemble_work(args, temps, progress, folder) -> int:
                    if prune.get("below_min_population") else "")
         cut = (f"at or above {100 * args.min_population:g} % at {max(temps):g} K{dropped}"
                + (f" and within {args.energy_window:g} kcal/mol" if args.energy_window else ""))
-        print(f"{len(ens)} conformers {cut}; sampling "
+        overlap = summary.get("stream_overlap")
+        agreement = ("" if overlap is None else
+                     f"two sampling streams agree to {overlap:.2f} (population overlap at the "
+                     f"force field; target {summary.get('target_overlap')}, "
+                     + ("reached" if summary.get("sampling_converged") else
+                        f"NOT reached: {summary.get('sampling_stop')}") + "); ")
+        print(f"{len(ens)} conformers {cut}; {agreement}sampling "
               f"completeness {100 * summary.get('completeness', float('nan')):.1f} % "
               f"(Good-Turing; {sample.get('trials', 0)} trials, {sample.get('rounds', 0)} rounds, "
               f"{sample.get('embedding_failures', 0)} embedding failures); effective number of "
