@@ -475,9 +475,12 @@ def _run_ensemble(args: argparse.Namespace) -> int:
         raise InputError(f"--min-population must lie between 0 and 1 (exclusive), "
                          f"got {args.min_population:g}")
     args.workers = _cap_workers(args.workers)
-    if args.plot:
+    # --plot/--report inside the --out folder (which this run creates) are checked once the
+    # folder exists; any other place before any work
+    inside_out = {name: _inside(getattr(args, name), args.out) for name in ("plot", "report")}
+    if args.plot and not inside_out["plot"]:
         _check_plot_path(args.plot, args.overwrite)
-    if args.report:
+    if args.report and not inside_out["report"]:
         _check_report_path(args.report, args.overwrite)
     _check_search_cost(args)
     progress = _progress_mode(args.quiet or args.json)
@@ -487,10 +490,24 @@ def _run_ensemble(args: argparse.Namespace) -> int:
         folder = OutputFolder(args.out, kind="ensemble", option="--out",
                               allow_nonempty=args.into_nonempty_folder)
     try:
+        if args.plot and inside_out["plot"]:
+            _check_plot_path(args.plot, args.overwrite)
+        if args.report and inside_out["report"]:
+            _check_report_path(args.report, args.overwrite)
         return _ensemble_work(args, temps, progress, folder)
     finally:
         if folder is not None:
             folder.close()
+
+
+def _inside(path, folder) -> bool:
+    """Whether the file ``path`` would go straight into ``folder`` (both may not exist yet)."""
+    if not path or not folder:
+        return False
+    from pathlib import Path
+
+    parent = Path(path).expanduser().parent
+    return parent.resolve() == Path(folder).expanduser().resolve()
 
 
 def _progress_mode(quiet: bool):

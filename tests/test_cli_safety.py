@@ -369,3 +369,19 @@ def test_a_batch_molecule_above_the_cost_bound_fails_alone(tmp_path):
     assert result.failures.loc[0, "error_type"] == "InputError"
     assert "would take too long" in result.failures.loc[0, "message"]
     assert "allow_long=True (--allow-long-run)" in result.failures.loc[0, "message"]
+
+
+def test_report_and_plot_may_go_into_the_out_folder_this_run_creates(tmp_path, capsys):
+    # found trying the CLI as a new user: `--out run --report run/report.html` was refused
+    # because the folder did not exist yet; a report elsewhere in a missing folder still is
+    out = tmp_path / "run"
+    assert main(["ensemble", "CCO", "--method", "mmff94s", "--workers", "1", "--out", str(out),
+                 "--report", str(out / "report.html"), "--plot", str(out / "p.png")]) == 0
+    assert (out / "report.html").read_text().lstrip().startswith("<")
+    assert (out / "p.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    assert (out / "table.csv").is_file()
+    capsys.readouterr()
+    elsewhere = tmp_path / "missing" / "report.html"
+    assert main(["ensemble", "CCO", "--method", "mmff94s", "--out", str(out),
+                 "--report", str(elsewhere)]) == 2
+    assert "does not exist" in one_error_line(capsys)
