@@ -861,7 +861,7 @@ class _Writer:
             self.write_tables()
 
     def _write_molecule(self, entry: dict, ens: Ensemble) -> None:
-        from .io import ensemble_json
+        from .writing import ensemble_json
 
         payload = ensemble_json(ens, self.temps, input_text=entry["input"])
         payload["name"] = entry["name"]

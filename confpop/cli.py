@@ -535,7 +535,7 @@ def _check_report_path(path, replace: bool = False) -> None:
 
 def _ensemble_files(ens, temps, payload) -> dict:
     """{file name: write(path)} of one ensemble's output files."""
-    from .io import write_csv
+    from .writing import write_csv
 
     def run_json(path):
         with open(path, "w") as fh:
@@ -564,7 +564,7 @@ def _ensemble_settings(args) -> dict:
 def _ensemble_work(args, temps, progress, folder) -> int:
     import os
 
-    from .io import ensemble_json
+    from .writing import ensemble_json
     from .pipeline import search
     from .schema import solvent_model
 

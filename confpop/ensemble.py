@@ -360,17 +360,17 @@ class Ensemble:
 
     def to_sdf(self, path) -> None:
         """Write one SD record per conformer; see :func:`confpop.io.write_sdf`."""
-        from .io import write_sdf
+        from .writing import write_sdf
         write_sdf(self, path)
 
     def to_csv(self, path, temperatures=(298.15,)) -> None:
         """Write the table with populations; see :func:`confpop.io.write_csv`."""
-        from .io import write_csv
+        from .writing import write_csv
         write_csv(self, path, temperatures)
 
     def to_json(self, path=None, temperatures=(298.15,)):
         """The ensemble as JSON (returned as a string when ``path`` is None)."""
-        from .io import ensemble_json
+        from .writing import ensemble_json
         import json
         text = json.dumps(ensemble_json(self, temperatures), indent=2)
         if path is None:

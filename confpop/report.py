@@ -70,7 +70,7 @@ def report_html(ens, *, temperatures=(298.15,), input_text: str | None = None,
     """The report as one HTML string (see :func:`write_report`)."""
     from . import plot
     from .describe import DISTINGUISHING_DEGREES, ID_CONVENTION, LABEL_CONVENTION, STAR_NOTE
-    from .io import ensemble_json
+    from .writing import ensemble_json
 
     if not len(ens):
         raise InputError("the ensemble has no active conformers to report")
