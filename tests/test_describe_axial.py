@@ -129,3 +129,25 @@ def test_planar_rings_and_aromatic_rings_have_no_positions():
     AllChem.EmbedMolecule(mol, randomSeed=1)
     assert ring_substituents(mol).empty
     assert describe_conformers(mol).conformer_dict(0)["rings"] == {}
+
+
+def test_report_and_table_name_the_flip_of_methylcyclohexane():
+    from confpop import Ensemble
+    from confpop.report import _pucker_sentence
+    from confpop.views import conformer_table
+
+    mol, energy = _chairs("CC1CCCCC1")
+    subs = ring_substituents(mol)
+    chairs = set(describe_conformers(mol).rings.query("pucker == 'chair'")["conformer"])
+    pick = [subs[(subs["position"] == p) & subs["conformer"].isin(chairs)]["conformer"].iloc[0]
+            for p in ("eq", "ax")]
+    two = Chem.Mol(mol)
+    two.RemoveAllConformers()
+    for cid in pick:
+        two.AddConformer(Chem.Conformer(mol.GetConformer(int(cid))), assignId=True)
+    ens = Ensemble.from_mol(two, [energy[c] for c in pick], unit="kcal/mol", level="mmff94s")
+    pops = ens.populations([298.15])[298.15]
+    sentence = _pucker_sentence(ens, pops)
+    assert f"chair, C1 eq {100 * pops[0]:.0f} %; chair, C1 ax {100 * pops[1]:.0f} %" in sentence
+    table, text = conformer_table(ens, [298.15], free=False)
+    assert list(table["ring C2-C3-C4-C5-C6-C7"]) == ["chair, C1 eq", "chair, C1 ax"]
