@@ -399,7 +399,7 @@ def _ensemble_table_text(ens, temps, views=None, free: bool = False) -> str:
         f"{'p' + ('_' + name if name else '') + '(' + format(t, 'g') + ' K)':>12}" for name, t in labels)
     widths = [max(len(t.label) + 1, 6) for t in torsions]
     head += "".join(f"  {t.label + '°':>{w}}" for t, w in zip(torsions, widths))
-    ring_widths = [max(len(c) - 5, 10) for c in rings]
+    ring_widths = [max(len(c), 10, *desc.table[c].astype(str).str.len()) for c in rings]
     head += "".join(f"  {'ring ' + c[5:]:<{w}}" for c, w in zip(rings, ring_widths))
     table = ens.table()
     species = table["species"] if "species" in table.columns and table["species"].nunique() > 1 else None

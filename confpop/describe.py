@@ -13,6 +13,14 @@ Three descriptions, computed from the coordinates alone (cheap; no energies):
   conformer, which makes the value the same whichever partner came first.
 * **Ring puckers** (:func:`ring_puckers`): Cremer-Pople puckering coordinates of every
   non-aromatic 5- and 6-membered ring and the name of the nearest ideal shape.
+* **Axial and equatorial substituents** (:func:`ring_substituents`): on every non-planar
+  6-membered ring, each non-hydrogen substituent is axial ("ax") or equatorial ("eq") by the
+  angle between its bond from the ring atom and the normal of the ring's Cremer-Pople mean
+  plane (:data:`AXIAL_DEGREES`). Axial bonds run parallel to the normal (the ring's
+  pseudo-threefold axis in a chair), equatorial ones lie near the mean plane: the usual
+  definition (Eliel & Wilen, Stereochemistry of Organic Compounds, 1994, ch. 11; from
+  memory). Shown beside the pucker ("chair, N3 ax") where it differs between conformers, so
+  two chairs that differ by a ring flip are told apart.
 * **Intramolecular hydrogen bonds** (:func:`hydrogen_bonds`): X-H...Y with X, Y in {N, O},
   H...Y <= 2.5 A and X-H...Y >= 110 degrees (:data:`HBOND_ANGLE`), Y at least three bonds
   from H.
@@ -40,7 +48,7 @@ from .geometry import dihedral_at
 
 __all__ = ["atom_label", "one_based_labels", "LABEL_CONVENTION", "ID_CONVENTION", "distinguishing_torsions", "ring_puckers",
            "cremer_pople", "pucker_name", "hydrogen_bonds", "describe_conformers",
-           "DISTINGUISHING_DEGREES"]
+           "DISTINGUISHING_DEGREES", "ring_substituents", "AXIAL_DEGREES", "ISOCLINAL"]
 
 #: Said in every header that shows atom labels.
 LABEL_CONVENTION = "atoms numbered from 1, as in molecule viewers and the SDF atom block"
@@ -70,6 +78,23 @@ HBOND_ANGLE = 110.0
 #: Angstrom: below this total puckering amplitude Q a ring is called planar (common practice;
 #: aromatic rings give Q < 0.02 A, cyclohexane chairs ~0.55-0.6 A).
 PLANAR_Q = 0.1
+
+#: degrees. A substituent bond is axial when it makes less than this angle with the normal of
+#: the ring's mean plane, equatorial otherwise. Ideal chair: axial 0, equatorial ~70.5
+#: (109.5 - 90 from the plane). Measured (benchmarks/describe_axial.py, MMFF94s ensembles of
+#: nine molecules, 134 conformers: N-cyclohexyl-2-hydroxybenzamide, methylcyclohexane, cis-
+#: and trans-1,4-dimethylcyclohexane, methyl beta-D-glucopyranoside, trans-cyclohexane-1,2-
+#: diol, N-methylpiperidine, tert-butylcyclohexane, 1,1-dimethylcyclohexane): on chairs, 232
+#: substituent bonds, axial 5.4-27.9 degrees, equatorial 63.6-75.5, none between; 45 is the
+#: middle of that gap. GFN2-xTB, N-cyclohexyl-2-hydroxybenzamide: axial N 8.4, equatorial 72.0.
+AXIAL_DEGREES = 45.0
+
+#: degrees. On a ring that is not a chair (boat, twist-boat, half-chair, envelope) a bond at
+#: ISOCLINAL[0]-ISOCLINAL[1] degrees to the normal is neither axial nor equatorial: "iso"
+#: (isoclinal, the twist-boat's in-between positions). Measured with the chairs above: 107
+#: such bonds on non-chair rings cluster at 5-25 (14), 40-55 (32) and 65-90 (49), with 2 at
+#: 30-35 and 3 at 55-60: the band's edges sit in those sparse bins.
+ISOCLINAL = (30.0, 60.0)
 
 
 def atom_label(mol: Chem.Mol, index: int) -> str:
@@ -293,10 +318,7 @@ def cremer_pople(positions) -> dict:
         raise InputError(f"a ring needs (N >= 4, 3) coordinates, got shape {r.shape}")
     r = r - r.mean(axis=0)
     j = np.arange(n)
-    r1 = (r * np.sin(2 * np.pi * j / n)[:, None]).sum(axis=0)
-    r2 = (r * np.cos(2 * np.pi * j / n)[:, None]).sum(axis=0)
-    normal = np.cross(r1, r2)
-    normal /= np.linalg.norm(normal)
+    normal = _mean_plane_normal(r)
     z = r @ normal
     q, phi = {}, {}
     for m in range(2, (n - 1) // 2 + 1):
@@ -310,6 +332,16 @@ def cremer_pople(positions) -> dict:
     if n == 6:
         out["theta"] = float(np.degrees(np.arctan2(q[2], q[3])))
     return out
+
+
+def _mean_plane_normal(centred) -> np.ndarray:
+    """Unit normal of a centred ring's Cremer-Pople mean plane, n = R' x R'' / |R' x R''|."""
+    n = len(centred)
+    j = np.arange(n)
+    r1 = (centred * np.sin(2 * np.pi * j / n)[:, None]).sum(axis=0)
+    r2 = (centred * np.cos(2 * np.pi * j / n)[:, None]).sum(axis=0)
+    normal = np.cross(r1, r2)
+    return normal / np.linalg.norm(normal)
 
 
 def pucker_name(coords: dict, size: int) -> str:
@@ -383,6 +415,74 @@ def ring_puckers(mol: Chem.Mol, conf_ids=None) -> pd.DataFrame:
                                        "phi2_deg", "pucker"])
 
 
+def ring_substituents(mol: Chem.Mol, conf_ids=None, *, axial: float = AXIAL_DEGREES) -> pd.DataFrame:
+    """Axial or equatorial position of every non-hydrogen substituent on a non-planar 6-ring.
+
+    The position comes from the geometry alone: the angle between the bond ring atom ->
+    substituent and the normal of the ring's Cremer-Pople mean plane (sign ignored); below
+    ``axial`` degrees (default :data:`AXIAL_DEGREES`, measured) the substituent is axial,
+    else equatorial. Rings with Q below :data:`PLANAR_Q` (planar) have no such positions and
+    are left out. On a ring that is not a chair the labels mean pseudo-axial /
+    pseudo-equatorial, and a bond within :data:`ISOCLINAL` of the normal is "iso" (isoclinal).
+
+    Returns
+    -------
+    pandas.DataFrame
+        One row per (conformer, ring, substituent): ``conformer``, ``ring`` (1-based label as
+        in :func:`ring_puckers`), ``ring_atom``, ``substituent`` (0-based), ``label`` (1-based
+        label of the substituent atom, e.g. "N3"), ``angle_deg`` (to the normal, 0-90),
+        ``position`` ("ax", "eq", or "iso" on a ring that is not a chair).
+    """
+    ids = [c.GetId() for c in mol.GetConformers()] if conf_ids is None else [int(c) for c in conf_ids]
+    columns = ["conformer", "ring", "ring_atom", "substituent", "label", "angle_deg", "position"]
+    rows = []
+    for ring in puckered_rings(mol):
+        if len(ring) != 6:
+            continue
+        members = set(ring)
+        bonds = [(a, nb.GetIdx()) for a in ring for nb in mol.GetAtomWithIdx(a).GetNeighbors()
+                 if nb.GetIdx() not in members and nb.GetAtomicNum() > 1]
+        if not bonds:
+            continue
+        name = _labels(mol, ring)
+        for cid in ids:
+            xyz = mol.GetConformer(cid).GetPositions()
+            shape = pucker_name(cremer_pople(xyz[ring]), 6)
+            if shape == "planar":
+                continue
+            centred = xyz[ring] - xyz[ring].mean(axis=0)
+            normal = _mean_plane_normal(centred)
+            for a, b in bonds:
+                v = xyz[b] - xyz[a]
+                angle = float(np.degrees(np.arccos(min(1.0, abs(v @ normal) / np.linalg.norm(v)))))
+                if shape != "chair" and ISOCLINAL[0] <= angle <= ISOCLINAL[1]:
+                    position = "iso"
+                else:
+                    position = "ax" if angle < axial else "eq"
+                rows.append({"conformer": cid, "ring": name, "ring_atom": a, "substituent": b,
+                             "label": atom_label(mol, b), "angle_deg": angle,
+                             "position": position})
+    return pd.DataFrame(rows, columns=columns)
+
+
+def _ring_labels(rings: pd.DataFrame, subs: pd.DataFrame) -> pd.Series:
+    """Per (conformer, ring) row of ``rings``: the pucker name, followed by the positions of
+    the substituents whose position differs between the conformers ("chair, N3 ax")."""
+    if not len(rings):
+        return pd.Series([], dtype=object)
+    varying = {}
+    for (ring, label), part in subs.groupby(["ring", "label"], sort=False):
+        if part["position"].nunique() > 1:
+            varying.setdefault(ring, []).append(label)
+    where = {(r.conformer, r.ring, r.label): r.position for r in subs.itertuples()}
+    out = []
+    for r in rings.itertuples():
+        extra = [f"{lab} {where[(r.conformer, r.ring, lab)]}" for lab in varying.get(r.ring, [])
+                 if (r.conformer, r.ring, lab) in where]
+        out.append(", ".join([r.pucker] + extra))
+    return pd.Series(out, index=rings.index, dtype=object)
+
+
 # ----------------------------------------------------------------------------- hydrogen bonds
 def _is_acceptor(atom) -> bool:
     if atom.GetFormalCharge() > 0:
@@ -453,13 +553,17 @@ class ConformerDescription:
     ----------
     table : pandas.DataFrame
         Index conformer id; one ``torsion_<label>_deg`` column per distinguishing torsion,
-        one ``ring_<label>`` column per puckered ring (its pucker name), and
-        ``hydrogen_bonds`` ("; "-joined labels, "" when none).
+        one ``ring_<label>`` column per puckered ring (its pucker name, followed by the
+        axial/equatorial position of each substituent whose position differs between the
+        conformers, e.g. "chair, N3 ax"), and ``hydrogen_bonds`` ("; "-joined labels, "" when
+        none).
     torsions : list of DistinguishingTorsion
-    rings : pandas.DataFrame (from :func:`ring_puckers`)
+    rings : pandas.DataFrame (from :func:`ring_puckers`, plus ``label``: the text of the
+        table's ring column)
     hbonds : pandas.DataFrame (from :func:`hydrogen_bonds`)
     convention : str
         How atoms are numbered (1-based).
+    substituents : pandas.DataFrame (from :func:`ring_substituents`)
     """
 
     table: pd.DataFrame
@@ -467,6 +571,7 @@ class ConformerDescription:
     rings: pd.DataFrame
     hbonds: pd.DataFrame
     convention: str = LABEL_CONVENTION
+    substituents: pd.DataFrame = None
 
     def to_dict(self) -> dict:
         """JSON-ready summary of the torsions (label, 1-based atoms, spread); the per-conformer
@@ -483,18 +588,28 @@ class ConformerDescription:
                                               for c, a in t.atoms.items()}
             out.append(item)
         return {"atom_numbering": self.convention, "distinguishing_degrees": DISTINGUISHING_DEGREES,
-                "torsions": out}
+                "axial_degrees": AXIAL_DEGREES, "torsions": out}
 
     def conformer_dict(self, conf_id: int) -> dict:
-        """One conformer's torsions (degrees), ring puckers (Cremer-Pople) and H-bonds."""
+        """One conformer's torsions (degrees), ring puckers (Cremer-Pople), the axial/equatorial
+        positions of ring substituents (angle to the ring's mean-plane normal) and H-bonds."""
         cid = int(conf_id)
         rings = self.rings[self.rings["conformer"] == cid]
         hbonds = self.hbonds[self.hbonds["conformer"] == cid]
+        subs = (self.substituents[self.substituents["conformer"] == cid]
+                if self.substituents is not None else pd.DataFrame(columns=["ring"]))
+
+        def positions(ring):
+            return {s.label: {"position": s.position, "angle_to_normal_deg": round(float(s.angle_deg), 1)}
+                    for s in subs[subs["ring"] == ring].itertuples()}
+
         return {
             "torsions_deg": {t.label: round(t.values[cid], 1) for t in self.torsions},
             "rings": {r.ring: {"pucker": r.pucker, "Q_angstrom": round(float(r.Q_angstrom), 3),
                                "theta_deg": None if np.isnan(r.theta_deg) else round(float(r.theta_deg), 1),
-                               "phi2_deg": round(float(r.phi2_deg), 1)} for r in rings.itertuples()},
+                               "phi2_deg": round(float(r.phi2_deg), 1),
+                               "shown": getattr(r, "label", r.pucker),
+                               "substituents": positions(r.ring)} for r in rings.itertuples()},
             "hydrogen_bonds": [{"label": r.label, "distance_angstrom": round(float(r.distance_angstrom), 3),
                                 "angle_deg": round(float(r.angle_deg), 1)} for r in hbonds.itertuples()],
         }
@@ -512,12 +627,17 @@ class ConformerDescription:
         return dict(sorted(shares.items(), key=lambda kv: -kv[1]))
 
     def pucker_shares(self, populations) -> dict:
-        """{ring label: {pucker name: share of the population}}, largest share first."""
+        """{ring label: {pucker name: share of the population}}, largest share first.
+
+        The name is the ring column's text: the pucker, followed by the positions of the
+        substituents whose axial/equatorial position differs between conformers
+        ("chair, N3 eq": 74 %, "chair, N3 ax": 23 %)."""
         pops = pd.Series(populations, dtype=float)
+        key = "label" if "label" in self.rings.columns else "pucker"
         out = {}
         for ring, sub in self.rings.groupby("ring", sort=False):
             shares = {}
-            for name, part in sub.groupby("pucker"):
+            for name, part in sub.groupby(key):
                 shares[name] = float(pops.reindex(part["conformer"]).fillna(0.0).sum())
             out[ring] = dict(sorted(shares.items(), key=lambda kv: -kv[1]))
         return out
@@ -571,12 +691,15 @@ def describe_conformers(ens_or_mol, conf_ids=None, *,
             weights = None
     torsions = distinguishing_torsions(mol, ids, threshold=threshold, weights=weights)
     rings = ring_puckers(mol, ids)
+    subs = ring_substituents(mol, ids)
+    rings["label"] = _ring_labels(rings, subs)
     hbonds = hydrogen_bonds(mol, ids)
     table = pd.DataFrame(index=pd.Index(ids, name="conformer"))
     for t in torsions:
         table[t.column] = pd.Series(t.values)
     for ring, sub in rings.groupby("ring", sort=False):
-        table[f"ring_{ring}"] = sub.set_index("conformer")["pucker"]
+        table[f"ring_{ring}"] = sub.set_index("conformer")["label"]
     labels = hbonds.groupby("conformer")["label"].apply(lambda s: "; ".join(s)) if len(hbonds) else {}
     table["hydrogen_bonds"] = [labels.get(c, "") if len(hbonds) else "" for c in ids]
-    return ConformerDescription(table=table, torsions=torsions, rings=rings, hbonds=hbonds)
+    return ConformerDescription(table=table, torsions=torsions, rings=rings, hbonds=hbonds,
+                                substituents=subs)

@@ -141,12 +141,15 @@ def _hbond_sentence(ens, populations) -> str:
 def _pucker_sentence(ens, populations) -> str:
     from .describe import describe_conformers
 
-    parts = [f"ring {ring}: " + ", ".join(f"{name} {100 * share:.0f} %" for name, share in shares.items())
+    # a name may carry substituent positions after a comma ("chair, N3 ax"): names are
+    # separated by "; " and rings by ". "
+    parts = [f"ring {ring}: " + "; ".join(f"{name} {100 * share:.0f} %" for name, share in shares.items())
              for ring, shares in describe_conformers(ens).pucker_shares(populations).items()]
     if not parts:
         return ""
-    return ("<p>Ring puckers (Cremer-Pople), with their share of the population: "
-            + html.escape("; ".join(parts)) + ".</p>")
+    return ("<p>Ring puckers (Cremer-Pople; ax/eq: axial or equatorial substituent, where it "
+            "differs between conformers), with their share of the population: "
+            + html.escape(". ".join(parts)) + ".</p>")
 
 
 def _couplings_section(ens, temps) -> str:
