@@ -97,7 +97,7 @@ COLUMNS: tuple[Column, ...] = (
     Column(r"mirror_of", "mirror_of", "int", "", "conformer this one is the mirror image of"),
     Column(r"torsion_(.+)_deg", "torsion_{0}_deg", "float", "degree",
            "a distinguishing torsion (1-based atom labels)"),
-    Column(r"ring_(.+)", "ring_{0}", "str", "", "ring pucker (Cremer-Pople)"),
+    Column(r"ring_(.+)", "ring_{0}", "str", "", "ring pucker (Cremer-Pople), with substituents axial (ax) / equatorial (eq) where they differ"),
     Column(r"hydrogen_bonds", "hydrogen_bonds", "str", "",
            "intramolecular hydrogen bonds, 1-based labels"),
     Column(r"note", "note", "str", "", "optimizer note"),

@@ -54,7 +54,7 @@ def _descriptions_by_conformer(ens) -> dict:
             props["torsions_deg"] = "; ".join(f"{t.label} {t.values[cid]:.0f}" for t in desc.torsions)
         rings = desc.rings[desc.rings["conformer"] == cid]
         if len(rings):
-            props["ring_puckers"] = "; ".join(f"{r.ring} {r.pucker}" for r in rings.itertuples())
+            props["ring_puckers"] = "; ".join(f"{r.ring} {getattr(r, 'label', r.pucker)}" for r in rings.itertuples())
         hb = desc.hbonds[desc.hbonds["conformer"] == cid]
         props["hydrogen_bonds"] = "; ".join(
             f"{r.label} {r.distance_angstrom:.2f} A" for r in hb.itertuples()) or "none"

@@ -151,3 +151,18 @@ def test_report_and_table_name_the_flip_of_methylcyclohexane():
     assert f"chair, C1 eq {100 * pops[0]:.0f} %; chair, C1 ax {100 * pops[1]:.0f} %" in sentence
     table, text = conformer_table(ens, [298.15], free=False)
     assert list(table["ring C2-C3-C4-C5-C6-C7"]) == ["chair, C1 eq", "chair, C1 ax"]
+
+
+def test_sdf_ring_property_names_the_substituent_position(tmp_path):
+    # the SD property a plain SDF reader shows carries the same text as the table; independent
+    # check: RDKit reads the file back and the two chairs of methylcyclohexane say eq and ax
+    from rdkit import Chem
+
+    import confpop as cp
+
+    ens = cp.search("CC1CCCCC1", method="mmff94s", seed=1)
+    ens.to_sdf(tmp_path / "e.sdf")
+    texts = [m.GetProp("ring_puckers")
+             for m in Chem.SDMolSupplier(str(tmp_path / "e.sdf"), removeHs=False)]
+    assert sorted(t.split()[-1] for t in texts) == ["ax", "eq"]
+    assert all("chair, C1" in t for t in texts)
