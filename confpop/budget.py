@@ -10,16 +10,53 @@ above :data:`MAX_TRIALS`) unless the caller insists (``allow_long=True``; on the
 The model (constants measured here with ``benchmarks/bench_cost.py``, one thread each):
 
 - one trial structure (ETKDG embedding + MMFF94s relaxation) costs
-  ``0.0045 s * (n_atoms / 24) ** 2.8`` (0.0045 s at 24 atoms, 0.22 s at 96 atoms);
+  ``0.0045 s * (n_atoms / 24) ** 2.8`` (0.0045 s at 24 atoms, 0.22 s at 96 atoms); one
+  relaxation of a moved conformer (:mod:`confpop.moves`) is counted at the same price
+  (measured: 0.0044 s per move relaxation on the 27-atom ester below against 0.0063 s for a
+  trial, 0.016 s on propranolol against 0.019 s);
 - one GFN2-xTB energy + gradient costs ``0.0087 s * (n_atoms / 24) ** 1.85`` (0.0087 s at
   24 atoms, 0.11 s at 96); GFN1 is taken as GFN2, GFN-FF and force fields as free;
-- a search draws :data:`ROUNDS` rounds of ``n_trials`` structures and optimizes
-  ``min(n_trials, 3 ** rotatable_bonds)`` conformers with 31 gradient calls each (a median
-  of 29 optimizer calls measured at 31 atoms, plus single points).
+- sampling draws ``rounds * n_trials`` trial structures: :data:`ROUNDS_TWO_STREAMS` rounds with
+  the default two streams, :data:`ROUNDS_ONE_STREAM` with one stream (``target_overlap=None``),
+  never more than ``max_rounds``;
+- the move search (on by default) moves at most ``min(max_parents, 2 * S)`` parents (two
+  streams; one stream ``S``), each with every move of :func:`confpop.moves.list_moves`, where
+  ``S = 3 ** rotatable_bonds * 2 ** saturated_rings`` bounds the molecule's conformers;
+- the structures that reach the tight-binding stages (single point, then optimization with
+  31 gradient calls each: a median of 29 optimizer calls measured at 31 atoms, plus single
+  points) are ``min(S, rounds * n_trials + MOVE_YIELD * max_parents)`` with moves and
+  ``min(S, rounds * n_trials)`` without; every one is counted as optimized (the screen
+  dropped 0-17 % of them in the measurements below).
 
-It is meant to tell minutes from days, not to predict a run: on the molecules above it is
-within a factor of about 3 of the measured parts. A real run may stop sampling earlier or
-later (the completeness target), and a distributed executor divides the wall time.
+Measured with the defaults of the move search and the two streams (MMFF94s sampling and the
+GFN2 screen of ``search(..., seed=0)``; "structures" = single points / optimizations) against
+what this module assumed before it counted the moves and the streams (three rounds,
+``min(n_trials, 3 ** rotatable_bonds)`` optimizations, no move relaxations):
+
+=============================  =====  ==============  ============  =========  =========
+molecule (atoms, rot. bonds)   path   relaxations     structures    est./act.  est./act.
+                                      (ETKDG + moves)  (sp / opt)    before     now
+=============================  =====  ==============  ============  =========  =========
+1-butanol (15, 3)              old    100             12 / 12       4.2        2.3
+                               new    50 + 180        15 / 15       3.3        1.8
+ester CCOC(=O)[C@@H](C)CCOC    old    300             111 / 111     0.45       2.2
+  (invented, 27, 5)            new    50 + 4,560      161 / 161     0.31       1.5
+propranolol (40, 7)            old    800             253 / 233     0.21       3.0 (1,000)
+                               new    50 + 6,400      565 / 468     0.11       1.6 (750)
+trans-4-isopropylcyclohexyl-   old    400             71 / 71       0.70       6.8 (486)
+  oxyethanol (invented, 35, 5) new    50 + 1,972      149 / 149     0.34       3.3 (486)
+=============================  =====  ==============  ============  =========  =========
+
+(est./act.: estimated over measured structures optimized at GFN2; before, the estimate
+assumed ``min(n_trials, 3 ** rotatable_bonds)``, in brackets the estimate now; "old" is
+``moves=False, target_overlap=None``, "new" the defaults; move relaxations: 180, 4,560,
+6,400 (the 400-parent cap) and 1,972.) The optimizations dominate the CPU time; the
+estimate now stays above the measured count on every molecule (1.5-6.8x) where it was up to
+9x below it (propranolol, default path).
+
+It is meant to tell minutes from days, not to predict a run: a real run may stop sampling
+earlier or later (the streams' agreement, the completeness target), and a distributed
+executor divides the wall time.
 """
 
 from __future__ import annotations
@@ -32,14 +69,25 @@ __all__ = ["SearchEstimate", "estimate_search", "check_search_budget", "MAX_CPU_
            "MAX_TRIALS"]
 
 #: estimated CPU hours above which a search is refused unless the caller insists. A typical
-#: flexible drug-sized molecule (60 atoms, 8 rotatable bonds, GFN2) is estimated at ~6 CPU
-#: minutes; the bound leaves 20x room and refuses a 150-heavy-atom peptide (~4 CPU hours).
+#: flexible drug-sized molecule (60 atoms, 8 rotatable bonds, GFN2) is estimated at ~0.4 CPU
+#: hours with the move search and the two streams (~6 CPU minutes before they were counted);
+#: the bound leaves 5x room and refuses a 150-heavy-atom peptide (~100 CPU hours).
 MAX_CPU_HOURS = 2.0
 #: most trial structures per sampling round without insisting: the largest default
 #: (sampling.default_trials) is 600, for macrocycles
 MAX_TRIALS = 10_000
-#: sampling rounds assumed by the estimate (runs measured here stopped after 2-5 rounds)
-ROUNDS = 3
+#: sampling rounds assumed with the two streams (the default): the four molecules of the
+#: module notes stopped after 1 round ("streams agree")
+ROUNDS_TWO_STREAMS = 3
+#: sampling rounds assumed with one stream (``target_overlap=None``): measured 2 (butanol),
+#: 6 (ester), 8 (cyclohexyl ether), 16 (propranolol), stopped by the completeness target
+ROUNDS_ONE_STREAM = 20
+#: former name of the rounds assumed (one stream, before the measurements above)
+ROUNDS = ROUNDS_TWO_STREAMS
+#: distinct conformers the move search adds per parent allowed (``MoveSettings.max_parents``):
+#: propranolol reached 565 force-field conformers with its 400 parents (1.41 per parent;
+#: 50 ETKDG trials), the other molecules of the module notes 0.5-1.3 per parent moved
+MOVE_YIELD = 1.5
 _TRIAL_SECONDS, _TRIAL_POWER = 0.0045, 2.8
 _GRADIENT_SECONDS, _GRADIENT_POWER = 0.0087, 1.85
 _CALLS_PER_CONFORMER = 31
@@ -55,6 +103,12 @@ class SearchEstimate:
     atoms, rotatable_bonds, trials : int
     method : str
     sampling_seconds, optimization_seconds : float, CPU seconds
+    relaxations : int
+        Force-field relaxations assumed in sampling (trial structures and moved conformers).
+    structures : int
+        Structures assumed to reach the final method (single point and optimization).
+    moves : int
+        Moves per parent conformer (0: the move search is off).
     """
 
     atoms: int
@@ -63,18 +117,31 @@ class SearchEstimate:
     method: str
     sampling_seconds: float
     optimization_seconds: float
+    relaxations: int = 0
+    structures: int = 0
+    moves: int = 0
 
     @property
     def cpu_hours(self) -> float:
         return (self.sampling_seconds + self.optimization_seconds) / 3600.0
 
     def describe(self) -> str:
+        level = (f"{self.structures} structures to optimize with {self.method}"
+                 if self.method not in _CHEAP else f"method {self.method}")
         return (f"{self.atoms} atoms, {self.rotatable_bonds} rotatable bonds, {self.trials} "
-                f"trials per round, method {self.method}: about {self.cpu_hours:.2g} CPU hours")
+                f"trials per round, {self.relaxations} force-field relaxations"
+                f"{' (moves included)' if self.moves else ''}, {level}: about "
+                f"{self.cpu_hours:.2g} CPU hours")
 
 
-def estimate_search(mol, *, method: str = "gfn2", n_trials: int | None = None) -> SearchEstimate:
+def estimate_search(mol, *, method: str = "gfn2", n_trials: int | None = None,
+                    moves=True, target_overlap: float | None = 0.9,
+                    max_rounds: int | None = None) -> SearchEstimate:
     """Estimate the CPU time of searching ``mol`` (an RDKit Mol with explicit hydrogens).
+
+    ``moves``, ``target_overlap`` and ``max_rounds`` are :func:`confpop.search`'s: the move
+    search (True, False or a :class:`confpop.moves.MoveSettings`), two streams (a number) or
+    one (None), and the most rounds (None: the search's default).
 
     Examples
     --------
@@ -83,24 +150,52 @@ def estimate_search(mol, *, method: str = "gfn2", n_trials: int | None = None) -
     >>> small.atoms, small.rotatable_bonds, small.cpu_hours < 0.05
     (24, 6, True)
     """
+    from .moves import MoveSettings, list_moves
     from .sampling import default_trials, flexibility
+    from .settings import SEARCH_DEFAULTS
 
     n_atoms = mol.GetNumAtoms()
     n_rot = flexibility(mol)["rotatable_bonds"]
     trials = default_trials(mol) if n_trials is None else int(n_trials)
+    if max_rounds is None:
+        max_rounds = SEARCH_DEFAULTS.max_rounds
+    streams = 1 if target_overlap is None else 2
+    rounds = min(int(max_rounds), ROUNDS_ONE_STREAM if streams == 1 else ROUNDS_TWO_STREAMS)
+    settings = moves if isinstance(moves, MoveSettings) else (MoveSettings() if moves else None)
+    move_list = list_moves(mol, settings) if settings is not None else []
+    rings = sum(1 for m in list_moves(mol, MoveSettings()) if m.kind == "ring flip")
+    # conformers the molecule can have, roughly: three per rotor, two shapes per saturated ring
+    space = 3 ** min(n_rot, 20) * 2 ** min(rings, 20)
+    drawn = rounds * trials
+    if move_list:
+        parents = min(settings.max_parents, streams * space)
+        relaxations = drawn + parents * len(move_list)
+        structures = min(space, drawn + int(MOVE_YIELD * settings.max_parents))
+    else:
+        relaxations = drawn
+        structures = min(space, drawn)
     scale = n_atoms / 24.0
-    sampling = ROUNDS * trials * _TRIAL_SECONDS * scale ** _TRIAL_POWER
-    optimized = min(trials, 3 ** min(n_rot, 20))
+    sampling = relaxations * _TRIAL_SECONDS * scale ** _TRIAL_POWER
     method = str(method).lower()
+    # each structure: a screening single point and an optimization
     optimization = 0.0 if method in _CHEAP else \
-        optimized * _CALLS_PER_CONFORMER * _GRADIENT_SECONDS * scale ** _GRADIENT_POWER
-    return SearchEstimate(n_atoms, n_rot, trials, method, sampling, optimization)
+        structures * (1 + _CALLS_PER_CONFORMER) * _GRADIENT_SECONDS * scale ** _GRADIENT_POWER
+    return SearchEstimate(n_atoms, n_rot, trials, method, sampling, optimization,
+                          relaxations=int(relaxations), structures=int(structures),
+                          moves=len(move_list))
 
 
 def check_search_budget(mol, *, method: str = "gfn2", n_trials: int | None = None,
                         allow_long: bool = False, label: str = "the molecule",
-                        option: str = "--allow-long-run") -> SearchEstimate:
+                        option: str = "--allow-long-run", moves=True,
+                        target_overlap: float | None = 0.9, max_rounds: int | None = None,
+                        levers: str = "--no-moves, fewer --trials or a cheaper --method"
+                        ) -> SearchEstimate:
     """Refuse a search above :data:`MAX_CPU_HOURS` or :data:`MAX_TRIALS` unless ``allow_long``.
+
+    ``moves``, ``target_overlap`` and ``max_rounds`` as in :func:`estimate_search`;
+    ``option`` and ``levers`` name, in the caller's terms, how to insist and how to make the
+    search cheaper (defaults: the command line's options).
 
     Raises
     ------
@@ -110,7 +205,8 @@ def check_search_budget(mol, *, method: str = "gfn2", n_trials: int | None = Non
     if n_trials is not None and (isinstance(n_trials, bool) or not isinstance(n_trials, int)
                                  or n_trials < 1):
         raise InputError(f"the number of trials must be an integer >= 1, got {n_trials!r}")
-    estimate = estimate_search(mol, method=method, n_trials=n_trials)
+    estimate = estimate_search(mol, method=method, n_trials=n_trials, moves=moves,
+                               target_overlap=target_overlap, max_rounds=max_rounds)
     if allow_long:
         return estimate
     if n_trials is not None and n_trials > MAX_TRIALS:
@@ -120,5 +216,5 @@ def check_search_budget(mol, *, method: str = "gfn2", n_trials: int | None = Non
         raise InputError(f"searching {label} would take too long: {estimate.describe()}, "
                          f"above the bound of {MAX_CPU_HOURS:g} (an order-of-magnitude "
                          f"estimate, see confpop.budget); pass {option} to insist, or choose "
-                         "fewer --trials or a cheaper --method")
+                         f"{levers}")
     return estimate
