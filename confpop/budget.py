@@ -157,11 +157,13 @@ def estimate_search(mol, *, method: str = "gfn2", n_trials: int | None = None,
     n_atoms = mol.GetNumAtoms()
     n_rot = flexibility(mol)["rotatable_bonds"]
     trials = default_trials(mol) if n_trials is None else int(n_trials)
-    if max_rounds is None:
-        max_rounds = SEARCH_DEFAULTS.max_rounds
+    if isinstance(max_rounds, bool) or not isinstance(max_rounds, int) or max_rounds < 1:
+        max_rounds = SEARCH_DEFAULTS.max_rounds  # None, or a bad value the search reports
     streams = 1 if target_overlap is None else 2
-    rounds = min(int(max_rounds), ROUNDS_ONE_STREAM if streams == 1 else ROUNDS_TWO_STREAMS)
-    settings = moves if isinstance(moves, MoveSettings) else (MoveSettings() if moves else None)
+    rounds = min(max_rounds, ROUNDS_ONE_STREAM if streams == 1 else ROUNDS_TWO_STREAMS)
+    # a value other than a bool or MoveSettings is reported by the search; assume moves on
+    settings = moves if isinstance(moves, MoveSettings) else \
+        (None if moves is False or moves is None else MoveSettings())
     move_list = list_moves(mol, settings) if settings is not None else []
     rings = sum(1 for m in list_moves(mol, MoveSettings()) if m.kind == "ring flip")
     # conformers the molecule can have, roughly: three per rotor, two shapes per saturated ring
