@@ -28,31 +28,34 @@ The model (constants measured here with ``benchmarks/bench_cost.py``, one thread
   ``min(S, rounds * n_trials)`` without; every one is counted as optimized (the screen
   dropped 0-17 % of them in the measurements below).
 
-Measured with the defaults of the move search and the two streams (MMFF94s sampling and the
-GFN2 screen of ``search(..., seed=0)``; "structures" = single points / optimizations) against
-what this module assumed before it counted the moves and the streams (three rounds,
-``min(n_trials, 3 ** rotatable_bonds)`` optimizations, no move relaxations):
+Measured (``search(smiles, method="gfn2", seed=0, workers=1)``, MMFF94s sampling and the GFN2
+screen; "new" the defaults: move search, two streams, overlap 0.9; "old" ``moves=False,
+target_overlap=None``), against what this module assumed before it counted the moves and
+the streams (three rounds, ``min(n_trials, 3 ** rotatable_bonds)`` optimizations, no move
+relaxations). Structures: force-field conformers single-pointed / optimized at GFN2;
+est./act.: structures the estimate assumes over those optimized:
 
-=============================  =====  ==============  ============  =========  =========
-molecule (atoms, rot. bonds)   path   relaxations     structures    est./act.  est./act.
-                                      (ETKDG + moves)  (sp / opt)    before     now
-=============================  =====  ==============  ============  =========  =========
-1-butanol (15, 3)              old    100             12 / 12       4.2        2.3
-                               new    50 + 180        15 / 15       3.3        1.8
-ester CCOC(=O)[C@@H](C)CCOC    old    300             111 / 111     0.45       2.2
-  (invented, 27, 5)            new    50 + 4,560      161 / 161     0.31       1.5
-propranolol (40, 7)            old    800             253 / 233     0.21       3.0 (1,000)
-                               new    50 + 6,400      565 / 468     0.11       1.6 (750)
-trans-4-isopropylcyclohexyl-   old    400             71 / 71       0.70       6.8 (486)
-  oxyethanol (invented, 35, 5) new    50 + 1,972      149 / 149     0.34       3.3 (486)
-=============================  =====  ==============  ============  =========  =========
+===============================  ====  =============  =========  ===========  ===========
+molecule (atoms, rot. bonds)     path  relaxations    structures est./act.    est./act.
+                                       ETKDG + moves  sp / opt   before       now
+===============================  ====  =============  =========  ===========  ===========
+1-butanol (15, 3)                old   100            12 / 12    27: 2.3      27: 2.3
+                                 new   50 + 180       15 / 15    27: 1.8      27: 1.8
+ester CCOC(=O)[C@@H](C)CCOC      old   300            111 / 111  50: 0.45     243: 2.2
+(invented; 27, 5)                new   50 + 4,560     161 / 161  50: 0.31     243: 1.5
+propranolol (40, 7)              old   800            253 / 233  50: 0.21     1,000: 4.3
+                                 new   50 + 6,400     565 / 468  50: 0.11     750: 1.6
+CC(C)[C@H]1CC[C@H](OCCO)CC1      old   400            71 / 71    50: 0.70     486: 6.8
+(invented; 35, 5)                new   50 + 1,972     149 / 149  50: 0.34     486: 3.3
+1-decanol (33, 9)                old   3,100          1788/1788  155: 0.087   3,100: 1.7
+===============================  ====  =============  =========  ===========  ===========
 
-(est./act.: estimated over measured structures optimized at GFN2; before, the estimate
-assumed ``min(n_trials, 3 ** rotatable_bonds)``, in brackets the estimate now; "old" is
-``moves=False, target_overlap=None``, "new" the defaults; move relaxations: 180, 4,560,
-6,400 (the 400-parent cap) and 1,972.) The optimizations dominate the CPU time; the
-estimate now stays above the measured count on every molecule (1.5-6.8x) where it was up to
-9x below it (propranolol, default path).
+Whole GFN2 searches (same call, CPU seconds of one process under load, est./act.): 1-butanol
+old 1.4 s (before 3.2 s: 2.3; now 4.4 s: 3.1), new 1.4 s (2.3; now 3.7 s: 2.6); the ester
+old 45 s (before 18 s: 0.39; now 90 s: 2.0), new 84 s (before 0.21; now 123 s: 1.5).
+Sampling alone (wall seconds, new): propranolol 111 s (estimated 2.8 s before, 123 s now),
+the ester 24 s (0.9 / 38), the cyclohexane ether 9 s (1.9 / 90: its 17 moves x 400 parents
+assumed, 116 parents measured), 1-butanol 0.4 s (0.2 / 0.6).
 
 It is meant to tell minutes from days, not to predict a run: a real run may stop sampling
 earlier or later (the streams' agreement, the completeness target), and a distributed
@@ -68,10 +71,11 @@ from .errors import InputError
 __all__ = ["SearchEstimate", "estimate_search", "check_search_budget", "MAX_CPU_HOURS",
            "MAX_TRIALS"]
 
-#: estimated CPU hours above which a search is refused unless the caller insists. A typical
-#: flexible drug-sized molecule (60 atoms, 8 rotatable bonds, GFN2) is estimated at ~0.4 CPU
-#: hours with the move search and the two streams (~6 CPU minutes before they were counted);
-#: the bound leaves 5x room and refuses a 150-heavy-atom peptide (~100 CPU hours).
+#: estimated CPU hours above which a search is refused unless the caller insists. An invented
+#: flexible drug-sized amide-ether (61 atoms, 12 rotatable bonds, GFN2, tests/test_budget.py)
+#: is estimated at 0.75 CPU hours with the move search and the two streams (0.1 before they
+#: were counted); the bound leaves 2.7x room and refuses the invented 170-heavy-atom peptide
+#: of tests/test_cli_safety.py (~210 CPU hours).
 MAX_CPU_HOURS = 2.0
 #: most trial structures per sampling round without insisting: the largest default
 #: (sampling.default_trials) is 600, for macrocycles
