@@ -220,7 +220,7 @@ def check_search_budget(mol, *, method: str = "gfn2", n_trials: int | None = Non
                          f"(defaults are at most 600); pass {option} to insist")
     if estimate.cpu_hours > MAX_CPU_HOURS:
         raise InputError(f"searching {label} would take too long: {estimate.describe()}, "
-                         f"above the bound of {MAX_CPU_HOURS:g} CPU hours (an order-of-magnitude "
-                         f"estimate, see confpop.budget); pass {option} to insist, or choose "
-                         f"{levers}")
+                         f"above the bound of {MAX_CPU_HOURS:g} CPU hours (an "
+                         f"order-of-magnitude estimate, see confpop.budget); pass {option} "
+                         f"to insist, or choose {levers}")
     return estimate
