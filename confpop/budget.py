@@ -16,9 +16,12 @@ The model (constants measured here with ``benchmarks/bench_cost.py``, one thread
   trial, 0.016 s on propranolol against 0.019 s);
 - one GFN2-xTB energy + gradient costs ``0.0087 s * (n_atoms / 24) ** 1.85`` (0.0087 s at
   24 atoms, 0.11 s at 96); GFN1 is taken as GFN2, GFN-FF and force fields as free;
-- sampling draws ``rounds * n_trials`` trial structures: :data:`ROUNDS_TWO_STREAMS` rounds with
-  the default two streams, :data:`ROUNDS_ONE_STREAM` with one stream (``target_overlap=None``),
-  never more than ``max_rounds``;
+- sampling draws ``max_rounds * n_trials`` trial structures (default 20 rounds): the
+  search's own bound, reached by 1-decanol with the two streams (they never agreed) and with
+  one stream, while the other molecules below stopped after 1 round (two streams) or 2-16
+  (one stream); with two streams each round also compares the streams' conformers, priced
+  as ``rounds * structures / 2`` trial structures (1-decanol: 375 CPU s of sampling against
+  113 s for its 10,300 relaxations; 0.0077 s per conformer per round, 0.7 of a trial);
 - the move search (on by default) moves at most ``min(max_parents, 2 * S)`` parents (two
   streams; one stream ``S``), each with every move of :func:`confpop.moves.list_moves`, where
   ``S = 3 ** rotatable_bonds * 2 ** saturated_rings`` bounds the molecule's conformers;
@@ -71,23 +74,20 @@ from .errors import InputError
 __all__ = ["SearchEstimate", "estimate_search", "check_search_budget", "MAX_CPU_HOURS",
            "MAX_TRIALS"]
 
-#: estimated CPU hours above which a search is refused unless the caller insists. An invented
-#: flexible drug-sized amide-ether (61 atoms, 12 rotatable bonds, GFN2, tests/test_budget.py)
-#: is estimated at 0.75 CPU hours with the move search and the two streams (0.1 before they
-#: were counted); the bound leaves 2.7x room and refuses the invented 170-heavy-atom peptide
-#: of tests/test_cli_safety.py (~210 CPU hours).
+#: estimated CPU hours above which a search is refused unless the caller insists. Propranolol
+#: (40 atoms, 7 rotatable bonds, GFN2) is estimated at 0.44 CPU hours with the move search and
+#: the two streams (0.01 before they were counted); an invented flexible drug-sized
+#: amide-ether (61 atoms, 12 rotatable bonds, tests/test_budget.py) at 3.1 (refused; 0.09
+#: before), 1.0 with 5 rounds; the invented 170-heavy-atom peptide of
+#: tests/test_cli_safety.py at ~400.
 MAX_CPU_HOURS = 2.0
 #: most trial structures per sampling round without insisting: the largest default
 #: (sampling.default_trials) is 600, for macrocycles
 MAX_TRIALS = 10_000
-#: sampling rounds assumed with the two streams (the default): the four molecules of the
-#: module notes stopped after 1 round ("streams agree")
-ROUNDS_TWO_STREAMS = 3
-#: sampling rounds assumed with one stream (``target_overlap=None``): measured 2 (butanol),
-#: 6 (ester), 8 (cyclohexyl ether), 16 (propranolol), stopped by the completeness target
-ROUNDS_ONE_STREAM = 20
-#: former name of the rounds assumed (one stream, before the measurements above)
-ROUNDS = ROUNDS_TWO_STREAMS
+#: sampling rounds assumed when ``max_rounds`` is not given: the search's default bound (20),
+#: which 1-decanol reached with the two streams and with one (module notes); 3 before the
+#: move search and the two streams were counted
+ROUNDS = 20
 #: distinct conformers the move search adds per parent allowed (``MoveSettings.max_parents``):
 #: propranolol reached 565 force-field conformers with its 400 parents (1.41 per parent;
 #: 50 ETKDG trials), the other molecules of the module notes 0.5-1.3 per parent moved
@@ -164,7 +164,7 @@ def estimate_search(mol, *, method: str = "gfn2", n_trials: int | None = None,
     if isinstance(max_rounds, bool) or not isinstance(max_rounds, int) or max_rounds < 1:
         max_rounds = SEARCH_DEFAULTS.max_rounds  # None, or a bad value the search reports
     streams = 1 if target_overlap is None else 2
-    rounds = min(max_rounds, ROUNDS_ONE_STREAM if streams == 1 else ROUNDS_TWO_STREAMS)
+    rounds = max_rounds
     # a value other than a bool or MoveSettings is reported by the search; assume moves on
     settings = moves if isinstance(moves, MoveSettings) else \
         (None if moves is False or moves is None else MoveSettings())
@@ -181,7 +181,9 @@ def estimate_search(mol, *, method: str = "gfn2", n_trials: int | None = None,
         relaxations = drawn
         structures = min(space, drawn)
     scale = n_atoms / 24.0
-    sampling = relaxations * _TRIAL_SECONDS * scale ** _TRIAL_POWER
+    # two streams: every round compares their conformers (about half of them on average)
+    compared = rounds * structures // 2 if streams == 2 else 0
+    sampling = (relaxations + compared) * _TRIAL_SECONDS * scale ** _TRIAL_POWER
     method = str(method).lower()
     # each structure: a screening single point and an optimization
     optimization = 0.0 if method in _CHEAP else \
@@ -195,7 +197,7 @@ def check_search_budget(mol, *, method: str = "gfn2", n_trials: int | None = Non
                         allow_long: bool = False, label: str = "the molecule",
                         option: str = "--allow-long-run", moves=True,
                         target_overlap: float | None = 0.9, max_rounds: int | None = None,
-                        levers: str = "--no-moves, fewer --trials or a cheaper --method"
+                        levers: str = "fewer --rounds or --trials, --no-moves or a cheaper --method"
                         ) -> SearchEstimate:
     """Refuse a search above :data:`MAX_CPU_HOURS` or :data:`MAX_TRIALS` unless ``allow_long``.
 
