@@ -20,8 +20,10 @@ The model (constants measured here with ``benchmarks/bench_cost.py``, one thread
   search's own bound, reached by 1-decanol with the two streams (they never agreed) and with
   one stream, while the other molecules below stopped after 1 round (two streams) or 2-16
   (one stream); with two streams each round also compares the streams' conformers, priced
-  as ``rounds * structures / 2`` trial structures (1-decanol: 375 CPU s of sampling against
-  113 s for its 10,300 relaxations; 0.0077 s per conformer per round, 0.7 of a trial);
+  as ``rounds * structures / 2`` trial structures (1-decanol: 434 s wall of sampling, 424
+  CPU s with the screen's 3,413 single points, against 113 s for its 10,300 relaxations at
+  the trial price: roughly 0.7 of a trial per conformer and round at 33 atoms; scaled with
+  size like a trial, not measured at other sizes);
 - the move search (on by default) moves at most ``min(max_parents, 2 * S)`` parents (two
   streams; one stream ``S``), each with every move of :func:`confpop.moves.list_moves`, where
   ``S = 3 ** rotatable_bonds * 2 ** saturated_rings`` bounds the molecule's conformers;
@@ -38,27 +40,29 @@ the streams (three rounds, ``min(n_trials, 3 ** rotatable_bonds)`` optimizations
 relaxations). Structures: force-field conformers single-pointed / optimized at GFN2;
 est./act.: structures the estimate assumes over those optimized:
 
-===============================  ====  =============  =========  ===========  ===========
-molecule (atoms, rot. bonds)     path  relaxations    structures est./act.    est./act.
-                                       ETKDG + moves  sp / opt   before       now
-===============================  ====  =============  =========  ===========  ===========
-1-butanol (15, 3)                old   100            12 / 12    27: 2.3      27: 2.3
-                                 new   50 + 180       15 / 15    27: 1.8      27: 1.8
-ester CCOC(=O)[C@@H](C)CCOC      old   300            111 / 111  50: 0.45     243: 2.2
-(invented; 27, 5)                new   50 + 4,560     161 / 161  50: 0.31     243: 1.5
-propranolol (40, 7)              old   800            253 / 233  50: 0.21     1,000: 4.3
-                                 new   50 + 6,400     565 / 468  50: 0.11     750: 1.6
-CC(C)[C@H]1CC[C@H](OCCO)CC1      old   400            71 / 71    50: 0.70     486: 6.8
-(invented; 35, 5)                new   50 + 1,972     149 / 149  50: 0.34     486: 3.3
-1-decanol (33, 9)                old   3,100          1788/1788  155: 0.087   3,100: 1.7
-===============================  ====  =============  =========  ===========  ===========
+===============================  ====  ==============  ===========  ===========  ===========
+molecule (atoms, rot. bonds)     path  relaxations     structures   est./act.    est./act.
+                                       ETKDG + moves   sp / opt     before       now
+===============================  ====  ==============  ===========  ===========  ===========
+1-butanol (15, 3)                old   100             12 / 12      27: 2.3      27: 2.3
+                                 new   50 + 180        15 / 15      27: 1.8      27: 1.8
+ester CCOC(=O)[C@@H](C)CCOC      old   300             111 / 111    50: 0.45     243: 2.2
+(invented; 27, 5)                new   50 + 4,560      161 / 161    50: 0.31     243: 1.5
+propranolol (40, 7)              old   800             253 / 233    50: 0.21     1,000: 4.3
+                                 new   50 + 6,400      565 / 468    50: 0.11     1,600: 3.4
+CC(C)[C@H]1CC[C@H](OCCO)CC1      old   400             71 / 71      50: 0.70     486: 6.8
+(invented; 35, 5)                new   50 + 1,972      149 / 149    50: 0.34     486: 3.3
+1-decanol (33, 9)                old   3,100           1788 / 1788  155: 0.087   3,100: 1.7
+                                 new   3,100 + 7,200   3413 / 3413  155: 0.045   3,700: 1.08
+===============================  ====  ==============  ===========  ===========  ===========
 
-Whole GFN2 searches (same call, CPU seconds of one process under load, est./act.): 1-butanol
-old 1.4 s (before 3.2 s: 2.3; now 4.4 s: 3.1), new 1.4 s (2.3; now 3.7 s: 2.6); the ester
-old 45 s (before 18 s: 0.39; now 90 s: 2.0), new 84 s (before 0.21; now 123 s: 1.5).
-Sampling alone (wall seconds, new): propranolol 111 s (estimated 2.8 s before, 123 s now),
-the ester 24 s (0.9 / 38), the cyclohexane ether 9 s (1.9 / 90: its 17 moves x 400 parents
-assumed, 116 parents measured), 1-butanol 0.4 s (0.2 / 0.6).
+Rounds: two streams stopped after 1 round ("streams agree") except 1-decanol (20, the round
+budget); one stream after 2, 6, 16, 8 and 20. Whole GFN2 searches (same call, CPU seconds of
+one process under load, est./act.): 1-butanol old 1.4 s (before 3.2 s: 2.3; now 4.4 s: 3.1),
+new 1.4 s (2.3; now 5.1 s: 3.6); the ester old 45 s (before 18 s: 0.39; now 90 s: 2.0), new
+84 s (before 0.21; now 143 s: 1.7). Sampling alone (wall seconds, new): 1-decanol
+434 s (estimated 5.1 s before, 519 s now), propranolol 111 s (2.8 / 440), the ester 24 s
+(0.9 / 59), the cyclohexane ether 9 s (1.9 / 164), 1-butanol 0.4 s (0.2 / 1.9).
 
 It is meant to tell minutes from days, not to predict a run: a real run may stop sampling
 earlier or later (the streams' agreement, the completeness target), and a distributed
