@@ -112,5 +112,6 @@ def test_search_refuses_in_python_terms(monkeypatch):
     from confpop.pipeline import search
 
     monkeypatch.setattr(confpop.budget, "MAX_CPU_HOURS", 1e-9)
-    with pytest.raises(InputError, match=r"allow_long=True to insist, or choose a smaller max_rounds"):
+    with pytest.raises(InputError,
+                       match=r"allow_long=True to insist, or choose a smaller max_rounds"):
         search("CCCCO")
