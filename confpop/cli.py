@@ -232,8 +232,8 @@ def _add_ensemble(parser: argparse.ArgumentParser) -> None:
                              "more than 10000 needs --allow-long-run)")
     parser.add_argument("--allow-long-run", action="store_true",
                         help="run a search whose estimated cost is above 2 CPU hours (the "
-                             "estimate, from atoms, rotatable bonds, trials and method, is "
-                             "printed in the refusal)")
+                             "estimate, from atoms, rotatable bonds, trials, moves and method, "
+                             "is printed in the refusal)")
     parser.add_argument("--rounds", type=int, default=_MAX_ROUNDS,
                         help=f"most sampling rounds (default {_MAX_ROUNDS})")
     parser.add_argument("--completeness", type=_finite_float, default=_TARGET_COMPLETENESS,
@@ -358,7 +358,8 @@ def _check_search_cost(args) -> None:
                 keep_largest_fragment=args.keep_largest_fragment, stereo="ignore",
                 method=None, name=None, warn_open_stereo=False)
     check_search_budget(mol, method=args.method, n_trials=args.trials,
-                        allow_long=args.allow_long_run,
+                        allow_long=args.allow_long_run, moves=not args.no_moves,
+                        target_overlap=args.agreement or None, max_rounds=args.rounds,
                         label=repr(args.input if len(args.input) <= 40 else args.input[:37] + "..."))
 
 

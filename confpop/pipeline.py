@@ -332,7 +332,9 @@ def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int
     _refuse_open_square_planar(mol)
     from .budget import check_search_budget
     check_search_budget(mol, method=method, n_trials=n_trials, allow_long=allow_long,
-                        label=Chem.MolToSmiles(Chem.RemoveHs(mol))[:40], option="allow_long=True")
+                        label=Chem.MolToSmiles(Chem.RemoveHs(mol))[:40], option="allow_long=True",
+                        moves=moves, target_overlap=target_overlap, max_rounds=max_rounds,
+                        levers="a smaller max_rounds or n_trials, moves=False or a cheaper method")
     charge = mol.GetIntProp("charge") if mol.HasProp("charge") else Chem.GetFormalCharge(mol)
     multiplicity = mol.GetIntProp("multiplicity") if mol.HasProp("multiplicity") else 1
     if solvent is not None and "solvent" not in backend_class(method).capabilities:
