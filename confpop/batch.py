@@ -627,8 +627,9 @@ def _check_budget(molecule, settings: dict) -> None:
                     stereo="ignore", method=None, name=None, warn_open_stereo=False)
     except InputError:
         return  # the search itself reports why the molecule cannot be read
+    extra = {k: options[k] for k in ("moves", "target_overlap", "max_rounds") if k in options}
     check_search_budget(mol, method=settings["method"], n_trials=options.get("n_trials"),
-                        option="allow_long=True (--allow-long-run)")
+                        option="allow_long=True (--allow-long-run)", **extra)
 
 
 def _search_unit(item: dict) -> dict:
