@@ -193,8 +193,10 @@ class SamplingReport:
         conformer; 1 - unseen_share is the completeness estimate.
     new_per_round : list of int
     saturated : bool
-        A round found nothing new or the completeness target was reached (rather than
-        stopping at max_rounds).
+        The last round found no new conformer. (It used to be set also when the completeness
+        target or the streams' agreement stopped the rounds, even after a round that found
+        16 new conformers; why the rounds stopped is ``stop_reason``, and ``converged``
+        says whether the streams agreed.)
     streams : int
         Independent sampling streams (1, or 2 for the two-stream convergence check).
     stream_overlap : float or None
@@ -551,7 +553,8 @@ def sample_conformers(mol: Chem.Mol, *, n_trials: int | None = None, seed: int =
                  time.perf_counter() - t0)
         if streams == 2 and target_overlap is not None:
             if report.stream_overlap >= target_overlap:
-                report.converged = report.saturated = True
+                report.converged = True
+                report.saturated = n_new == 0
                 report.stop_reason = "streams agree"
                 break
             continue
@@ -563,7 +566,7 @@ def sample_conformers(mol: Chem.Mol, *, n_trials: int | None = None, seed: int =
         if rnd > 0 and target_completeness is not None and counts:
             seen, once = _tally(counts.values())
             if seen and 1.0 - once / seen >= target_completeness:
-                report.saturated = True
+                report.saturated = n_new == 0
                 report.stop_reason = "completeness target"
                 break
     if not report.stop_reason:

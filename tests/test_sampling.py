@@ -91,7 +91,9 @@ def test_completeness_target_stops_rounds_early():
     *_, unlimited = sample_conformers(mol, n_trials=10, seed=2, max_rounds=8)
     *_, report = sample_conformers(mol, n_trials=10, seed=2, max_rounds=8, target_completeness=0.35)
     assert unlimited.rounds == 8 and unlimited.completeness < 0.5
-    assert report.completeness >= 0.35 and report.saturated
+    assert report.completeness >= 0.35 and report.stop_reason == "completeness target"
+    # "saturated" means the last round found nothing new, not that a target stopped the rounds
+    assert report.saturated == (report.new_per_round[-1] == 0)
     assert 2 <= report.rounds < unlimited.rounds
     *_, one_less = sample_conformers(mol, n_trials=10, seed=2, max_rounds=report.rounds - 1)
     assert one_less.completeness < 0.35
