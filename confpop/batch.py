@@ -88,7 +88,8 @@ class BatchResult:
         One row per molecule, in input order: ``name``, ``smiles`` (canonical, hydrogens
         removed; the input text for a molecule that could not be read), ``status`` ("ok" or
         "failed"), ``conformers`` (active conformers), ``lowest_conformer`` (id of the
-        lowest-energy conformer), ``effective_count`` (Kish 1/Σp² at the first temperature),
+        lowest-energy conformer), ``effective_count`` (Kish 1/Σp² at the first temperature;
+        ``effective_count_{T}K`` at every temperature),
         ``population_top1_<T>K`` ... ``population_top3_<T>K`` (the three largest conformer
         populations at each temperature, degeneracy included; NaN when there are fewer
         conformers), ``seconds`` (wall time of the molecule's search), ``reason`` (the
@@ -739,6 +740,7 @@ def _no_survivor_message(ens: Ensemble) -> str:
 
 def _summary_columns(temps) -> list[str]:
     return (["name", "smiles", "status", "conformers", "lowest_conformer", "effective_count"]
+            + [f"effective_count_{t:g}K" for t in temps]
             + [f"population_top{rank}_{t:g}K" for t in temps for rank in (1, 2, 3)]
             + ["seconds", "reason", "folder"])
 
@@ -768,6 +770,7 @@ def _summary_row(entry: dict, value: dict, temps) -> dict:
         pops = ens.populations(list(temps))
         row["effective_count"] = float(effective_conformer_count(pops[temps[0]].to_numpy()))
         for t in temps:
+            row[f"effective_count_{t:g}K"] = float(effective_conformer_count(pops[t].to_numpy()))
             top = np.sort(pops[t].to_numpy())[::-1][:3]
             for rank, p in enumerate(top, start=1):
                 row[f"population_top{rank}_{t:g}K"] = float(p)

@@ -80,6 +80,9 @@ def test_summary_numbers_follow_from_the_ensembles(batch):
         assert row[f"population_top1_{temperature:g}K"] == pytest.approx(p[0], abs=1e-12)
         assert row[f"population_top2_{temperature:g}K"] == pytest.approx(p[1], abs=1e-12)
         assert pd.isna(row[f"population_top3_{temperature:g}K"])  # only two conformers
+        # Kish's effective sample size 1/sum(p^2) (Kish 1965), at every temperature
+        assert row[f"effective_count_{temperature:g}K"] == pytest.approx(1.0 / np.sum(p ** 2),
+                                                                         rel=1e-12)
         if temperature == 298.15:
             assert row["effective_count"] == pytest.approx(1.0 / np.sum(p ** 2), rel=1e-12)
     assert row["lowest_conformer"] == int(ens.energies().idxmin())
