@@ -75,6 +75,7 @@ import numpy as np
 from rdkit import Chem
 
 from .errors import InputError
+from .rotatable import _side  # one implementation of "atoms on one side of a bond"
 
 __all__ = ["Move", "MoveSettings", "list_moves", "apply_move", "population_overlap",
            "match_conformers"]
@@ -141,21 +142,6 @@ class Move:
     moving: tuple
     label: str
 
-
-def _side(mol, start, blocked):
-    seen = {start}
-    stack = [start]
-    while stack:
-        a = stack.pop()
-        for nb in mol.GetAtomWithIdx(a).GetNeighbors():
-            n = nb.GetIdx()
-            if (a == start and n == blocked) or n in seen:
-                continue
-            if n == blocked:
-                return None
-            seen.add(n)
-            stack.append(n)
-    return seen
 
 
 def _symmetric_top(mol, end, other) -> bool:

@@ -42,7 +42,7 @@ from rdkit import Chem
 from ..errors import InputError
 from . import karplus as kp
 from .cautions import method_cautions, warn_cautions
-from .identity import consistent_proton_identity, prochiral_labels
+from .identity import _labelled_smiles, consistent_proton_identity, prochiral_labels
 
 __all__ = [
     "ProtonGroup",
@@ -118,16 +118,6 @@ class ProtonGroup:
     label: str
 
 
-def _labelled_smiles(mol: Chem.Mol, h: int, conf_id: int, mirror: bool) -> str:
-    m = Chem.Mol(mol)
-    m.GetAtomWithIdx(h).SetIsotope(2)
-    conf = m.GetConformer(conf_id)
-    if mirror:
-        pos = -conf.GetPositions()
-        for i in range(m.GetNumAtoms()):
-            conf.SetAtomPosition(i, pos[i].tolist())
-    Chem.AssignStereochemistryFrom3D(m, confId=conf_id, replaceExistingTags=True)
-    return Chem.MolToSmiles(m)
 
 
 def proton_groups(mol: Chem.Mol, conf_id: int | None = None) -> list[ProtonGroup]:

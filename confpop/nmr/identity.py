@@ -389,3 +389,19 @@ def prochiral_labels(mol: Chem.Mol, conf_id: int | None = None) -> dict[int, str
             names = {p.pro_r: names[p.pro_s], p.pro_s: names[p.pro_r]}
         labels.update(names)
     return labels
+
+
+def _labelled_smiles(mol: Chem.Mol, atom: int, conf_id: int, mirror: bool) -> str:
+    """Canonical SMILES with ``atom`` isotope-labelled (2 for H, 99 otherwise), stereo from
+    the coordinates of ``conf_id`` (mirrored if asked): equal strings = equivalent nuclei.
+    One implementation for the coupling and the shift groupings."""
+    m = Chem.Mol(mol)
+    a = m.GetAtomWithIdx(atom)
+    a.SetIsotope(2 if a.GetAtomicNum() == 1 else 99)
+    conf = m.GetConformer(conf_id)
+    if mirror:
+        pos = -conf.GetPositions()
+        for i in range(m.GetNumAtoms()):
+            conf.SetAtomPosition(i, pos[i].tolist())
+    Chem.AssignStereochemistryFrom3D(m, confId=conf_id, replaceExistingTags=True)
+    return Chem.MolToSmiles(m)

@@ -28,7 +28,6 @@ a qualified spectroscopist decide.
 from __future__ import annotations
 
 import logging
-import time
 import warnings
 from collections import defaultdict
 
@@ -37,6 +36,7 @@ import pandas as pd
 from rdkit import Chem
 
 from ..errors import ConfpopWarning, InputError
+from .identity import _labelled_smiles
 
 __all__ = ["SCALING", "NUCLEI", "shielding_unit", "conformer_shieldings", "tms_shielding",
            "to_shifts", "chemical_shifts", "nucleus_groups", "read_measured_shifts",
@@ -247,17 +247,6 @@ def to_shifts(sigma, element: str, *, level: dict | tuple, reference="scaling",
 
 
 # ----------------------------------------------------------------------------- equivalence
-def _labelled_smiles(mol: Chem.Mol, atom: int, conf_id: int, mirror: bool) -> str:
-    m = Chem.Mol(mol)
-    a = m.GetAtomWithIdx(atom)
-    a.SetIsotope(2 if a.GetAtomicNum() == 1 else 99)
-    conf = m.GetConformer(conf_id)
-    if mirror:
-        pos = -conf.GetPositions()
-        for i in range(m.GetNumAtoms()):
-            conf.SetAtomPosition(i, pos[i].tolist())
-    Chem.AssignStereochemistryFrom3D(m, confId=conf_id, replaceExistingTags=True)
-    return Chem.MolToSmiles(m)
 
 
 def nucleus_groups(mol: Chem.Mol, element: str, conf_id: int | None = None) -> list[tuple]:
