@@ -5,8 +5,10 @@ one process (serial, ``OMP_NUM_THREADS=1``), per molecule:
 
 1. **Optimizer paths, interleaved** (``--starts N``, default 30): the search's own
    MMFF94s-relaxed ETKDG structures are optimized ("tight") by each path in ``--paths``
-   (default ``reference,lindh-primitive``: geomeTRIC's own guess Hessian with fresh SCF guesses, as
-   before, and Lindh's force constants with SCF restarts (the default), see :mod:`confpop.geometric_fast`),
+   (default ``reference,default``: geomeTRIC's own guess Hessian with fresh SCF guesses and
+   "tight" convergence, as before, and the search's defaults: Lindh's force constants, SCF
+   restarts, "tight-gradient" convergence; see :mod:`confpop.geometric_fast` and
+   :mod:`confpop.optimize`),
    start by start, one path after the other, and
    once by the reference path at "verytight" (the yardstick). Printed per path: median and
    p90 gradient calls per optimization, CPU per optimization, the engine floor (gradient
@@ -105,19 +107,35 @@ def one_gradient(mol, positions, repeats=15) -> float:
 
 
 _CONTINUATION = None
+# the library's own initial Hessian, before set_path changes it
+_LIBRARY_GUESS = getattr(copt, "DEFAULT_HESSIAN_GUESS", "geometric")
+
+
+def path_convergence(path: str) -> str:
+    """The convergence preset of a path: "@preset" at its end; else "tight", the preset of
+    every search before "tight-gradient"; "default" is the search's own default."""
+    if path == "default":
+        from confpop.settings import SEARCH_DEFAULTS
+        return SEARCH_DEFAULTS.convergence
+    return path.partition("@")[2] or "tight"
 
 
 def set_path(path: str) -> None:
-    """Select an optimizer path: an initial Hessian, "+norestart" for fresh SCF guesses.
+    """Select an optimizer path: an initial Hessian, "+norestart" for fresh SCF guesses,
+    "@preset" for the convergence preset (see :func:`path_convergence`).
 
     "reference" is geomeTRIC's own guess Hessian with a fresh SCF guess at every step (the
-    optimizer before this work); old confpop versions only have that one.
+    optimizer before this work); old confpop versions only have that one. "default" is the
+    search's defaults (initial Hessian and convergence preset).
     """
     global _CONTINUATION
     import contextlib
 
     from confpop.backends.base import Backend
 
+    path = path.partition("@")[0]
+    if path == "default":
+        path = _LIBRARY_GUESS
     guess, _, flag = path.partition("+")
     restart = flag != "norestart"
     if guess == "reference":
@@ -165,7 +183,7 @@ def optimizer_paths(name, smiles, paths, n_starts, seed, meter):
             set_path(p)
             t0 = time.process_time()
             try:
-                res = copt.optimize_positions(backend, start, convergence="tight")
+                res = copt.optimize_positions(backend, start, convergence=path_convergence(p))
             except cp.errors.ConfpopError:
                 rows[p]["failed"] += 1
                 rows[p]["energy"].append(np.nan)
@@ -196,7 +214,7 @@ def whole_search(name, smiles, paths, seed, trials, rounds, meter):
     for p in paths:
         set_path(p)
         meter.reset()
-        kw = {"workers": 1, "seed": seed}
+        kw = {"workers": 1, "seed": seed, "convergence": path_convergence(p)}
         if trials:
             kw["n_trials"] = trials
         if rounds:
@@ -223,10 +241,12 @@ def main() -> None:
         return
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--starts", type=int, default=30, help="starts per molecule for the paths")
-    ap.add_argument("--paths", default="reference,lindh-primitive",
+    ap.add_argument("--paths", default="reference,default",
                     help="optimizer paths, comma-separated: an initial Hessian (geometric, lindh, "
-                         "lindh-primitive) with '+norestart' for fresh SCF guesses; reference = "
-                         "geometric+norestart, the optimizer before the speed work")
+                         "lindh-primitive) with '+norestart' for fresh SCF guesses and '@preset' "
+                         "for the convergence preset (default tight); reference = "
+                         "geometric+norestart@tight, the optimizer before the speed work; "
+                         "default = the search's defaults")
     ap.add_argument("--only", default=None, help="molecules whose name contains this (comma-separated)")
     ap.add_argument("--seed", type=int, default=1)
     ap.add_argument("--search", action="store_true", help="also run whole searches per path")
