@@ -38,6 +38,13 @@ __all__ = ["SUPPORTED_VERSIONS", "GeometricVersionWarning", "geometric_version",
 #: geomeTRIC versions the accelerated classes were checked with: low <= version < high
 #: (checked: 1.1.1, the version pinned in pyproject.toml's range; 1.0.x has other internals)
 SUPPORTED_VERSIONS = ((1, 1), (1, 2))
+#: geomeTRIC drops the eigenvalues of G = B B^T below this from its pseudo-inverse
+_G_CUT = 1e-6
+#: G is inverted by Cholesky only when its lowest eigenvalue provably exceeds this (10x _G_CUT)
+_G_MARGIN = 1e-5
+# False: the step work of geomeTRIC's own Optimizer and an eigendecomposition for every G
+# inverse (the accelerated classes as they were before); for benchmarks and tests only
+_FAST_STEPS = True
 #: initial Hessians: "geometric" = geomeTRIC's own diagonal guess on its primitives
 #: (Schlegel-type rules); "lindh" = Lindh's model Hessian over all atoms (Cartesian,
 #: projected on the delocalized coordinates); "lindh-primitive" = Lindh's force constants
@@ -143,14 +150,20 @@ def _accelerated_classes():
     from geometric.internal import (Angle, DelocalizedInternalCoordinates, Dihedral, Distance,
                                     OutOfPlane, PrimitiveInternalCoordinates)
     from geometric.molecule import Elements
-    from geometric.nifty import ang2bohr
+    from geometric.nifty import ang2bohr, logger
+    from geometric.optimize import Optimizer
+    from geometric.step import Froot
 
     from .model_hessian import lindh_hessian, lindh_weights
 
     needed = {PrimitiveInternalCoordinates: ("calculate", "calcDiff", "derivatives",
                                              "guess_hessian"),
               DelocalizedInternalCoordinates: ("GInverse", "GMatrix", "build_dlc", "trimCache",
-                                               "wilsonB", "guess_hessian")}
+                                               "wilsonB", "guess_hessian", "calcGrad",
+                                               "calcDiff"),
+              Optimizer: ("SortedEigenvalues", "get_delta_prime", "trust_step", "createFroot",
+                          "UpdateHessian", "get_cartesian_norm"),
+              Froot: ("evaluate",)}
     for cls, names in needed.items():
         for name in names:
             if not callable(getattr(cls, name, None)):
@@ -240,9 +253,12 @@ def _accelerated_classes():
             key = hash(np.asarray(xyz).reshape(-1, 3).tobytes())
             inverse = self.stored_Ginverse.get(key)
             if inverse is None:
-                values, vectors = np.linalg.eigh(self.GMatrix(xyz))
-                keep = np.abs(values) > 1e-6
-                inverse = (vectors[:, keep] / values[keep]) @ vectors[:, keep].T
+                g = self.GMatrix(xyz)
+                inverse = _cholesky_inverse(g)
+                if inverse is None:
+                    values, vectors = np.linalg.eigh(g)
+                    keep = np.abs(values) > _G_CUT
+                    inverse = (vectors[:, keep] / values[keep]) @ vectors[:, keep].T
                 self.stored_Ginverse[key] = inverse
                 self.trimCache()
             return inverse
@@ -270,7 +286,198 @@ def _accelerated_classes():
     for guess in HESSIAN_GUESSES[1:]:
         by_guess[guess] = type(f"FastDelocalized_{guess.replace('-', '_')}",
                                (FastDelocalized,), {"hessian_guess": guess})
-    return FastPrimitives, FastDelocalized, by_guess
+    class FastFroot(Froot):
+        """geomeTRIC's Froot (Cartesian step length minus the trust radius, as a function
+        of the internal step length) asking the optimizer's own step methods."""
+
+        def __init__(self, optimizer, v0):
+            super().__init__(optimizer.trust, v0, optimizer.X, optimizer.G, optimizer.H,
+                             optimizer.IC, optimizer.params)
+            self.optimizer = optimizer
+
+        def evaluate(self, trial):
+            # geomeTRIC's Froot.evaluate, with the step from the optimizer's methods
+            if trial == 0.0:
+                self.from_above = False
+                return -self.trust
+            if trial in self.stores:
+                cnorm = self.stores[trial]
+                self.from_above = False
+            else:
+                dy, _ = self.optimizer.trust_step(trial, self.v0)
+                cnorm = self.optimizer.get_cartesian_norm(dy)
+                self.from_above = self.above_flag and not self.IC.bork and cnorm < self.trust
+                self.stores[trial] = cnorm
+                self.counter += 1
+            if cnorm - self.target < 0:
+                if self.stored_val is None or cnorm > self.stored_val:
+                    self.stored_arg = trial
+                    self.stored_val = cnorm
+            return cnorm - self.target
+
+    class FastOptimizer(Optimizer):
+        """geomeTRIC's optimizer with one eigendecomposition of the Hessian per step.
+
+        geomeTRIC decomposes the same Hessian several times a step: ``update_hessian``
+        checks its lowest eigenvalue, the next step's ``SortedEigenvalues`` sorts them
+        again, and every trust-radius trial inverts H + v I by an SVD. Here one symmetric
+        eigendecomposition (cached by the Hessian's content) serves all of them: the
+        trust-radius step is Q diag(1/(lambda + v)) Q^T g, with geomeTRIC's 1e-12 cut on
+        |lambda + v|, and the BFGS update is geomeTRIC's formula. The algorithm and its
+        decisions are geomeTRIC's; only rounding differs. Constrained optimizations keep
+        geomeTRIC's trust-radius step (its augmented Hessian is not symmetric positive),
+        transition-state, IRC and verbose runs geomeTRIC's methods throughout.
+        """
+
+        def _own_steps(self):
+            p = self.params
+            return not _FAST_STEPS or p.transition or p.irc or p.verbose
+
+        def _plain_step(self):
+            return not (self._own_steps() or self.IC.haveConstraints() or self.IC.rigid)
+
+        def _eigh(self, h):
+            cached = self.__dict__.get("_confpop_eigh")
+            if cached is not None and cached[0].shape == h.shape and np.array_equal(cached[0], h):
+                return cached[1], cached[2]
+            values, vectors = np.linalg.eigh(h)
+            self._confpop_eigh = (np.array(h), values, vectors)
+            return values, vectors
+
+        def SortedEigenvalues(self, H):  # noqa: N802,N803 (geomeTRIC's names)
+            if self._own_steps():
+                return super().SortedEigenvalues(H)
+            eig = sorted(self._eigh(H)[0])
+            if len(eig) >= 6:
+                logger.info("Hessian Eigenvalues: %.5e %.5e %.5e ... %.5e %.5e %.5e\n"
+                            % (eig[0], eig[1], eig[2], eig[-3], eig[-2], eig[-1]))
+            else:
+                logger.info("Hessian Eigenvalues: " + " ".join("%.5e" % e for e in eig) + "\n")
+            return eig
+
+        def get_delta_prime(self, v0, verbose=None):
+            if not self._plain_step():
+                return super().get_delta_prime(v0, verbose)
+            return _trm_step(v0, self.G, self.H, *self._eigh(self.H))
+
+        def trust_step(self, iopt, v0, verbose=None):
+            if not self._plain_step():
+                return super().trust_step(iopt, v0, verbose)
+            return _trust_step(iopt, v0, self.get_delta_prime)
+
+        def createFroot(self, v0):  # noqa: N802 (geomeTRIC's name)
+            if not self._plain_step():
+                return super().createFroot(v0)
+            return FastFroot(self, v0)
+
+        def UpdateHessian(self):  # noqa: N802 (geomeTRIC's name)
+            # geomeTRIC's update_hessian with one step of history (its call here): BFGS,
+            # then back to the guess when an eigenvalue falls to params.epsilon
+            if self._own_steps():
+                return super().UpdateHessian()
+            ic, p = self.IC, self.params
+            h = self.H.copy()
+            dy = ic.calcDiff(self.X, self.Xprev)
+            dg = ic.calcGrad(self.X, self.gradx) - ic.calcGrad(self.Xprev, self.Gxprev)
+            if np.linalg.norm(dg) >= 1e-6 and np.linalg.norm(dy) >= 1e-6:
+                hdy = h @ dy
+                h += np.outer(dg, dg) / (dg @ dy) - np.outer(hdy, hdy) / (dy @ hdy)
+            if p.reset and np.min(self._eigh(h)[0]) <= p.epsilon:
+                logger.info("Eigenvalues below %.4e - returning guess\n" % p.epsilon)
+                h = ic.guess_hessian(self.X)
+            self.H = h
+
+    return FastPrimitives, FastDelocalized, by_guess, FastOptimizer
+
+
+def optimizer_class(accelerated: bool):
+    """geomeTRIC's ``Optimizer``, or confpop's subclass for the accelerated coordinates."""
+    if accelerated:
+        return _accelerated_classes()[3]
+    from geometric.optimize import Optimizer
+    return Optimizer
+
+
+def _trm_step(v, g, h, values, vectors):
+    """geomeTRIC's trust-radius Newton step for H + v I from H's eigendecomposition.
+
+    Returns (dy, expected energy change, d|dy|/dv) as ``geometric.step.get_delta_prime_trm``
+    without constraints: its SVD pseudo-inverse drops singular values |lambda + v| <= 1e-12.
+    """
+    shifted = values + v
+    keep = np.abs(shifted) > 1e-12
+    inverse = np.zeros_like(shifted)
+    inverse[keep] = 1.0 / shifted[keep]
+    a = inverse * (vectors.T @ g)
+    dy = -(vectors @ a)
+    d_prime = vectors @ (inverse * a)
+    norm = np.linalg.norm(dy)
+    dy_prime = (dy @ d_prime) / norm
+    expect = 0.5 * (dy @ (h @ dy)) + dy @ g
+    return dy, expect, dy_prime
+
+
+def _trust_step(target, v0, delta_prime):
+    """geomeTRIC's ``trust_step`` (Hebden's iteration for v until |dy| = target)."""
+    dy, sol, dy_prime = delta_prime(v0)
+    ndy = np.linalg.norm(dy)
+    if ndy < target:
+        return dy, sol
+    v = v0
+    niter = 0
+    ndy_last = 0
+    m_ndy, m_dy, m_sol = ndy, dy.copy(), sol
+    while True:
+        v += (1 - ndy / target) * (ndy / dy_prime)
+        dy, sol, dy_prime = delta_prime(v)
+        ndy = np.linalg.norm(dy)
+        if np.abs((ndy - target) / target) < 0.001:
+            return dy, sol
+        if niter > 10 and np.abs(ndy_last - ndy) / ndy < 0.001:
+            return dy, sol
+        niter += 1
+        ndy_last = ndy
+        if ndy < m_ndy:
+            m_ndy, m_dy, m_sol = ndy, dy.copy(), sol
+        if niter % 100 == 99:
+            # geomeTRIC breaks oscillations with its global random generator; kept, so
+            # that the steps stay geomeTRIC's
+            v += np.random.random() * niter / 100
+        if niter % 1000 == 999:
+            return m_dy, m_sol
+
+
+def _cholesky_inverse(g):
+    """G^-1 by Cholesky when every eigenvalue of G is provably above geomeTRIC's cut.
+
+    For a symmetric positive definite G, lambda_min(G) = 1 / ||G^-1||_2 >= 1 / ||G^-1||_F.
+    When that bound puts every eigenvalue above :data:`_G_MARGIN` (10x the 1e-6 below which
+    geomeTRIC drops eigenvalues from its pseudo-inverse), the pseudo-inverse is the plain
+    inverse, which LAPACK's Cholesky routines (potrf, potri) give in a fraction of an
+    eigendecomposition's time. A (nearly) singular G fails the factorization or the bound
+    (its computed inverse is huge: Cholesky is backward stable), and gives None: the caller
+    then decomposes G as geomeTRIC does.
+    """
+    if not _FAST_STEPS:
+        return None
+    potrf, potri = _lapack_cholesky()
+    factor, info = potrf(g, lower=False, clean=False)
+    if info != 0:
+        return None
+    inverse, info = potri(factor, lower=False)
+    if info != 0:
+        return None
+    inverse = np.triu(inverse) + np.triu(inverse, 1).T
+    norm = np.linalg.norm(inverse)
+    if not (np.isfinite(norm) and norm * _G_MARGIN < 1.0):
+        return None
+    return inverse
+
+
+@functools.cache
+def _lapack_cholesky():
+    from scipy.linalg.lapack import dpotrf, dpotri
+    return dpotrf, dpotri
 
 
 def _cross_rows(a, b):
