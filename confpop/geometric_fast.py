@@ -42,6 +42,8 @@ SUPPORTED_VERSIONS = ((1, 1), (1, 2))
 _G_CUT = 1e-6
 #: G is inverted by Cholesky only when its lowest eigenvalue provably exceeds this (10x _G_CUT)
 _G_MARGIN = 1e-5
+#: geometries whose primitive values are remembered (a back-transformation needs two)
+_VALUE_MEMORY = 4
 # False: the step work of geomeTRIC's own Optimizer and an eigendecomposition for every G
 # inverse (the accelerated classes as they were before); for benchmarks and tests only
 _FAST_STEPS = True
@@ -56,8 +58,9 @@ class GeometricVersionWarning(ConfpopWarning):
     """The installed geomeTRIC is not one the accelerated coordinates were checked with."""
 
 
+@functools.cache
 def geometric_version() -> str:
-    """The installed geomeTRIC's version string (from the package metadata)."""
+    """The installed geomeTRIC's version string (from the package metadata, read once)."""
     from importlib.metadata import PackageNotFoundError, version
 
     try:
@@ -203,6 +206,7 @@ def _accelerated_classes():
                              np.array(atoms[kind], dtype=int).reshape(-1, width[kind]))
                       for kind in rows}
             groups["other"] = other
+            groups["memory"] = {}  # geometry bytes -> values (see _kind_values)
             self._confpop_groups = (key, groups)
             return groups
 
@@ -370,6 +374,24 @@ def _accelerated_classes():
                 return super().createFroot(v0)
             return FastFroot(self, v0)
 
+        def get_cartesian_norm(self, dy, verbose=None):
+            # geomeTRIC asks twice for the norm of the step it takes (once choosing it, once
+            # taking it): the second answer, and the back-transformation's failure flag,
+            # come from memory
+            if self._own_steps() or (self.IC.haveConstraints() and self.params.enforce):
+                return super().get_cartesian_norm(dy, verbose)
+            here, key = self.X.tobytes(), np.asarray(dy).tobytes()
+            memory = self.__dict__.get("_confpop_norms")
+            if memory is None or memory[0] != here:
+                memory = self._confpop_norms = (here, {})
+            found = memory[1].get(key)
+            if found is not None:
+                self.IC.bork = found[1]
+                return found[0]
+            norm = super().get_cartesian_norm(dy, verbose)
+            memory[1][key] = (norm, getattr(self.IC, "bork", False))
+            return norm
+
         def UpdateHessian(self):  # noqa: N802 (geomeTRIC's name)
             # geomeTRIC's update_hessian with one step of history (its call here): BFGS,
             # then back to the guess when an eigenvalue falls to params.epsilon
@@ -467,7 +489,8 @@ def _cholesky_inverse(g):
     inverse, info = potri(factor, lower=False)
     if info != 0:
         return None
-    inverse = np.triu(inverse) + np.triu(inverse, 1).T
+    lower = np.tril_indices_from(inverse, -1)
+    inverse[lower] = inverse.T[lower]  # potri fills the upper triangle
     norm = np.linalg.norm(inverse)
     if not (np.isfinite(norm) and norm * _G_MARGIN < 1.0):
         return None
@@ -514,31 +537,51 @@ def _torsion_values(x, at):
                       np.sum(c1 * c2, axis=1))
 
 
+def _kind_values(groups, x):
+    """Distances, angles and dihedrals at x, remembered for the last few geometries.
+
+    The back-transformation evaluates each micro-iteration's geometry twice (as the new
+    point, then as the next start): the second time comes from here, bit for bit the same.
+    Only these three kinds are remembered; geomeTRIC's other primitives (rotations hold a
+    reference geometry that changes) are always evaluated afresh.
+    """
+    key = x.tobytes()
+    memory = groups["memory"]
+    found = memory.get(key)
+    if found is None:
+        found = tuple(function(x, groups[kind][1]) for kind, function in
+                      (("distance", _distance_values), ("angle", _angle_values),
+                       ("torsion", _torsion_values)))
+        memory[key] = found
+        while len(memory) > _VALUE_MEMORY:
+            del memory[next(iter(memory))]
+    return found
+
+
 def _primitive_values(prims, groups, xyz):
-    x = np.asarray(xyz).reshape(-1, 3)
+    x = np.asarray(xyz, dtype=float).reshape(-1, 3)
     out = np.empty(len(prims.Internals))
-    for kind, function in (("distance", _distance_values), ("angle", _angle_values),
-                           ("torsion", _torsion_values)):
-        rows, atoms = groups[kind]
-        out[rows] = function(x, atoms)
+    for kind, values in zip(("distance", "angle", "torsion"), _kind_values(groups, x)):
+        out[groups[kind][0]] = values
     for k in groups["other"]:
         out[k] = prims.Internals[k].value(xyz)
     return out
 
 
 def _primitive_differences(prims, groups, xyz1, xyz2):
-    x1, x2 = np.asarray(xyz1).reshape(-1, 3), np.asarray(xyz2).reshape(-1, 3)
+    x1 = np.asarray(xyz1, dtype=float).reshape(-1, 3)
+    x2 = np.asarray(xyz2, dtype=float).reshape(-1, 3)
+    d1, a1, t1 = _kind_values(groups, x1)
+    d2, a2, t2 = _kind_values(groups, x2)
     out = np.empty(len(prims.Internals))
-    for kind, function in (("distance", _distance_values), ("angle", _angle_values)):
-        rows, atoms = groups[kind]
-        out[rows] = function(x1, atoms) - function(x2, atoms)
-    rows, atoms = groups["torsion"]
-    diff = _torsion_values(x1, atoms) - _torsion_values(x2, atoms)
+    out[groups["distance"][0]] = d1 - d2
+    out[groups["angle"][0]] = a1 - a2
+    diff = t1 - t2
     # geomeTRIC's periodic rule: take +-2 pi when it makes the difference smaller
     plus = diff + 2 * np.pi
     diff = np.where(np.abs(diff) > np.abs(plus), plus, diff)
     minus = diff - 2 * np.pi
-    out[rows] = np.where(np.abs(diff) > np.abs(minus), minus, diff)
+    out[groups["torsion"][0]] = np.where(np.abs(diff) > np.abs(minus), minus, diff)
     for k in groups["other"]:
         out[k] = prims.Internals[k].calcDiff(xyz1, xyz2)
     return out
