@@ -108,7 +108,8 @@ _CONTINUATION = None
 
 
 def set_path(path: str) -> None:
-    """Select an optimizer path: an initial Hessian, "+norestart" for fresh SCF guesses.
+    """Select an optimizer path: an initial Hessian, "+norestart" for fresh SCF guesses,
+    "+oldsteps" for geomeTRIC's own step work (before the accelerated step work).
 
     "reference" is geomeTRIC's own guess Hessian with a fresh SCF guess at every step (the
     optimizer before this work); old confpop versions only have that one.
@@ -118,8 +119,16 @@ def set_path(path: str) -> None:
 
     from confpop.backends.base import Backend
 
-    guess, _, flag = path.partition("+")
-    restart = flag != "norestart"
+    guess, *flags = path.split("+")
+    restart = "norestart" not in flags
+    try:  # "+oldsteps": geomeTRIC's own step work (confpop.geometric_fast._FAST_STEPS)
+        import confpop.geometric_fast as fast
+        if hasattr(fast, "_FAST_STEPS"):
+            fast._FAST_STEPS = "oldsteps" not in flags
+        elif "oldsteps" in flags:
+            sys.exit(f"this confpop has no optimizer path {path!r}")
+    except ImportError:
+        pass
     if guess == "reference":
         guess, restart = "geometric", False
     if hasattr(copt, "DEFAULT_HESSIAN_GUESS"):
@@ -225,7 +234,8 @@ def main() -> None:
     ap.add_argument("--starts", type=int, default=30, help="starts per molecule for the paths")
     ap.add_argument("--paths", default="reference,lindh-primitive",
                     help="optimizer paths, comma-separated: an initial Hessian (geometric, lindh, "
-                         "lindh-primitive) with '+norestart' for fresh SCF guesses; reference = "
+                         "lindh-primitive) with '+norestart' for fresh SCF guesses, '+oldsteps' for "
+                         "geomeTRIC's own step work; reference = "
                          "geometric+norestart, the optimizer before the speed work")
     ap.add_argument("--only", default=None, help="molecules whose name contains this (comma-separated)")
     ap.add_argument("--seed", type=int, default=1)

@@ -163,6 +163,7 @@ def _accelerated_classes():
                                              "guess_hessian"),
               DelocalizedInternalCoordinates: ("GInverse", "GMatrix", "build_dlc", "trimCache",
                                                "wilsonB", "guess_hessian", "calcGrad",
+                                               "derivatives",
                                                "calcDiff"),
               Optimizer: ("SortedEigenvalues", "get_delta_prime", "trust_step", "createFroot",
                           "UpdateHessian", "get_cartesian_norm"),
@@ -266,6 +267,19 @@ def _accelerated_classes():
                 self.stored_Ginverse[key] = inverse
                 self.trimCache()
             return inverse
+
+        def wilsonB(self, xyz):  # noqa: N802 (geomeTRIC's name)
+            # geomeTRIC's wilsonB (cached by the coordinates' bytes) without its row-by-row
+            # flatten and copy (like geomeTRIC: a copy when computed, the stored matrix
+            # when found)
+            key = hash(np.asarray(xyz).tobytes())
+            b = self.stored_wilsonB.get(key)
+            if b is None:
+                der = self.derivatives(xyz)
+                b = self.stored_wilsonB[key] = der.reshape(der.shape[0], -1)
+                self.trimCache()
+                return b.copy()
+            return b
 
         def guess_hessian(self, coords):
             rigid = any(type(p).__name__.startswith(("Translation", "Rotation"))
