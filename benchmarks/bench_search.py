@@ -121,6 +121,8 @@ def set_path(path: str) -> None:
 
     guess, *flags = path.split("+")
     restart = "norestart" not in flags
+    if guess == "reference":  # the yardstick stays what it was before the step work too
+        flags.append("oldsteps")
     try:  # "+oldsteps": geomeTRIC's own step work (confpop.geometric_fast._FAST_STEPS)
         import confpop.geometric_fast as fast
         if hasattr(fast, "_FAST_STEPS"):
