@@ -1,21 +1,63 @@
-"""geomeTRIC, accelerated: vectorized primitive coordinates and a model initial Hessian.
+"""geomeTRIC, accelerated: vectorized primitive coordinates, cheaper steps, a model Hessian.
 
 confpop drives geomeTRIC through its internal-coordinate classes. Most of geomeTRIC's own
 time went into Python loops over its primitive coordinates (one call per distance, angle
 and dihedral, several times per step); the subclasses here evaluate distances, angles,
 dihedrals and out-of-plane angles for all primitives at once with numpy, with geomeTRIC's
-formulas and edge cases, and invert G = B B^T by a symmetric eigendecomposition instead of
-an SVD: the same steps (final positions agree to 1e-12 angstrom) in about half the time.
-They can also start the optimizer from a model Hessian (:mod:`confpop.model_hessian`)
-instead of geomeTRIC's diagonal guess (``hessian_guess``).
+formulas and edge cases: the same steps (final positions agree to 1e-12 angstrom) in about
+half the time. They can also start the optimizer from a model Hessian
+(:mod:`confpop.model_hessian`) instead of geomeTRIC's diagonal guess (``hessian_guess``).
+
+What was left of geomeTRIC's own work per step was mostly dense linear algebra done more
+often than needed, and :class:`FastOptimizer` with the coordinate classes here does each
+once (same algorithm, same decisions, only rounding differs):
+
+- the Hessian: geomeTRIC decomposes the same H in ``update_hessian`` (its lowest
+  eigenvalue), again in the next step's ``SortedEigenvalues``, and inverts H + v I by an SVD
+  for every trial v of the trust-radius search; one symmetric eigendecomposition, cached by
+  H's content, now serves them all (the step is Q diag(1/(lambda + v)) Q^T g);
+- G = B B^T: every back-transformation micro-iteration inverted it by a decomposition; it is
+  now inverted by Cholesky (LAPACK potrf/potri, about a quarter of an eigendecomposition),
+  used only when the inverse's norm proves every eigenvalue above 1e-5, ten times the 1e-6
+  below which geomeTRIC's pseudo-inverse drops them (the DLC G of the benchmark molecules:
+  lowest eigenvalue 4e-4 to 3e-3); otherwise the eigendecomposition as before;
+- primitive values at a micro-iteration's geometry (computed as the end of one iteration
+  and again as the start of the next), the Cartesian norm of the step geomeTRIC takes
+  (asked twice, choosing it and taking it), the Wilson B matrix's row-by-row copy, and
+  geomeTRIC's version (read from package metadata at every optimization).
+
+Measured with ``benchmarks/bench_geometric_step.py --starts 10`` (GFN2-xTB, xtb-python,
+one thread, the default initial Hessian and SCF restarts; paths interleaved start by start
+on a shared 2-core machine at load 9-10; geomeTRIC's own CPU = CPU per optimization minus
+CPU inside xtb-python's calls, per step; floor = gradient calls x one gradient's CPU):
+
+========================== ===== ====== =========================== ===================
+molecule (invented)        atoms steps geomeTRIC's own ms/step      CPU / floor
+                                 (med) before -> after (ratio)      before -> after
+========================== ===== ====== =========================== ===================
+methoxy-amide              22    18     7.4 -> 4.3 (0.58)           1.53 -> 1.21
+hydroxy-ester              31    18     9.7 -> 5.4 (0.56)           1.32 -> 1.09
+ether-amide                35    26     13.8 -> 6.5 (0.47)          1.42 -> 1.09
+aryl ester                 43    22     15.4 -> 7.9 (0.51)          1.18 -> 0.98
+========================== ===== ====== =========================== ===================
+
+The floor is a fresh-guess gradient; inside an optimization each SCF restarts from the last
+one and costs less, which is how a ratio can fall below 1. Same gradient calls on 39 of 40
+starts, and the same final energies to 1e-9 hartree; final positions agree to 1e-12
+angstrom on most starts, but rounding that flips one of geomeTRIC's decisions (a Brent
+iteration of the trust-radius search) sends a few starts down a path up to 7e-3 angstrom
+apart along flat modes (the previous acceleration did the same to 7e-8 angstrom on one).
+Measured against geomeTRIC "verytight" minima instead (``bench_search.py --starts 30 --paths
+lindh-primitive+oldsteps,lindh-primitive``), see the closing numbers in the benchmark's
+output: every start of the three molecules ends where it ended before.
 
 The subclasses use geomeTRIC's internals (method names, private attributes such as
 ``stored_Ginverse`` and ``Prims.Internals``, and a class swap of a live primitive set), which
 a new geomeTRIC release may rename. They are therefore used only for the geomeTRIC versions
 they were checked with (:data:`SUPPORTED_VERSIONS`); any other version gets geomeTRIC's own
-classes (the same optimizer, about twice its step time, geomeTRIC's own initial Hessian)
-and one :class:`GeometricVersionWarning` that names the version. A structural error of the
-subclasses (a missing attribute) falls back the same way.
+classes and Optimizer (the same optimizer, about three times its step time, geomeTRIC's own
+initial Hessian) and one :class:`GeometricVersionWarning` that names the version. A
+structural error of the subclasses (a missing attribute) falls back the same way.
 
 Examples
 --------
@@ -394,16 +436,17 @@ def _accelerated_classes():
             # come from memory
             if self._own_steps() or (self.IC.haveConstraints() and self.params.enforce):
                 return super().get_cartesian_norm(dy, verbose)
+            # (remembered for this geometry and this coordinate system only)
             here, key = self.X.tobytes(), np.asarray(dy).tobytes()
             memory = self.__dict__.get("_confpop_norms")
-            if memory is None or memory[0] != here:
-                memory = self._confpop_norms = (here, {})
-            found = memory[1].get(key)
+            if memory is None or memory[0] is not self.IC or memory[1] != here:
+                memory = self._confpop_norms = (self.IC, here, {})
+            found = memory[2].get(key)
             if found is not None:
                 self.IC.bork = found[1]
                 return found[0]
             norm = super().get_cartesian_norm(dy, verbose)
-            memory[1][key] = (norm, getattr(self.IC, "bork", False))
+            memory[2][key] = (norm, getattr(self.IC, "bork", False))
             return norm
 
         def UpdateHessian(self):  # noqa: N802 (geomeTRIC's name)
