@@ -561,9 +561,11 @@ def _lapack_cholesky():
 
 
 def _cross_rows(a, b):
-    return np.stack([a[:, 1] * b[:, 2] - a[:, 2] * b[:, 1],
-                     a[:, 2] * b[:, 0] - a[:, 0] * b[:, 2],
-                     a[:, 0] * b[:, 1] - a[:, 1] * b[:, 0]], axis=1)
+    out = np.empty(np.broadcast_shapes(a.shape, b.shape))
+    out[:, 0] = a[:, 1] * b[:, 2] - a[:, 2] * b[:, 1]
+    out[:, 1] = a[:, 2] * b[:, 0] - a[:, 0] * b[:, 2]
+    out[:, 2] = a[:, 0] * b[:, 1] - a[:, 1] * b[:, 0]
+    return out
 
 
 def _distance_values(x, at):
