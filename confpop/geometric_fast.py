@@ -390,8 +390,9 @@ def _accelerated_classes():
         trust-radius step is Q diag(1/(lambda + v)) Q^T g, with geomeTRIC's 1e-12 cut on
         |lambda + v|, and the BFGS update is geomeTRIC's formula. The algorithm and its
         decisions are geomeTRIC's; only rounding differs. Constrained optimizations keep
-        geomeTRIC's trust-radius step (its augmented Hessian is not symmetric positive),
-        transition-state, IRC and verbose runs geomeTRIC's methods throughout.
+        geomeTRIC's trust-radius step (on the Hessian augmented by the constraints' rows,
+        which H's eigenvectors do not diagonalize); transition-state, IRC and verbose runs
+        keep geomeTRIC's methods throughout.
         """
 
         def _own_steps(self):
