@@ -122,7 +122,8 @@ def path_convergence(path: str) -> str:
 
 def set_path(path: str) -> None:
     """Select an optimizer path: an initial Hessian, "+norestart" for fresh SCF guesses,
-    "@preset" for the convergence preset (see :func:`path_convergence`).
+    "+oldsteps" for geomeTRIC's own step work (before the accelerated step work), "@preset"
+    for the convergence preset (see :func:`path_convergence`).
 
     "reference" is geomeTRIC's own guess Hessian with a fresh SCF guess at every step (the
     optimizer before this work); old confpop versions only have that one. "default" is the
@@ -136,8 +137,18 @@ def set_path(path: str) -> None:
     path = path.partition("@")[0]
     if path == "default":
         path = _LIBRARY_GUESS
-    guess, _, flag = path.partition("+")
-    restart = flag != "norestart"
+    guess, *flags = path.split("+")
+    restart = "norestart" not in flags
+    if guess == "reference":  # the yardstick stays what it was before the step work too
+        flags.append("oldsteps")
+    try:  # "+oldsteps": geomeTRIC's own step work (confpop.geometric_fast._FAST_STEPS)
+        import confpop.geometric_fast as fast
+        if hasattr(fast, "_FAST_STEPS"):
+            fast._FAST_STEPS = "oldsteps" not in flags
+        elif "oldsteps" in flags:
+            sys.exit(f"this confpop has no optimizer path {path!r}")
+    except ImportError:
+        pass
     if guess == "reference":
         guess, restart = "geometric", False
     if hasattr(copt, "DEFAULT_HESSIAN_GUESS"):
@@ -243,10 +254,10 @@ def main() -> None:
     ap.add_argument("--starts", type=int, default=30, help="starts per molecule for the paths")
     ap.add_argument("--paths", default="reference,default",
                     help="optimizer paths, comma-separated: an initial Hessian (geometric, lindh, "
-                         "lindh-primitive) with '+norestart' for fresh SCF guesses and '@preset' "
-                         "for the convergence preset (default tight); reference = "
-                         "geometric+norestart@tight, the optimizer before the speed work; "
-                         "default = the search's defaults")
+                         "lindh-primitive) with '+norestart' for fresh SCF guesses, '+oldsteps' for "
+                         "geomeTRIC's own step work and '@preset' for the convergence preset "
+                         "(default tight); reference = geometric+norestart+oldsteps@tight, the "
+                         "optimizer before the speed work; default = the search's defaults")
     ap.add_argument("--only", default=None, help="molecules whose name contains this (comma-separated)")
     ap.add_argument("--seed", type=int, default=1)
     ap.add_argument("--search", action="store_true", help="also run whole searches per path")

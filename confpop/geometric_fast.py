@@ -1,21 +1,68 @@
-"""geomeTRIC, accelerated: vectorized primitive coordinates and a model initial Hessian.
+"""geomeTRIC, accelerated: vectorized primitive coordinates, cheaper steps, a model Hessian.
 
 confpop drives geomeTRIC through its internal-coordinate classes. Most of geomeTRIC's own
 time went into Python loops over its primitive coordinates (one call per distance, angle
 and dihedral, several times per step); the subclasses here evaluate distances, angles,
 dihedrals and out-of-plane angles for all primitives at once with numpy, with geomeTRIC's
-formulas and edge cases, and invert G = B B^T by a symmetric eigendecomposition instead of
-an SVD: the same steps (final positions agree to 1e-12 angstrom) in about half the time.
-They can also start the optimizer from a model Hessian (:mod:`confpop.model_hessian`)
-instead of geomeTRIC's diagonal guess (``hessian_guess``).
+formulas and edge cases: the same steps (final positions agree to 1e-12 angstrom) in about
+half the time. They can also start the optimizer from a model Hessian
+(:mod:`confpop.model_hessian`) instead of geomeTRIC's diagonal guess (``hessian_guess``).
+
+What was left of geomeTRIC's own work per step was mostly dense linear algebra done more
+often than needed, and :class:`FastOptimizer` with the coordinate classes here does each
+once (same algorithm, same decisions, only rounding differs):
+
+- the Hessian: geomeTRIC decomposes the same H in ``update_hessian`` (its lowest
+  eigenvalue), again in the next step's ``SortedEigenvalues``, and inverts H + v I by an SVD
+  for every trial v of the trust-radius search; one symmetric eigendecomposition, cached by
+  H's content, now serves them all (the step is Q diag(1/(lambda + v)) Q^T g);
+- G = B B^T: every back-transformation micro-iteration inverted it by a decomposition; it is
+  now inverted by Cholesky (LAPACK potrf/potri, about a quarter of an eigendecomposition),
+  used only when the inverse's norm proves every eigenvalue above 1e-5, ten times the 1e-6
+  below which geomeTRIC's pseudo-inverse drops them (the DLC G of the benchmark molecules:
+  lowest eigenvalue 4e-4 to 3e-3); otherwise the eigendecomposition as before;
+- primitive values at a micro-iteration's geometry (computed as the end of one iteration
+  and again as the start of the next), the Cartesian norm of the step geomeTRIC takes
+  (asked twice, choosing it and taking it), the Wilson B matrix's row-by-row copy, and
+  geomeTRIC's version (read from package metadata at every optimization).
+
+Measured with ``benchmarks/bench_geometric_step.py --starts 10`` (GFN2-xTB, xtb-python,
+one thread, the default initial Hessian and SCF restarts; the search's own starts, paths
+interleaved start by start on a shared 2-core machine at load 6-7; geomeTRIC's own CPU =
+CPU per optimization minus CPU inside xtb-python's calls; floor = gradient calls x one
+fresh-guess gradient's CPU):
+
+========================== ===== ====== ========================= ======================
+molecule (invented)        atoms steps  geomeTRIC's own CPU,      CPU / floor of the
+                                 (med.) ms per step, before ->    optimizations,
+                                        after (after / before)    before -> after
+========================== ===== ====== ========================= ======================
+methoxy-amide (3 starts)   22    18     6.6 -> 3.8 (0.58)         1.55 -> 1.24
+hydroxy-ester              31    18     10.3 -> 5.7 (0.56)        1.28 -> 1.05
+ether-amide                35    26     14.2 -> 6.7 (0.47)        1.39 -> 1.07
+aryl ester                 43    22     14.9 -> 7.4 (0.50)        1.18 -> 0.96
+========================== ===== ====== ========================= ======================
+
+The floor is a fresh-guess gradient; inside an optimization each SCF restarts from the last
+one and costs less, which is how a ratio can fall below 1. Final energies agree to 1e-9
+hartree on every start and gradient calls on 32 of 33. Final positions agree to 1e-12
+angstrom on most starts, but GFN2's SCF noise amplifies any rounding: on a few starts the
+paths part along flat modes (up to 7e-3 angstrom; the previous acceleration did the same,
+to 7e-8 angstrom, on one start), as they would for any change of rounding. With MMFF94 the
+paths agree to 1e-8 angstrom (tests). Against geomeTRIC "verytight" minima
+(``bench_search.py --starts 30 --paths lindh-primitive+oldsteps,lindh-primitive``, 30
+starts of each of the three larger molecules): median (p90) gradient calls unchanged (20
+(28), 24 (38), 30 (50)), the same worst energy above the reference on both paths (0.000,
+0.215, 0.000 kcal/mol; the 0.215 is the neighbouring minimum described in
+:mod:`confpop.optimize`), CPU / floor 1.25 -> 1.06, 1.43 -> 1.10, 1.15 -> 0.97.
 
 The subclasses use geomeTRIC's internals (method names, private attributes such as
 ``stored_Ginverse`` and ``Prims.Internals``, and a class swap of a live primitive set), which
 a new geomeTRIC release may rename. They are therefore used only for the geomeTRIC versions
 they were checked with (:data:`SUPPORTED_VERSIONS`); any other version gets geomeTRIC's own
-classes (the same optimizer, about twice its step time, geomeTRIC's own initial Hessian)
-and one :class:`GeometricVersionWarning` that names the version. A structural error of the
-subclasses (a missing attribute) falls back the same way.
+classes and Optimizer (the same optimizer, about three times its step time, geomeTRIC's own
+initial Hessian) and one :class:`GeometricVersionWarning` that names the version. A
+structural error of the subclasses (a missing attribute) falls back the same way.
 
 Examples
 --------
@@ -38,6 +85,15 @@ __all__ = ["SUPPORTED_VERSIONS", "GeometricVersionWarning", "geometric_version",
 #: geomeTRIC versions the accelerated classes were checked with: low <= version < high
 #: (checked: 1.1.1, the version pinned in pyproject.toml's range; 1.0.x has other internals)
 SUPPORTED_VERSIONS = ((1, 1), (1, 2))
+#: geomeTRIC drops the eigenvalues of G = B B^T below this from its pseudo-inverse
+_G_CUT = 1e-6
+#: G is inverted by Cholesky only when its lowest eigenvalue provably exceeds this (10x _G_CUT)
+_G_MARGIN = 1e-5
+#: geometries whose primitive values are remembered (a back-transformation needs two)
+_VALUE_MEMORY = 4
+# False: the step work of geomeTRIC's own Optimizer and an eigendecomposition for every G
+# inverse (the accelerated classes as they were before); for benchmarks and tests only
+_FAST_STEPS = True
 #: initial Hessians: "geometric" = geomeTRIC's own diagonal guess on its primitives
 #: (Schlegel-type rules); "lindh" = Lindh's model Hessian over all atoms (Cartesian,
 #: projected on the delocalized coordinates); "lindh-primitive" = Lindh's force constants
@@ -49,8 +105,9 @@ class GeometricVersionWarning(ConfpopWarning):
     """The installed geomeTRIC is not one the accelerated coordinates were checked with."""
 
 
+@functools.cache
 def geometric_version() -> str:
-    """The installed geomeTRIC's version string (from the package metadata)."""
+    """The installed geomeTRIC's version string (from the package metadata, read once)."""
     from importlib.metadata import PackageNotFoundError, version
 
     try:
@@ -143,14 +200,21 @@ def _accelerated_classes():
     from geometric.internal import (Angle, DelocalizedInternalCoordinates, Dihedral, Distance,
                                     OutOfPlane, PrimitiveInternalCoordinates)
     from geometric.molecule import Elements
-    from geometric.nifty import ang2bohr
+    from geometric.nifty import ang2bohr, logger
+    from geometric.optimize import Optimizer
+    from geometric.step import Froot
 
     from .model_hessian import lindh_hessian, lindh_weights
 
     needed = {PrimitiveInternalCoordinates: ("calculate", "calcDiff", "derivatives",
                                              "guess_hessian"),
               DelocalizedInternalCoordinates: ("GInverse", "GMatrix", "build_dlc", "trimCache",
-                                               "wilsonB", "guess_hessian")}
+                                               "wilsonB", "guess_hessian", "calcGrad",
+                                               "derivatives",
+                                               "calcDiff"),
+              Optimizer: ("SortedEigenvalues", "get_delta_prime", "trust_step", "createFroot",
+                          "UpdateHessian", "get_cartesian_norm"),
+              Froot: ("evaluate",)}
     for cls, names in needed.items():
         for name in names:
             if not callable(getattr(cls, name, None)):
@@ -190,6 +254,7 @@ def _accelerated_classes():
                              np.array(atoms[kind], dtype=int).reshape(-1, width[kind]))
                       for kind in rows}
             groups["other"] = other
+            groups["memory"] = {}  # geometry bytes -> values (see _kind_values)
             self._confpop_groups = (key, groups)
             return groups
 
@@ -240,12 +305,28 @@ def _accelerated_classes():
             key = hash(np.asarray(xyz).reshape(-1, 3).tobytes())
             inverse = self.stored_Ginverse.get(key)
             if inverse is None:
-                values, vectors = np.linalg.eigh(self.GMatrix(xyz))
-                keep = np.abs(values) > 1e-6
-                inverse = (vectors[:, keep] / values[keep]) @ vectors[:, keep].T
+                g = self.GMatrix(xyz)
+                inverse = _cholesky_inverse(g)
+                if inverse is None:
+                    values, vectors = np.linalg.eigh(g)
+                    keep = np.abs(values) > _G_CUT
+                    inverse = (vectors[:, keep] / values[keep]) @ vectors[:, keep].T
                 self.stored_Ginverse[key] = inverse
                 self.trimCache()
             return inverse
+
+        def wilsonB(self, xyz):  # noqa: N802 (geomeTRIC's name)
+            # geomeTRIC's wilsonB (cached by the coordinates' bytes) without its row-by-row
+            # flatten and copy (like geomeTRIC: a copy when computed, the stored matrix
+            # when found)
+            key = hash(np.asarray(xyz).tobytes())
+            b = self.stored_wilsonB.get(key)
+            if b is None:
+                der = self.derivatives(xyz)
+                b = self.stored_wilsonB[key] = der.reshape(der.shape[0], -1)
+                self.trimCache()
+                return b.copy()
+            return b
 
         def guess_hessian(self, coords):
             rigid = any(type(p).__name__.startswith(("Translation", "Rotation"))
@@ -270,13 +351,227 @@ def _accelerated_classes():
     for guess in HESSIAN_GUESSES[1:]:
         by_guess[guess] = type(f"FastDelocalized_{guess.replace('-', '_')}",
                                (FastDelocalized,), {"hessian_guess": guess})
-    return FastPrimitives, FastDelocalized, by_guess
+    class FastFroot(Froot):
+        """geomeTRIC's Froot (Cartesian step length minus the trust radius, as a function
+        of the internal step length) asking the optimizer's own step methods."""
+
+        def __init__(self, optimizer, v0):
+            super().__init__(optimizer.trust, v0, optimizer.X, optimizer.G, optimizer.H,
+                             optimizer.IC, optimizer.params)
+            self.optimizer = optimizer
+
+        def evaluate(self, trial):
+            # geomeTRIC's Froot.evaluate, with the step from the optimizer's methods
+            if trial == 0.0:
+                self.from_above = False
+                return -self.trust
+            if trial in self.stores:
+                cnorm = self.stores[trial]
+                self.from_above = False
+            else:
+                dy, _ = self.optimizer.trust_step(trial, self.v0)
+                cnorm = self.optimizer.get_cartesian_norm(dy)
+                self.from_above = self.above_flag and not self.IC.bork and cnorm < self.trust
+                self.stores[trial] = cnorm
+                self.counter += 1
+            if cnorm - self.target < 0:
+                if self.stored_val is None or cnorm > self.stored_val:
+                    self.stored_arg = trial
+                    self.stored_val = cnorm
+            return cnorm - self.target
+
+    class FastOptimizer(Optimizer):
+        """geomeTRIC's optimizer with one eigendecomposition of the Hessian per step.
+
+        geomeTRIC decomposes the same Hessian several times a step: ``update_hessian``
+        checks its lowest eigenvalue, the next step's ``SortedEigenvalues`` sorts them
+        again, and every trust-radius trial inverts H + v I by an SVD. Here one symmetric
+        eigendecomposition (cached by the Hessian's content) serves all of them: the
+        trust-radius step is Q diag(1/(lambda + v)) Q^T g, with geomeTRIC's 1e-12 cut on
+        |lambda + v|, and the BFGS update is geomeTRIC's formula. The algorithm and its
+        decisions are geomeTRIC's; only rounding differs. Constrained optimizations keep
+        geomeTRIC's trust-radius step (on the Hessian augmented by the constraints' rows,
+        which H's eigenvectors do not diagonalize); transition-state, IRC and verbose runs
+        keep geomeTRIC's methods throughout.
+        """
+
+        def _own_steps(self):
+            p = self.params
+            return not _FAST_STEPS or p.transition or p.irc or p.verbose
+
+        def _plain_step(self):
+            return not (self._own_steps() or self.IC.haveConstraints() or self.IC.rigid)
+
+        def _eigh(self, h):
+            cached = self.__dict__.get("_confpop_eigh")
+            if cached is not None and cached[0].shape == h.shape and np.array_equal(cached[0], h):
+                return cached[1], cached[2]
+            values, vectors = np.linalg.eigh(h)
+            self._confpop_eigh = (np.array(h), values, vectors)
+            return values, vectors
+
+        def SortedEigenvalues(self, H):  # noqa: N802,N803 (geomeTRIC's names)
+            if self._own_steps():
+                return super().SortedEigenvalues(H)
+            eig = sorted(self._eigh(H)[0])
+            if len(eig) >= 6:
+                logger.info("Hessian Eigenvalues: %.5e %.5e %.5e ... %.5e %.5e %.5e\n"
+                            % (eig[0], eig[1], eig[2], eig[-3], eig[-2], eig[-1]))
+            else:
+                logger.info("Hessian Eigenvalues: " + " ".join("%.5e" % e for e in eig) + "\n")
+            return eig
+
+        def get_delta_prime(self, v0, verbose=None):
+            if not self._plain_step():
+                return super().get_delta_prime(v0, verbose)
+            return _trm_step(v0, self.G, self.H, *self._eigh(self.H))
+
+        def trust_step(self, iopt, v0, verbose=None):
+            if not self._plain_step():
+                return super().trust_step(iopt, v0, verbose)
+            return _trust_step(iopt, v0, self.get_delta_prime)
+
+        def createFroot(self, v0):  # noqa: N802 (geomeTRIC's name)
+            if not self._plain_step():
+                return super().createFroot(v0)
+            return FastFroot(self, v0)
+
+        def get_cartesian_norm(self, dy, verbose=None):
+            # geomeTRIC asks twice for the norm of the step it takes (once choosing it, once
+            # taking it): the second answer, and the back-transformation's failure flag,
+            # come from memory
+            if self._own_steps() or (self.IC.haveConstraints() and self.params.enforce):
+                return super().get_cartesian_norm(dy, verbose)
+            # (remembered for this geometry and this coordinate system only)
+            here, key = self.X.tobytes(), np.asarray(dy).tobytes()
+            memory = self.__dict__.get("_confpop_norms")
+            if memory is None or memory[0] is not self.IC or memory[1] != here:
+                memory = self._confpop_norms = (self.IC, here, {})
+            found = memory[2].get(key)
+            if found is not None:
+                self.IC.bork = found[1]
+                return found[0]
+            norm = super().get_cartesian_norm(dy, verbose)
+            memory[2][key] = (norm, getattr(self.IC, "bork", False))
+            return norm
+
+        def UpdateHessian(self):  # noqa: N802 (geomeTRIC's name)
+            # geomeTRIC's update_hessian with one step of history (its call here): BFGS,
+            # then back to the guess when an eigenvalue falls to params.epsilon
+            if self._own_steps():
+                return super().UpdateHessian()
+            ic, p = self.IC, self.params
+            h = self.H.copy()
+            dy = ic.calcDiff(self.X, self.Xprev)
+            dg = ic.calcGrad(self.X, self.gradx) - ic.calcGrad(self.Xprev, self.Gxprev)
+            if np.linalg.norm(dg) >= 1e-6 and np.linalg.norm(dy) >= 1e-6:
+                hdy = h @ dy
+                h += np.outer(dg, dg) / (dg @ dy) - np.outer(hdy, hdy) / (dy @ hdy)
+            if p.reset and np.min(self._eigh(h)[0]) <= p.epsilon:
+                logger.info("Eigenvalues below %.4e - returning guess\n" % p.epsilon)
+                h = ic.guess_hessian(self.X)
+            self.H = h
+
+    return FastPrimitives, FastDelocalized, by_guess, FastOptimizer
+
+
+def optimizer_class(accelerated: bool):
+    """geomeTRIC's ``Optimizer``, or confpop's subclass for the accelerated coordinates."""
+    if accelerated:
+        return _accelerated_classes()[3]
+    from geometric.optimize import Optimizer
+    return Optimizer
+
+
+def _trm_step(v, g, h, values, vectors):
+    """geomeTRIC's trust-radius Newton step for H + v I from H's eigendecomposition.
+
+    Returns (dy, expected energy change, d|dy|/dv) as ``geometric.step.get_delta_prime_trm``
+    without constraints: its SVD pseudo-inverse drops singular values |lambda + v| <= 1e-12.
+    """
+    shifted = values + v
+    keep = np.abs(shifted) > 1e-12
+    inverse = np.zeros_like(shifted)
+    inverse[keep] = 1.0 / shifted[keep]
+    a = inverse * (vectors.T @ g)
+    dy = -(vectors @ a)
+    d_prime = vectors @ (inverse * a)
+    norm = np.linalg.norm(dy)
+    dy_prime = (dy @ d_prime) / norm
+    expect = 0.5 * (dy @ (h @ dy)) + dy @ g
+    return dy, expect, dy_prime
+
+
+def _trust_step(target, v0, delta_prime):
+    """geomeTRIC's ``trust_step`` (Hebden's iteration for v until |dy| = target)."""
+    dy, sol, dy_prime = delta_prime(v0)
+    ndy = np.linalg.norm(dy)
+    if ndy < target:
+        return dy, sol
+    v = v0
+    niter = 0
+    ndy_last = 0
+    m_ndy, m_dy, m_sol = ndy, dy.copy(), sol
+    while True:
+        v += (1 - ndy / target) * (ndy / dy_prime)
+        dy, sol, dy_prime = delta_prime(v)
+        ndy = np.linalg.norm(dy)
+        if np.abs((ndy - target) / target) < 0.001:
+            return dy, sol
+        if niter > 10 and np.abs(ndy_last - ndy) / ndy < 0.001:
+            return dy, sol
+        niter += 1
+        ndy_last = ndy
+        if ndy < m_ndy:
+            m_ndy, m_dy, m_sol = ndy, dy.copy(), sol
+        if niter % 100 == 99:
+            # geomeTRIC breaks oscillations with its global random generator; kept, so
+            # that the steps stay geomeTRIC's
+            v += np.random.random() * niter / 100
+        if niter % 1000 == 999:
+            return m_dy, m_sol
+
+
+def _cholesky_inverse(g):
+    """G^-1 by Cholesky when every eigenvalue of G is provably above geomeTRIC's cut.
+
+    For a symmetric positive definite G, lambda_min(G) = 1 / ||G^-1||_2 >= 1 / ||G^-1||_F.
+    When that bound puts every eigenvalue above :data:`_G_MARGIN` (10x the 1e-6 below which
+    geomeTRIC drops eigenvalues from its pseudo-inverse), the pseudo-inverse is the plain
+    inverse, which LAPACK's Cholesky routines (potrf, potri) give in a fraction of an
+    eigendecomposition's time. A (nearly) singular G fails the factorization or the bound
+    (its computed inverse is huge: Cholesky is backward stable), and gives None: the caller
+    then decomposes G as geomeTRIC does.
+    """
+    if not _FAST_STEPS:
+        return None
+    potrf, potri = _lapack_cholesky()
+    factor, info = potrf(g, lower=False, clean=False)
+    if info != 0:
+        return None
+    inverse, info = potri(factor, lower=False)
+    if info != 0:
+        return None
+    lower = np.tril_indices_from(inverse, -1)
+    inverse[lower] = inverse.T[lower]  # potri fills the upper triangle
+    norm = np.linalg.norm(inverse)
+    if not (np.isfinite(norm) and norm * _G_MARGIN < 1.0):
+        return None
+    return inverse
+
+
+@functools.cache
+def _lapack_cholesky():
+    from scipy.linalg.lapack import dpotrf, dpotri
+    return dpotrf, dpotri
 
 
 def _cross_rows(a, b):
-    return np.stack([a[:, 1] * b[:, 2] - a[:, 2] * b[:, 1],
-                     a[:, 2] * b[:, 0] - a[:, 0] * b[:, 2],
-                     a[:, 0] * b[:, 1] - a[:, 1] * b[:, 0]], axis=1)
+    out = np.empty(np.broadcast_shapes(a.shape, b.shape))
+    out[:, 0] = a[:, 1] * b[:, 2] - a[:, 2] * b[:, 1]
+    out[:, 1] = a[:, 2] * b[:, 0] - a[:, 0] * b[:, 2]
+    out[:, 2] = a[:, 0] * b[:, 1] - a[:, 1] * b[:, 0]
+    return out
 
 
 def _distance_values(x, at):
@@ -307,31 +602,51 @@ def _torsion_values(x, at):
                       np.sum(c1 * c2, axis=1))
 
 
+def _kind_values(groups, x):
+    """Distances, angles and dihedrals at x, remembered for the last few geometries.
+
+    The back-transformation evaluates each micro-iteration's geometry twice (as the new
+    point, then as the next start): the second time comes from here, bit for bit the same.
+    Only these three kinds are remembered; geomeTRIC's other primitives (rotations hold a
+    reference geometry that changes) are always evaluated afresh.
+    """
+    key = x.tobytes()
+    memory = groups["memory"]
+    found = memory.get(key)
+    if found is None:
+        found = tuple(function(x, groups[kind][1]) for kind, function in
+                      (("distance", _distance_values), ("angle", _angle_values),
+                       ("torsion", _torsion_values)))
+        memory[key] = found
+        while len(memory) > _VALUE_MEMORY:
+            del memory[next(iter(memory))]
+    return found
+
+
 def _primitive_values(prims, groups, xyz):
-    x = np.asarray(xyz).reshape(-1, 3)
+    x = np.asarray(xyz, dtype=float).reshape(-1, 3)
     out = np.empty(len(prims.Internals))
-    for kind, function in (("distance", _distance_values), ("angle", _angle_values),
-                           ("torsion", _torsion_values)):
-        rows, atoms = groups[kind]
-        out[rows] = function(x, atoms)
+    for kind, values in zip(("distance", "angle", "torsion"), _kind_values(groups, x)):
+        out[groups[kind][0]] = values
     for k in groups["other"]:
         out[k] = prims.Internals[k].value(xyz)
     return out
 
 
 def _primitive_differences(prims, groups, xyz1, xyz2):
-    x1, x2 = np.asarray(xyz1).reshape(-1, 3), np.asarray(xyz2).reshape(-1, 3)
+    x1 = np.asarray(xyz1, dtype=float).reshape(-1, 3)
+    x2 = np.asarray(xyz2, dtype=float).reshape(-1, 3)
+    d1, a1, t1 = _kind_values(groups, x1)
+    d2, a2, t2 = _kind_values(groups, x2)
     out = np.empty(len(prims.Internals))
-    for kind, function in (("distance", _distance_values), ("angle", _angle_values)):
-        rows, atoms = groups[kind]
-        out[rows] = function(x1, atoms) - function(x2, atoms)
-    rows, atoms = groups["torsion"]
-    diff = _torsion_values(x1, atoms) - _torsion_values(x2, atoms)
+    out[groups["distance"][0]] = d1 - d2
+    out[groups["angle"][0]] = a1 - a2
+    diff = t1 - t2
     # geomeTRIC's periodic rule: take +-2 pi when it makes the difference smaller
     plus = diff + 2 * np.pi
     diff = np.where(np.abs(diff) > np.abs(plus), plus, diff)
     minus = diff - 2 * np.pi
-    out[rows] = np.where(np.abs(diff) > np.abs(minus), minus, diff)
+    out[groups["torsion"][0]] = np.where(np.abs(diff) > np.abs(minus), minus, diff)
     for k in groups["other"]:
         out[k] = prims.Internals[k].calcDiff(xyz1, xyz2)
     return out

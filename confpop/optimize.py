@@ -455,7 +455,7 @@ def _geometric_classes():
     """
     from .geometric_fast import _accelerated_classes
 
-    fast_primitives, fast_delocalized, _ = _accelerated_classes()
+    fast_primitives, fast_delocalized = _accelerated_classes()[:2]
     return _engine_class(), fast_primitives, fast_delocalized
 
 
@@ -487,11 +487,11 @@ def _run_geometric(backend, pos, crit, preset, max_steps, dihedrals, frozen, coo
                    hessian_guess):
     from geometric.errors import GeomOptNotConvergedError
     from geometric.molecule import Molecule
-    from geometric.optimize import Optimizer, OptParams
+    from geometric.optimize import OptParams
     from geometric.prepare import parse_constraints
     from rdkit import Chem
 
-    from .geometric_fast import coordinate_classes, structural_fallback
+    from .geometric_fast import coordinate_classes, optimizer_class, structural_fallback
 
     table = Chem.GetPeriodicTable()
     with _geometric_silenced(), tempfile.TemporaryDirectory(prefix="confpop-opt-") as scratch:
@@ -535,6 +535,7 @@ def _run_geometric(backend, pos, crit, preset, max_steps, dihedrals, frozen, coo
             # a geomeTRIC internal the accelerated classes use was renamed: say so once and
             # go on with geomeTRIC's own classes
             structural_fallback(exc)
+            accelerated = False
             from geometric.internal import DelocalizedInternalCoordinates
             ic = DelocalizedInternalCoordinates(molecule, **ic_options)
         params = OptParams(maxiter=max_steps, convergence_energy=crit["energy"],
@@ -546,7 +547,10 @@ def _run_geometric(backend, pos, crit, preset, max_steps, dihedrals, frozen, coo
                            convergence_cmax=1e-3 if constraints else 1e-2)
         engine = engine_class(molecule, backend)
         coords = pos.ravel() * ANGSTROM_BOHR
-        optimizer = Optimizer(coords, molecule, ic, engine, scratch, params, print_info=False)
+        # geomeTRIC's Optimizer, or with the accelerated coordinates confpop's subclass
+        # (one Hessian eigendecomposition per step: geometric_fast.FastOptimizer)
+        optimizer = optimizer_class(accelerated)(coords, molecule, ic, engine, scratch, params,
+                                                 print_info=False)
         converged, message = True, f"converged ({preset} criteria)"
         try:
             optimizer.optimizeGeometry()
