@@ -244,11 +244,16 @@ def _write_json(path, data):
     tmp.replace(path)
 
 
-def _one_search(smiles, path, seed):
-    """One default search (workers=1) on optimizer ``path``: its process CPU and result."""
+def _one_search(smiles, path, seed, meter=None):
+    """One default search (workers=1) on optimizer ``path``: its process CPU and result.
+
+    With a :class:`Meter`, the CPU inside engine calls (GFN2 gradients and single points)
+    and their counts are recorded too, and each stage's wall seconds from the provenance."""
     from bench_sampling import _ensemble_arrays
 
     set_path(path)
+    if meter is not None:
+        meter.reset()
     load0 = os.getloadavg()[0]
     t0, w0 = time.process_time(), time.perf_counter()
     ens = cp.search(smiles, "gfn2", seed=seed, workers=1)
@@ -256,7 +261,14 @@ def _one_search(smiles, path, seed):
     set_path("reference")
     pos, e, deg = _ensemble_arrays(ens)
     summary = next(s for s in ens.provenance if s["step"] == "summary")
-    return {"path": path, "seed": seed, "cpu": cpu, "wall": wall,
+    sample = next(s for s in ens.provenance if s["step"] == "sample")
+    extra = {"stage_wall": {s["step"]: s["seconds"] for s in ens.provenance if "seconds" in s},
+             "trials": sample.get("trials"), "ff_conformers": sample.get("unique")}
+    if meter is not None:
+        extra.update(gradients=len(meter.gradient_times), single_points=len(meter.energy_times),
+                     engine_cpu=sum(meter.gradient_times) + sum(meter.energy_times),
+                     optimizations=len(meter.optimizations))
+    return {"path": path, "seed": seed, "cpu": cpu, "wall": wall, **extra,
             "load": [round(load0, 2), round(os.getloadavg()[0], 2)],
             "when": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
             "stream_overlap": summary.get("stream_overlap"), "stop": summary.get("sampling_stop"),
@@ -301,6 +313,7 @@ def converged(names, paths, seeds, brute_source, run_id, log=print):
 
     import bench_sampling as bs
 
+    meter = Meter()
     run_dir = bs.CACHE / f"run-{run_id}"
     run_dir.mkdir(parents=True, exist_ok=True)
     started = time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime())
@@ -337,7 +350,7 @@ def converged(names, paths, seeds, brute_source, run_id, log=print):
                 f = run_dir / f"{name}.{p}.seed{seed}.json"
                 res = _read_json(f)
                 if res is None or res.get("smiles") != smiles:
-                    res = {"smiles": smiles, "pid": os.getpid(), **_one_search(smiles, p, seed)}
+                    res = {"smiles": smiles, "pid": os.getpid(), **_one_search(smiles, p, seed, meter)}
                     _write_json(f, res)
                 label = ("this process" if res.get("pid") == os.getpid()
                          else f"an earlier process of this run ({res['when']})")
@@ -346,6 +359,12 @@ def converged(names, paths, seeds, brute_source, run_id, log=print):
                 res["overlap_brute"] = bs._overlap(mol, arrays, ref)
                 res["d_lowest"] = float(convert(arrays[1].min() - ref[1].min(), "hartree", "kcal/mol"))
                 searches[p, seed] = (res, arrays)
+                if "engine_cpu" in res:
+                    log(f"  [{p}] seed {seed}: {res['trials']} trials, {res['ff_conformers']} "
+                        f"MMFF94s conformers, {res['optimizations']} optimizations, "
+                        f"{res['gradients']} gradients + {res['single_points']} single points "
+                        f"= {res['engine_cpu']:.0f} s CPU in the engine, the rest "
+                        f"{res['cpu'] - res['engine_cpu']:.0f} s; stage wall s {res['stage_wall']}")
                 log(f"  [{p}] seed {seed}: CPU {res['cpu']:.0f} s (wall {res['wall']:.0f} s, load "
                     f"{res['load'][0]:.1f}->{res['load'][1]:.1f}, {label}), {len(arrays[1])} "
                     f"conformers, overlap with brute force {res['overlap_brute']:.3f}, lowest "
