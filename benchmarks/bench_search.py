@@ -451,12 +451,14 @@ def _converged_table(rows, paths, seeds):
 def main() -> None:
     if "--converged" in sys.argv:
         ap = argparse.ArgumentParser(description=converged.__doc__.splitlines()[0])
-        ap.add_argument("--converged", action="store_true")
+        ap.add_argument("--converged", action="store_true",
+                        help="CPU to a converged ensemble against the brute force (this mode)")
         ap.add_argument("--only", default=None,
                         help="bench_sampling.py molecule names, comma-separated (default "
                              + ", ".join(CONVERGED_DEFAULT) + ")")
-        ap.add_argument("--paths", default="reference,lindh-primitive")
-        ap.add_argument("--seeds", default="0,1")
+        ap.add_argument("--paths", default="reference,lindh-primitive",
+                        help="optimizer paths, the 'before' first (see --paths of the default mode)")
+        ap.add_argument("--seeds", default="0,1", help="the two search seeds")
         ap.add_argument("--brute", choices=("run", "cache"), default="run",
                         help="build the brute force in this run (default) or read "
                              "bench_sampling.py's cache")
@@ -495,6 +497,10 @@ def main() -> None:
     ap.add_argument("--no-paths", action="store_true", help="skip the optimizer-path comparison")
     ap.add_argument("--trials", type=int, default=None, help="search: trials per round")
     ap.add_argument("--rounds", type=int, default=None, help="search: largest number of rounds")
+    ap.add_argument("--converged", action="store_true",
+                    help="CPU to a converged ensemble (two seeds) against bench_sampling.py's "
+                         "brute force, per optimizer path; 'bench_search.py --converged --help' "
+                         "lists its options")
     ap.add_argument("--versus-all", action="store_true",
                     help="run the earlier comparison with optimizing every trial structure "
                          "(benchmarks/bench_search_all.py) with the other options")
