@@ -332,6 +332,7 @@ def converged(names, paths, seeds, brute_source, run_id, log=print):
             brute = bs.brute_force(name, smiles, log=log, cache=run_dir)
             brute_label = ("an earlier process of this run" if earlier else "this process"
                            + (" (resumed: CPU summed over processes)" if resumed else ""))
+            brute_label += ", " + bs.load_summary(brute)
         else:
             cached = bs.CACHE / f"{name}.brute.json"
             if not cached.exists():
@@ -354,7 +355,7 @@ def converged(names, paths, seeds, brute_source, run_id, log=print):
                     res = {"smiles": smiles, "pid": os.getpid(), **_one_search(smiles, p, seed, meter)}
                     _write_json(f, res)
                 label = ("this process" if res.get("pid") == os.getpid()
-                         else f"an earlier process of this run ({res['when']})")
+                         else f"process {res.get('pid')} of this run")
                 res["label"] = label
                 arrays = (res["positions"], np.array(res["energies"]), np.array(res["degeneracy"]))
                 res["overlap_brute"] = bs._overlap(mol, arrays, ref)
@@ -367,7 +368,7 @@ def converged(names, paths, seeds, brute_source, run_id, log=print):
                         f"= {res['engine_cpu']:.0f} s CPU in the engine, the rest "
                         f"{res['cpu'] - res['engine_cpu']:.0f} s; stage wall s {res['stage_wall']}")
                 log(f"  [{p}] seed {seed}: CPU {res['cpu']:.0f} s (wall {res['wall']:.0f} s, load "
-                    f"{res['load'][0]:.1f}->{res['load'][1]:.1f}, {label}), {len(arrays[1])} "
+                    f"{res['load'][0]:.1f}->{res['load'][1]:.1f}, {label}, ended {res['when']}), {len(arrays[1])} "
                     f"conformers, overlap with brute force {res['overlap_brute']:.3f}, lowest "
                     f"{res['d_lowest']:+.2f} kcal/mol, streams {res['stream_overlap']} ({res['stop']})")
         # where the searches find minima the brute force lacks, it is an incomplete yardstick:
