@@ -444,9 +444,10 @@ def _converged_table(rows, paths, seeds):
           f"the molecule; after/before = pair CPU over the first path's")
     for r in rows:
         if r["path"] == paths[0]:
+            labels = sorted({x for q in rows if q["molecule"] == r["molecule"] for x in q["labels"]})
             print(f"  {r['molecule']}: brute force from {r['brute_label']}; its overlap with "
                   f"the union {r['brute_union']:.3f}"
-                  + ("" if r["labels"] == ["this process"] else "; searches: " + ", ".join(r["labels"])))
+                  + ("" if labels == ["this process"] else "; searches: " + ", ".join(labels)))
 
 
 def main() -> None:
