@@ -112,6 +112,8 @@ def one_gradient(mol, positions, repeats=15) -> float:
 
 
 _CONTINUATION = None
+#: the library's own optimizer path (its initial Hessian, SCF restarts on), before set_path
+LIBRARY_PATH = getattr(copt, "DEFAULT_HESSIAN_GUESS", "geometric")
 
 
 def set_path(path: str) -> None:
@@ -324,8 +326,8 @@ def converged(names, paths, seeds, brute_source, run_id, log=print):
     for name in names:
         smiles = bs.MOLECULES[name]
         mol = load_molecule(smiles)
-        # the brute force on today's default optimizer path
-        set_path("lindh-primitive")
+        # the brute force on the library's default optimizer path
+        set_path(LIBRARY_PATH)
         if brute_source == "run":
             earlier = (run_dir / f"{name}.brute.json").exists()
             resumed = not earlier and (run_dir / f"{name}.partial.json").exists()
