@@ -33,8 +33,10 @@ and >= 0.9 between seeds, at most 1/3 of the brute force's CPU time.
 
 ``--sampler etkdg`` runs the searches as before the move sampler and the two-stream
 convergence (ETKDG rounds and the Good–Turing stop only): the "before" column.
-A brute-force reference costs 5-20 CPU minutes per molecule here (GFN2 optimizations of
-0.4-0.8 s each), a pair of searches a few minutes.
+A brute-force reference cost 17-270 s CPU for the 4- and 5-rotor molecules (34-647
+optimizations of 0.31-0.43 s each on the default optimizer path; ``bench_search.py
+--converged``, which also times the searches against it), a pair of default searches
+1.75-2.5 times that.
 """
 
 from __future__ import annotations
