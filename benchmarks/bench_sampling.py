@@ -1,6 +1,6 @@
 """Does sampling find the ensemble? ``confpop.search`` against a brute-force ensemble.
 
-For invented molecules (made up for this benchmark, not taken from any data set; 5-8
+For invented molecules (made up for this benchmark, not taken from any data set; 4-8
 rotatable bonds, one with a saturated ring, one ester, one amide) the benchmark builds its
 own brute-force reference:
 
@@ -33,8 +33,10 @@ and >= 0.9 between seeds, at most 1/3 of the brute force's CPU time.
 
 ``--sampler etkdg`` runs the searches as before the move sampler and the two-stream
 convergence (ETKDG rounds and the Good–Turing stop only): the "before" column.
-A brute-force reference costs 5-20 CPU minutes per molecule here (GFN2 optimizations of
-0.4-0.8 s each), a pair of searches a few minutes.
+A brute-force reference cost 17-270 s CPU for the 4- and 5-rotor molecules (34-647
+optimizations of 0.31-0.43 s each on the default optimizer path; ``bench_search.py
+--converged``, which also times the searches against it), a pair of default searches
+1.75-2.5 times that.
 """
 
 from __future__ import annotations
@@ -59,7 +61,8 @@ from confpop.sampling import embed  # noqa: E402
 from confpop.units import convert  # noqa: E402
 
 CACHE = Path(__file__).resolve().parent / "cache"
-#: invented molecules: name -> SMILES (5 rotatable bonds each by RDKit's strict count)
+#: invented molecules: name -> SMILES (rotatable bonds by RDKit's strict count: 5, except
+#: the glycol-ester's 4 and the hydroxy-ester's 7)
 MOLECULES = {
     # an aliphatic ester with a stereocentre and an ether tail
     "ether-ester": "CCOC(=O)[C@@H](C)CCOC",
@@ -67,6 +70,9 @@ MOLECULES = {
     "oxane-ether": "COCCOC[C@@H]1CCCCO1",
     # a tertiary amide (E/Z both populated) with an ether arm
     "ether-amide": "CCOCCN(C)C(=O)CC",
+    # a small glycol-ether ester, 4 rotatable bonds (the cheapest reference; bench_search.py
+    # --converged uses it as a fourth molecule)
+    "glycol-ester": "CCC(=O)OCCOC",
     # a hydroxy-ester, 7 rotatable bonds (slowest reference: ~1,000 GFN2 minima)
     "hydroxy-ester": "CCOC(=O)C[C@H](O)CCCOC",
 }
@@ -81,15 +87,35 @@ def _base(mol):
             "multiplicity": 1, "solvent": None, "options": {}, "convergence": "tight"}
 
 
-def brute_force(name: str, smiles: str, log=print) -> dict:
-    """Build (or read) the brute-force reference of one molecule."""
-    CACHE.mkdir(exist_ok=True)
-    done = CACHE / f"{name}.brute.json"
+def _load_sample() -> list:
+    """[UTC time, 1-minute load average]: recorded with the brute force's CPU time."""
+    return [time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()), round(os.getloadavg()[0], 2)]
+
+
+def load_summary(data: dict) -> str:
+    """'built <first>..<last> UTC at load <min>-<max> (median <m>)' of a brute-force record."""
+    load = data.get("load") or []
+    if not load:
+        return "built earlier, load not recorded"
+    values = [v for _, v in load]
+    return (f"built {load[0][0]}..{load[-1][0]} at load {min(values):.1f}-{max(values):.1f} "
+            f"(median {float(np.median(values)):.1f}, {len(values)} samples)")
+
+
+def brute_force(name: str, smiles: str, log=print, cache: Path | None = None) -> dict:
+    """Build (or read) the brute-force reference of one molecule.
+
+    ``cache``: the folder of its files (default ``benchmarks/cache``); a new folder builds
+    it anew (``bench_search.py --converged`` times it in its own run that way).
+    """
+    cache = CACHE if cache is None else Path(cache)
+    cache.mkdir(parents=True, exist_ok=True)
+    done = cache / f"{name}.brute.json"
     if done.exists():
         data = json.loads(done.read_text())
         if data["smiles"] == smiles:
             return data
-    partial_path = CACHE / f"{name}.partial.json"
+    partial_path = cache / f"{name}.partial.json"
     mol = load_molecule(smiles)
     partial = json.loads(partial_path.read_text()) if partial_path.exists() else None
     if partial is not None and partial["smiles"] != smiles:
@@ -108,7 +134,8 @@ def brute_force(name: str, smiles: str, log=print) -> dict:
         partial = {"smiles": smiles, "embedded": len(starts), "ff_minima": len(rep.unique),
                    "starts": [np.round(starts[u], 6).tolist() for u in rep.unique],
                    "ff_energies": [float(ff_e[u]) for u in rep.unique],
-                   "cpu_sample": time.process_time() - c0, "cpu_opt": 0.0, "results": []}
+                   "cpu_sample": time.process_time() - c0, "cpu_opt": 0.0, "results": [],
+                   "load": [_load_sample()]}
         partial_path.write_text(json.dumps(partial))
         log(f"{name}: {len(starts)} embedded, {len(rep.unique)} distinct MMFF94s minima "
             f"({partial['cpu_sample']:.0f} s CPU)")
@@ -145,6 +172,7 @@ def brute_force(name: str, smiles: str, log=print) -> dict:
                                        "gradient_calls": int(out["gradient_calls"])})
         partial["cpu_opt"] += time.process_time() - c0
         if (i + 1) % 25 == 0 or i + 1 == n:
+            partial.setdefault("load", []).append(_load_sample())
             partial_path.write_text(json.dumps(partial))
             log(f"{name}: optimized {i + 1}/{n} ({partial['cpu_opt']:.0f} s CPU)")
     ok = [r for r in partial["results"] if r.get("ok")]
@@ -159,7 +187,10 @@ def brute_force(name: str, smiles: str, log=print) -> dict:
             "positions": [pos[u].tolist() for u in rep.unique],
             "degeneracy": [2 if achiral and rep.chiral_conformer[u] else 1 for u in rep.unique],
             "cpu_seconds": partial["cpu_sample"] + partial["cpu_opt"],
-            "cpu_sample": partial["cpu_sample"], "cpu_opt": partial["cpu_opt"]}
+            "cpu_sample": partial["cpu_sample"], "cpu_opt": partial["cpu_opt"],
+            # when it was built and the machine's load meanwhile (1-minute load average at
+            # every save; older caches have none): its CPU time was measured under that load
+            "load": partial.get("load", [])}
     done.write_text(json.dumps(data))
     rel = convert(np.array(data["energies"]) - min(data["energies"]), "hartree", "kcal/mol")
     log(f"{name}: brute force done: {len(rep.unique)} GFN2 minima ({int((rel <= 3).sum())} within "

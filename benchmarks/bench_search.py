@@ -26,6 +26,13 @@ Goals (issue "Speed"): CPU / floor <= 1.3; median calls <= 16 at 31 atoms.
     nice -n 10 python benchmarks/bench_search.py [--starts 30] [--only ester] [--paths reference,model]
                                                  [--search] [--trials 60 --rounds 1]
 
+The ``--converged`` mode (:func:`converged`) measures the CPU time to a converged ensemble
+against the brute force of ``benchmarks/bench_sampling.py``, per optimizer path:
+
+    nice -n 15 python benchmarks/bench_search.py --converged [--only ether-ester,ether-amide]
+                 [--paths reference,default] [--seeds 0,1] [--brute run|cache]
+                 [--run-id ID]
+
 The ``--versus-all`` mode keeps the earlier comparison of the multi-level search with
 optimizing every trial structure (see :func:`versus_all`).
 """
@@ -118,6 +125,8 @@ def path_convergence(path: str) -> str:
         from confpop.settings import SEARCH_DEFAULTS
         return SEARCH_DEFAULTS.convergence
     return path.partition("@")[2] or "tight"
+#: the library's own optimizer path (its initial Hessian, SCF restarts on), before set_path
+LIBRARY_PATH = _LIBRARY_GUESS
 
 
 def set_path(path: str) -> None:
@@ -244,7 +253,268 @@ def whole_search(name, smiles, paths, seed, trials, rounds, meter):
     return out
 
 
+# ------------------------------------------------------------- CPU to a converged ensemble
+#: the molecules of the --converged mode: bench_sampling.py's invented molecules with 4-5
+#: rotatable bonds, cheapest brute force first (the 7-rotor hydroxy-ester on request:
+#: --only hydroxy-ester)
+CONVERGED_DEFAULT = ("glycol-ester", "ether-amide", "ether-ester", "oxane-ether")
+CONVERGED_TARGET_OVERLAP = 0.9  # two seeds (issue "Speed")
+CONVERGED_TARGET_RATIO = 1 / 3  # of the brute force's CPU (issue "Speed")
+
+
+def _read_json(path):
+    import json
+
+    return json.loads(path.read_text()) if path.exists() else None
+
+
+def _write_json(path, data):
+    import json
+
+    tmp = path.with_name(path.name + ".tmp")
+    tmp.write_text(json.dumps(data))
+    tmp.replace(path)
+
+
+def _one_search(smiles, path, seed, meter=None):
+    """One default search (workers=1) on optimizer ``path``: its process CPU and result.
+
+    With a :class:`Meter`, the CPU inside engine calls (GFN2 gradients and single points)
+    and their counts are recorded too, and each stage's wall seconds from the provenance."""
+    from bench_sampling import _ensemble_arrays
+
+    set_path(path)
+    if meter is not None:
+        meter.reset()
+    load0 = os.getloadavg()[0]
+    t0, w0 = time.process_time(), time.perf_counter()
+    ens = cp.search(smiles, "gfn2", seed=seed, workers=1, convergence=path_convergence(path))
+    cpu, wall = time.process_time() - t0, time.perf_counter() - w0
+    set_path("reference")
+    pos, e, deg = _ensemble_arrays(ens)
+    summary = next(s for s in ens.provenance if s["step"] == "summary")
+    sample = next(s for s in ens.provenance if s["step"] == "sample")
+    extra = {"stage_wall": {s["step"]: s["seconds"] for s in ens.provenance if "seconds" in s},
+             "trials": sample.get("trials"), "ff_conformers": sample.get("unique")}
+    if meter is not None:
+        extra.update(gradients=len(meter.gradient_times), single_points=len(meter.energy_times),
+                     engine_cpu=sum(meter.gradient_times) + sum(meter.energy_times),
+                     optimizations=len(meter.optimizations))
+    return {"path": path, "seed": seed, "cpu": cpu, "wall": wall, **extra,
+            "load": [round(load0, 2), round(os.getloadavg()[0], 2)],
+            "when": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
+            "stream_overlap": summary.get("stream_overlap"), "stop": summary.get("sampling_stop"),
+            "energies": e.tolist(), "positions": [p.tolist() for p in pos],
+            "degeneracy": deg.tolist()}
+
+
+def converged(names, paths, seeds, brute_source, run_id, log=print):
+    """CPU time to a converged ensemble, per optimizer path, against the brute force.
+
+    **Measure.** "CPU to a converged ensemble" is the process CPU time (``time.process_time``
+    of this process; ``workers=1``, ``OMP_NUM_THREADS=1``, so every engine call is counted)
+    of ``confpop.search(smiles, "gfn2", seed=s, workers=1)`` with its defaults, summed over
+    the two seeds (0 and 1): two independent searches are what it takes to *show* that the
+    ensemble converged. Each search already runs two sampling streams and stops its rounds
+    when their force-field populations overlap by 0.9; the measure asks the same at the
+    final level: the two seeds' GFN2 populations at 298.15 K overlap by >= 0.9 (sum_i
+    min(p_i, q_i), conformers matched by :func:`confpop.moves.match_conformers`: RMSD < 0.2 A
+    and |dE| < 0.05 kcal/mol, mirror images merged). A pair below 0.9 is reported as not
+    converged (no more seeds are tried). The ratio to the brute force is this pair's CPU
+    over the brute force's (goal <= 1/3); one search's CPU (the mean of the two) over the
+    brute force's is printed too: what a user pays for one ensemble without the check.
+
+    **Agreement with the brute force.** Population overlap with it and lowest energy minus
+    its lowest, kcal/mol, per search (bench_sampling.py's brute force: 2,000 ETKDGv3
+    embeddings, MMFF94s, every distinct minimum optimized at GFN2 "tight" on today's default
+    optimizer path; it keeps "tight", not the search's "tight-gradient", because its
+    geometries are the yardstick: a brute force at "tight-gradient" would cost less).
+
+    **Before/after.** Each search runs once per optimizer path in ``paths`` (default
+    "reference": geomeTRIC's own guess Hessian with a fresh SCF guess at every step, its own
+    step work and "tight" convergence, the optimizer before the speed work; "default": the
+    search's defaults, Lindh guess, SCF restarts, "tight-gradient"), interleaved seed
+    by seed in this one process; the sampling is the same on both paths (it does not use
+    the optimizer), so the columns differ by the optimizer only. The numpy primitives of
+    :mod:`confpop.geometric_fast` are on in both; its step work only on the default path.
+
+    **Brute force.** ``brute_source="run"``: built in this run, before the searches of its
+    molecule, in ``benchmarks/cache/run-<run_id>/`` (an interrupted run resumes with the same
+    ``--run-id``; the rows then say which process measured what); ``"cache"``: read from bench_sampling.py's
+    cache (built by ``bench_sampling.py --brute-only``), labelled with when it was built and
+    the load meanwhile.
+    """
+
+    import bench_sampling as bs
+
+    meter = Meter()
+    run_dir = bs.CACHE / f"run-{run_id}"
+    run_dir.mkdir(parents=True, exist_ok=True)
+    started = time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime())
+    log(f"run {run_id} ({run_dir}); started {started}; load {os.getloadavg()[0]:.2f}; paths "
+        f"{', '.join(paths)}; seeds {seeds}; brute force: {brute_source}")
+    rows = []
+    for name in names:
+        smiles = bs.MOLECULES[name]
+        mol = load_molecule(smiles)
+        # the brute force on the library's default optimizer path
+        set_path(LIBRARY_PATH)
+        if brute_source == "run":
+            earlier = (run_dir / f"{name}.brute.json").exists()
+            resumed = not earlier and (run_dir / f"{name}.partial.json").exists()
+            brute = bs.brute_force(name, smiles, log=log, cache=run_dir)
+            brute_label = ("an earlier process of this run" if earlier else "this process"
+                           + (" (resumed: CPU summed over processes)" if resumed else ""))
+            brute_label += ", " + bs.load_summary(brute)
+        else:
+            cached = bs.CACHE / f"{name}.brute.json"
+            if not cached.exists():
+                sys.exit(f"--brute cache: no {cached}; build it with "
+                         f"'python benchmarks/bench_sampling.py --brute-only --only {name}'")
+            brute = bs.brute_force(name, smiles, log=log)
+            brute_label = "cache, " + bs.load_summary(brute)
+        set_path("reference")
+        ref = ([np.array(p) for p in brute["positions"]], np.array(brute["energies"]),
+               np.array(brute["degeneracy"]))
+        rel = convert(ref[1] - ref[1].min(), "hartree", "kcal/mol")
+        log(f"== {name} {smiles}: brute force {brute['cpu_seconds']:.0f} s CPU ({brute_label}), "
+            f"{len(ref[1])} GFN2 minima ({int((rel <= 3).sum())} within 3 kcal/mol)")
+        searches = {}
+        for seed in seeds:
+            for p in paths:
+                f = run_dir / f"{name}.{p}.seed{seed}.json"
+                res = _read_json(f)
+                if res is None or res.get("smiles") != smiles:
+                    res = {"smiles": smiles, "pid": os.getpid(), **_one_search(smiles, p, seed, meter)}
+                    _write_json(f, res)
+                label = ("this process" if res.get("pid") == os.getpid()
+                         else f"process {res.get('pid')} of this run")
+                res["label"] = label
+                arrays = (res["positions"], np.array(res["energies"]), np.array(res["degeneracy"]))
+                res["overlap_brute"] = bs._overlap(mol, arrays, ref)
+                res["d_lowest"] = float(convert(arrays[1].min() - ref[1].min(), "hartree", "kcal/mol"))
+                searches[p, seed] = (res, arrays)
+                if "engine_cpu" in res:
+                    log(f"  [{p}] seed {seed}: {res['trials']} trials, {res['ff_conformers']} "
+                        f"MMFF94s conformers, {res['optimizations']} optimizations, "
+                        f"{res['gradients']} gradients + {res['single_points']} single points "
+                        f"= {res['engine_cpu']:.0f} s CPU in the engine, the rest "
+                        f"{res['cpu'] - res['engine_cpu']:.0f} s; stage wall s {res['stage_wall']}")
+                log(f"  [{p}] seed {seed}: CPU {res['cpu']:.0f} s (wall {res['wall']:.0f} s, load "
+                    f"{res['load'][0]:.1f}->{res['load'][1]:.1f}, {label}, ended {res['when']}), {len(arrays[1])} "
+                    f"conformers, overlap with brute force {res['overlap_brute']:.3f}, lowest "
+                    f"{res['d_lowest']:+.2f} kcal/mol, streams {res['stream_overlap']} ({res['stop']})")
+        # where the searches find minima the brute force lacks, it is an incomplete yardstick:
+        # the union of the brute force and every search of this molecule is printed as well
+        from confpop.prune import PruneSettings, find_duplicates, is_achiral
+
+        pos = list(ref[0]) + [q for _, a in searches.values() for q in a[0]]
+        e = np.concatenate([ref[1]] + [a[1] for _, a in searches.values()])
+        deg = np.concatenate([ref[2]] + [a[2] for _, a in searches.values()])
+        rep = find_duplicates(mol, [np.asarray(q) for q in pos], e, PruneSettings(),
+                              achiral=is_achiral(mol))
+        union = ([np.asarray(pos[u]) for u in rep.unique], e[rep.unique], deg[rep.unique])
+        brute_union = bs._overlap(mol, ref, union)
+        for res, arrays in searches.values():
+            res["overlap_union"] = bs._overlap(mol, arrays, union)
+        rel = convert(union[1] - union[1].min(), "hartree", "kcal/mol")
+        log(f"  union of the brute force and the searches: {len(union[1])} minima "
+            f"({int((rel <= 3).sum())} within 3 kcal/mol); the brute force's overlap with it "
+            f"{brute_union:.3f}; lowest of the union {float(convert(union[1].min() - ref[1].min(), 'hartree', 'kcal/mol')):+.2f} kcal/mol vs the brute force")
+        for p in paths:
+            pair = [searches[p, s] for s in seeds]
+            seed_overlap = bs._overlap(mol, pair[0][1], pair[1][1])
+            cpu = sum(r["cpu"] for r, _ in pair)
+            row = {"molecule": name, "path": p, "brute_cpu": brute["cpu_seconds"],
+                   "brute_label": brute_label, "brute_minima": len(ref[1]),
+                   "cpu": [r["cpu"] for r, _ in pair], "pair_cpu": cpu,
+                   "pair_ratio": cpu / brute["cpu_seconds"],
+                   "single_ratio": cpu / len(pair) / brute["cpu_seconds"],
+                   "seed_overlap": seed_overlap,
+                   "converged": seed_overlap >= CONVERGED_TARGET_OVERLAP,
+                   "overlap_brute": [r["overlap_brute"] for r, _ in pair],
+                   "overlap_union": [r["overlap_union"] for r, _ in pair],
+                   "brute_union": brute_union,
+                   "d_lowest": [r["d_lowest"] for r, _ in pair],
+                   "labels": sorted({r["label"] for r, _ in pair})}
+            rows.append(row)
+            log(f"  [{p}] seeds {seeds[0]}/{seeds[1]}: overlap {seed_overlap:.3f} "
+                f"({'converged' if row['converged'] else 'NOT converged'}), CPU {cpu:.0f} s = "
+                f"{row['pair_ratio']:.2f} x brute force (one search {row['single_ratio']:.2f} x)")
+        if len(paths) > 1:
+            for seed in seeds:
+                a, b = searches[paths[0], seed][1], searches[paths[1], seed][1]
+                log(f"  seed {seed}: population overlap between paths {paths[0]} and {paths[1]}: "
+                    f"{bs._overlap(mol, a, b):.3f}")
+    _converged_table(rows, paths, seeds)
+    _write_json(run_dir / f"table-{'+'.join(names)}.json", {"run_id": run_id, "started": started,
+                                         "finished": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
+                                         "rows": rows})
+    return rows
+
+
+def _converged_table(rows, paths, seeds):
+    print()
+    print(f"{'molecule':12s} {'brute s':>7} {'path':>16} {'CPU s seed ' + '/'.join(map(str, seeds)):>18} "
+          f"{'pair s':>7} {'pair/brute':>10} {'one/brute':>9} {'seeds ovl':>9} "
+          f"{'ovl brute':>11} {'ovl union':>11} {'dE lowest':>11} {'after/before':>12}")
+    by = {(r["molecule"], r["path"]): r for r in rows}
+    for r in rows:
+        before = by.get((r["molecule"], paths[0]))
+        change = (f"{r['pair_cpu'] / before['pair_cpu']:.2f}" if before is not None
+                  and r["path"] != paths[0] else "")
+        print(f"{r['molecule']:12s} {r['brute_cpu']:>7.0f} {r['path']:>16} "
+              f"{'/'.join(f'{c:.0f}' for c in r['cpu']):>18} {r['pair_cpu']:>7.0f} "
+              f"{r['pair_ratio']:>10.2f} {r['single_ratio']:>9.2f} "
+              f"{r['seed_overlap']:>8.3f}{'' if r['converged'] else '!'} "
+              f"{'/'.join(f'{o:.3f}' for o in r['overlap_brute']):>11} "
+              f"{'/'.join(f'{o:.3f}' for o in r['overlap_union']):>11} "
+              f"{'/'.join(f'{d:+.2f}' for d in r['d_lowest']):>11} {change:>12}")
+    print(f"pair = CPU of the two seeds' searches (workers=1) = CPU to a converged ensemble when "
+          f"seeds ovl >= {CONVERGED_TARGET_OVERLAP} ('!': not reached); goal pair/brute <= "
+          f"{CONVERGED_TARGET_RATIO:.2f}; one = the mean single search; ovl brute, dE lowest "
+          f"(kcal/mol) per seed; ovl union: with the union of the brute force and every search of "
+          f"the molecule; after/before = pair CPU over the first path's")
+    for r in rows:
+        if r["path"] == paths[0]:
+            labels = sorted({x for q in rows if q["molecule"] == r["molecule"] for x in q["labels"]})
+            print(f"  {r['molecule']}: brute force from {r['brute_label']}; its overlap with "
+                  f"the union {r['brute_union']:.3f}"
+                  + ("" if labels == ["this process"] else "; searches: " + ", ".join(labels)))
+
+
 def main() -> None:
+    if "--converged" in sys.argv:
+        ap = argparse.ArgumentParser(description=converged.__doc__.splitlines()[0])
+        ap.add_argument("--converged", action="store_true",
+                        help="CPU to a converged ensemble against the brute force (this mode)")
+        ap.add_argument("--only", default=None,
+                        help="bench_sampling.py molecule names, comma-separated (default "
+                             + ", ".join(CONVERGED_DEFAULT) + ")")
+        ap.add_argument("--paths", default="reference,default",
+                        help="optimizer paths, the 'before' first (see --paths of the default mode)")
+        ap.add_argument("--seeds", default="0,1", help="the two search seeds")
+        ap.add_argument("--brute", choices=("run", "cache"), default="run",
+                        help="build the brute force in this run (default) or read "
+                             "bench_sampling.py's cache")
+        ap.add_argument("--run-id", default=time.strftime("%Y%m%dT%H%M%S", time.gmtime()),
+                        help="resume an interrupted run by its id (benchmarks/cache/run-<id>)")
+        args = ap.parse_args()
+        import bench_sampling
+
+        names = [n.strip() for n in args.only.split(",")] if args.only else list(CONVERGED_DEFAULT)
+        for n in names:
+            if n not in bench_sampling.MOLECULES:
+                sys.exit(f"--only: unknown molecule {n!r}; choose from "
+                         f"{', '.join(bench_sampling.MOLECULES)}")
+        seeds = [int(s) for s in args.seeds.split(",")]
+        if len(seeds) != 2:
+            sys.exit(f"--seeds: two seeds, got {args.seeds!r}")
+        paths = [p.strip() for p in args.paths.split(",") if p.strip()]
+        print(f"confpop from {os.path.dirname(cp.__file__)}", flush=True)
+        converged(names, paths, seeds, args.brute, args.run_id,
+                  log=bench_sampling._log_to(str(bench_sampling.CACHE / f"run-{args.run_id}" / "log.txt")))
+        return
     if "--versus-all" in sys.argv:  # every other option belongs to the earlier benchmark
         from bench_search_all import main as versus_all
         sys.argv = [a for a in sys.argv if a != "--versus-all"]
@@ -264,6 +534,10 @@ def main() -> None:
     ap.add_argument("--no-paths", action="store_true", help="skip the optimizer-path comparison")
     ap.add_argument("--trials", type=int, default=None, help="search: trials per round")
     ap.add_argument("--rounds", type=int, default=None, help="search: largest number of rounds")
+    ap.add_argument("--converged", action="store_true",
+                    help="CPU to a converged ensemble (two seeds) against bench_sampling.py's "
+                         "brute force, per optimizer path; 'bench_search.py --converged --help' "
+                         "lists its options")
     ap.add_argument("--versus-all", action="store_true",
                     help="run the earlier comparison with optimizing every trial structure "
                          "(benchmarks/bench_search_all.py) with the other options")
