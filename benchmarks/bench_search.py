@@ -6,9 +6,10 @@ one process (serial, ``OMP_NUM_THREADS=1``), per molecule:
 1. **Optimizer paths, interleaved** (``--starts N``, default 30): the search's own
    MMFF94s-relaxed ETKDG structures are optimized ("tight") by each path in ``--paths``
    (default ``reference,default``: geomeTRIC's own guess Hessian with fresh SCF guesses and
-   "tight" convergence, as before, and the search's defaults: Lindh's force constants, SCF
-   restarts, "tight-gradient" convergence; see :mod:`confpop.geometric_fast` and
-   :mod:`confpop.optimize`),
+   its own step work, as before, and the search's defaults: Lindh's force constants, SCF
+   restarts, the accelerated step work; see :mod:`confpop.geometric_fast` and
+   :mod:`confpop.optimize`; "@tight/drms=1/dmax=1" after a path changes the
+   convergence criteria),
    start by start, one path after the other, and
    once by the reference path at "verytight" (the yardstick). Printed per path: median and
    p90 gradient calls per optimization, CPU per optimization, the engine floor (gradient
@@ -118,13 +119,23 @@ _CONTINUATION = None
 _LIBRARY_GUESS = getattr(copt, "DEFAULT_HESSIAN_GUESS", "geometric")
 
 
-def path_convergence(path: str) -> str:
-    """The convergence preset of a path: "@preset" at its end; else "tight", the preset of
-    every search before "tight-gradient"; "default" is the search's own default."""
-    if path == "default":
-        from confpop.settings import SEARCH_DEFAULTS
-        return SEARCH_DEFAULTS.convergence
-    return path.partition("@")[2] or "tight"
+def path_convergence(path: str):
+    """The convergence of a path: "@preset" at its end, optionally with "/key=value"
+    overrides of single criteria (e.g. "default@tight/drms=1/dmax=1": no displacement criterion); else the
+    search's own preset ("tight")."""
+    from confpop.settings import SEARCH_DEFAULTS
+
+    spec = path.partition("@")[2] or SEARCH_DEFAULTS.convergence
+    preset, *overrides = spec.split("/")
+    if not overrides:
+        return preset
+    criteria = dict(copt.CONVERGENCE_PRESETS[preset])
+    for item in overrides:
+        key, _, value = item.partition("=")
+        criteria[key] = float(value)
+    return criteria
+
+
 #: the library's own optimizer path (its initial Hessian, SCF restarts on), before set_path
 LIBRARY_PATH = _LIBRARY_GUESS
 
@@ -327,13 +338,12 @@ def converged(names, paths, seeds, brute_source, run_id, log=print):
     **Agreement with the brute force.** Population overlap with it and lowest energy minus
     its lowest, kcal/mol, per search (bench_sampling.py's brute force: 2,000 ETKDGv3
     embeddings, MMFF94s, every distinct minimum optimized at GFN2 "tight" on today's default
-    optimizer path; it keeps "tight", not the search's "tight-gradient", because its
-    geometries are the yardstick: a brute force at "tight-gradient" would cost less).
+    optimizer path).
 
     **Before/after.** Each search runs once per optimizer path in ``paths`` (default
     "reference": geomeTRIC's own guess Hessian with a fresh SCF guess at every step, its own
-    step work and "tight" convergence, the optimizer before the speed work; "default": the
-    search's defaults, Lindh guess, SCF restarts, "tight-gradient"), interleaved seed
+    step work, the optimizer before the speed work; "default": the search's defaults, Lindh
+    guess, SCF restarts, the accelerated step work), interleaved seed
     by seed in this one process; the sampling is the same on both paths (it does not use
     the optimizer), so the columns differ by the optimizer only. The numpy primitives of
     :mod:`confpop.geometric_fast` are on in both; its step work only on the default path.
@@ -525,9 +535,10 @@ def main() -> None:
     ap.add_argument("--paths", default="reference,default",
                     help="optimizer paths, comma-separated: an initial Hessian (geometric, lindh, "
                          "lindh-primitive) with '+norestart' for fresh SCF guesses, '+oldsteps' for "
-                         "geomeTRIC's own step work and '@preset' for the convergence preset "
-                         "(default tight); reference = geometric+norestart+oldsteps@tight, the "
-                         "optimizer before the speed work; default = the search's defaults")
+                         "geomeTRIC's own step work and '@preset[/key=value...]' for the "
+                         "convergence (default: the search's, tight); reference = "
+                         "geometric+norestart+oldsteps, the optimizer before the speed work; "
+                         "default = the search's defaults")
     ap.add_argument("--only", default=None, help="molecules whose name contains this (comma-separated)")
     ap.add_argument("--seed", type=int, default=1)
     ap.add_argument("--search", action="store_true", help="also run whole searches per path")

@@ -115,8 +115,6 @@ loose       1e-5      1.7e-3    2.5e-3    6.7e-3    1e-2
 normal      1e-6      3e-4      4.5e-4    1.2e-3    1.8e-3
 tight       1e-6      1e-4      1.5e-4    4e-4      6e-4
 verytight   1e-7      1e-5      1.5e-5    4e-5      6e-5
-tight-      1e-6      1e-4      1.5e-4    (not      (not
-gradient                                  checked)  checked)
 =========== ========= ========= ========= ========= =========
 
 "tight" (the default) ended within 1e-4 kcal/mol of "verytight" in 9 of 10 GFN2
@@ -125,37 +123,26 @@ both presets reached a stationary point with a gradient below 1e-5 hartree/angst
 a saddle that verytight happened to slide off (0.17 kcal/mol lower, 0.75 angstrom away).
 No gradient criterion tells a flat saddle from a minimum; only a Hessian does.
 
-"tight-gradient" (the search's default) stops as soon as tight's gradient and energy
-criteria hold, without waiting for the steps to shrink below tight's displacement criteria:
-the last 3-20 calls of a "tight" optimization move flat torsions by 0.001-0.06 angstrom
-while the energy changes by less than 1e-6 hartree. Measured with
-``benchmarks/bench_search.py``-style interleaving (30 MMFF94s-relaxed ETKDG starts per
-molecule, GFN2-xTB, Lindh guess and SCF restarts, load 5-8; dE = final energy minus
-geomeTRIC "verytight" from the same start, kcal/mol):
-
-=================== ======================= ======================= ====================
-molecule (atoms)    "tight" calls median    "tight-gradient"        dE median / worst;
-                    (p90), CPU s per opt.   calls, CPU s            starts > 0.05
-=================== ======================= ======================= ====================
-hydroxy-ester (31)  19.5 (28), 0.43         14 (18), 0.32           0.0001 / 0.69; 1 (a)
-ether-amide (35)    24.5 (38), 0.68         17.5 (34), 0.59         0.0002 / 0.215; 1 (b)
-aryl ester (43)     30.5 (50), 1.12         10 (19), 0.39           0.0013 / 0.023; 0
-=================== ======================= ======================= ====================
-
-(a) A true minimum 0.69 kcal/mol above the one "tight" and "verytight" reach from that
-start: its full numerical Hessian (central differences, 0.005 angstrom) has no imaginary
-mode, the lowest vibration 13 cm^-1; "tight" crawls out of it over 36 more gradient calls
-and a small barrier. (b) The start that every path and preset ends in a neighbouring
-minimum (table above). Candidates measured in the same run and dropped: displacement
-criteria 10x tight's (15 / 18.5 / 11.5 calls, the same two starts), "normal" gradients
-without displacement criteria (one more start 0.31 kcal/mol high). The minimum check of the
-search (:mod:`confpop.minimum`) keeps "tight": a structure rolling off a saddle moves by
-more than the displacement criteria while its gradient is already small.
+Dropping the displacement criteria was measured and rejected (``benchmarks/bench_search.py
+--paths default,default@tight/drms=1/dmax=1``: 30 MMFF94s-relaxed ETKDG starts per molecule,
+GFN2-xTB, Lindh guess and SCF restarts, interleaved, load 5-8). Tight's gradient and energy
+criteria alone cut the median gradient calls from 19.5 / 24.5 / 30.5 to 14 / 17.5 / 10
+(invented hydroxy-ester 31 atoms, ether-amide 35, aryl ester 43) with final energies within
+0.0001-0.0013 kcal/mol (median) of "verytight", but on the aryl ester the stopping point
+wanders along flat torsions: RMSD (the duplicate check's atoms) to the "verytight" structure
+median 0.030,
+largest 0.27 angstrom (13 of 30 starts above 0.05; "tight": largest 0.002), and of 60 other
+starts 18 ended where the search's duplicate criteria (0.2 angstrom, 0.05 kcal/mol) no longer
+match the "tight" structure of the same start (:func:`confpop.prune.find_duplicates` on the
+pooled end structures; the ether-amide: 1 of 60). Two starts in one flat basin could then
+be kept as two conformers and the basin's population counted twice. Displacement criteria
+3x, 5x and 10x tight's (21, 13 and 11.5 calls on the aryl ester) wander as far (largest
+0.27 angstrom), so "tight" stays the search's preset.
 
 Examples
 --------
 >>> sorted(CONVERGENCE_PRESETS)
-['loose', 'normal', 'tight', 'tight-gradient', 'verytight']
+['loose', 'normal', 'tight', 'verytight']
 """
 
 from __future__ import annotations
@@ -188,10 +175,6 @@ CONVERGENCE_PRESETS: dict[str, dict[str, float]] = {
     "normal": {"energy": 1e-6, "grms": 3e-4, "gmax": 4.5e-4, "drms": 1.2e-3, "dmax": 1.8e-3},
     "tight": {"energy": 1e-6, "grms": 1e-4, "gmax": 1.5e-4, "drms": 4e-4, "dmax": 6e-4},
     "verytight": {"energy": 1e-7, "grms": 1e-5, "gmax": 1.5e-5, "drms": 4e-5, "dmax": 6e-5},
-    # tight gradient and energy criteria; the displacement criteria are not checked
-    # (measured in the module docstring: the search's default)
-    "tight-gradient": {"energy": 1e-6, "grms": 1e-4, "gmax": 1.5e-4,
-                       "drms": math.inf, "dmax": math.inf},
 }
 _CRITERIA = ("energy", "grms", "gmax", "drms", "dmax")
 _DEFAULT_MAX_STEPS = 300
@@ -350,11 +333,9 @@ def optimize_positions(backend: Backend, positions, *, convergence="tight", max_
         Bound to the molecule; must provide gradients.
     positions : (n_atoms, 3) array, angstrom
         Starting geometry.
-    convergence : {"loose", "normal", "tight", "verytight", "tight-gradient"} or mapping
+    convergence : {"loose", "normal", "tight", "verytight"} or mapping
         A preset (see the module docstring) or a mapping with any of the keys
         ``energy, grms, gmax, drms, dmax`` (geomeTRIC units; missing keys from "tight").
-        ``"tight-gradient"`` checks tight's gradient and energy criteria only, not the
-        displacements (the search's default, measured in the module docstring).
     max_steps : int, optional
         Optimization cycle limit (default 300). Reaching it is reported, not raised.
     dihedral_constraints : sequence of ((i, j, k, l), target_degrees or None), optional

@@ -45,10 +45,8 @@ Stages (each records its counts in and out and its wall time in the provenance):
    gradient calls) of every survivor, duplicates removed with looser criteria (twice the
    RMSD, 2.5 times the energy tolerance) and a window of the population cut's energy (or
    ``energy_window`` when smaller) + ``preopt_margin``;
-   then the survivors optimized at the final method (geomeTRIC, "tight-gradient" convergence:
-   tight gradient and energy criteria without the displacement criteria, final energies within
-   0.05 kcal/mol of a very tight optimization on 88 of 90 measured starts, the other two in
-   true neighbouring minima; see :mod:`confpop.optimize`).
+   then the survivors optimized at the final method (geomeTRIC, "tight" convergence, final energies within 0.05 kcal/mol
+   of a very tight optimization).
 4. **minimum check**: an optimizer started from a symmetric structure keeps the symmetry
    and can stop on a saddle point (the gradient along symmetry-breaking motions is zero by
    symmetry). Every optimized conformer with a mirror plane or a symmetry axis is displaced
@@ -218,7 +216,7 @@ def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int
            screen_window: float | None = None, rmsd: float = 0.2, energy_tolerance: float = 0.05,
            merge_mirror_images: bool = True, max_rounds: int = MAX_ROUNDS,
            target_completeness: float | None = TARGET_COMPLETENESS, sampling_method: str = "mmff94s",
-           convergence: str = "tight-gradient", preoptimize: bool = False, preopt_margin: float = 2.0,
+           convergence: str = "tight", preoptimize: bool = False, preopt_margin: float = 2.0,
            charge: int | None = None, multiplicity: int | None = None,
            stereo: str = "refuse", keep_largest_fragment: bool = False,
            force_trans_amides: bool = True, method_options: dict | None = None,
@@ -271,10 +269,7 @@ def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int
     merge_mirror_images : bool
         One row with degeneracy 2 per mirror-image pair (True) or two rows (False).
     convergence : str
-        Optimizer preset of the optimize stage ("tight-gradient" (default), "loose",
-        "normal", "tight", "verytight"); the minimum check uses "tight" when this is
-        "tight-gradient" (a structure rolling slowly off a saddle moves by more than
-        tight's displacement criteria while its gradient is already small).
+        Optimizer preset ("loose", "normal", "tight", "verytight").
     allow_long : bool
         Run even when the cost estimate (:mod:`confpop.budget`: atoms, rotatable bonds,
         trials, method) is above its bound of 2 CPU hours or ``n_trials`` above 10,000.
@@ -433,9 +428,7 @@ def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int
                                      "optimize", method, solvent, executor, workers, progress, store)
     # 4. minimum check: symmetric structures re-optimized off their symmetry (saddles leave)
     if check_minima:
-        ens, positions = _minimum_stage(ens, positions, base_item,
-                                        "tight" if convergence == "tight-gradient" else convergence,
-                                        method, seed,
+        ens, positions = _minimum_stage(ens, positions, base_item, convergence, method, seed,
                                         executor, workers, progress, store)
     opt_mol = ens.mol
 
