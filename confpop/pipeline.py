@@ -180,7 +180,7 @@ def minimum_unit(item: dict) -> dict:
 
 def _run(function, items, *, executor, workers, progress, store, kind, description):
     """Run units through the execution layer, with the store when one is given."""
-    from .execution import default_workers, run_units
+    from .execution import _active_pool, run_units
 
     keys = None
     if store is not None:
@@ -194,8 +194,12 @@ def _run(function, items, *, executor, workers, progress, store, kind, descripti
             keys.append(content_key(numbers, it["positions"], charge=it["charge"],
                                     multiplicity=it["multiplicity"], method=it["method"],
                                     solvent=it["solvent"], settings=settings, kind=kind))
-    if executor is None and workers is None:
-        workers = 1 if len(items) < 8 else default_workers()  # the CPUs we may use
+    if executor is None and workers is None and _active_pool() is None:
+        workers = 1  # one CPU, so search() opened no pool: run here
+    # Inside the search's pool even a few short units go to the workers: its start-up is
+    # paid once; measured (benchmarks/bench_pool.py, README example's 8 GFN2 single points,
+    # ~25 ms each) in this process 0.214 s, on the warm 2-worker pool 0.226 s, on a fresh
+    # pool (the former cost of a stage) 1.9 s on a loaded machine.
     return run_units(function, items, executor=executor, workers=workers, progress=progress,
                      description=description, store=store, keys=keys)
 
@@ -311,7 +315,9 @@ def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int
         added cost; it pays where many force-field minima fall into one GFN2 minimum.
     executor : concurrent.futures.Executor, optional
         Where the units of work run (e.g. ``dask.distributed.Client.get_executor()``);
-        default a local process pool (serial for a handful of units).
+        default one local process pool for every stage of the search
+        (:func:`confpop.execution.pool_scope`; in this process when only one CPU is
+        available).
     workers : int, optional
         Local worker processes (1 = serial in this process).
     store : str, pathlib.Path or ResultStore, optional
