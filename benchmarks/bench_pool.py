@@ -68,8 +68,9 @@ def measure(argv: list[str], tree: str) -> dict:
     env = {**os.environ, "OMP_NUM_THREADS": "1", "PYTHONPATH": tree}
     before = resource.getrusage(resource.RUSAGE_CHILDREN)
     start = time.perf_counter()
+    # cwd: not a source tree (``python -m`` puts the working directory first on sys.path)
     process = subprocess.Popen(argv, env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE,
-                               text=True)
+                               text=True, cwd=tempfile.gettempdir())
     out, err = process.communicate()
     wall = time.perf_counter() - start
     _reap_all()  # the fork server and any worker it did not reap
@@ -247,6 +248,10 @@ def main() -> None:
     _become_subreaper()
     print(f"CPUs available: {len(os.sched_getaffinity(0))}; load average "
           f"{os.getloadavg()[0]:.2f}")
+    for name, tree in (("old", args.old), ("new", NEW)):
+        found = measure([sys.executable, "-c", "import confpop, confpop.execution as e; "
+                         "print(confpop.__file__, hasattr(e, 'pool_scope'))"], tree)
+        print(f"{name}: {found['stdout'].strip()}")
     parts = args.parts.split(",")
     if "readme" in parts:
         part_readme(args.old, args.repeats)

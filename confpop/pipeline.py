@@ -215,17 +215,24 @@ _ENGINE_MODULES = {"confpop.backends.xtb": ("xtb.interface",),
                    "confpop.backends.tblite": ("tblite.interface",)}
 
 
-def _search_pool(method: str, executor, workers):
-    """The process pool scope of one search: shared by its stages; none when the units
-    run in this process or on a given executor, or for a force-field-only search."""
+def search_pool(method: str, executor, workers):
+    """The process pool scope of a search (:func:`confpop.execution.pool_scope`), its
+    workers preloaded with ``method``'s engine: shared by its stages, and by whatever runs
+    inside it (the command line puts free energies and rescoring in it too). None is opened
+    when the units run in this process or on a given executor, or for a force-field-only
+    search."""
     import contextlib
 
     from .execution import default_workers, pool_scope
 
+    method = method.lower() if isinstance(method, str) else method
     if executor is not None or workers == 1 or method in FORCE_FIELDS or \
             (workers is None and default_workers() == 1):
         return contextlib.nullcontext()
-    module = backend_class(method).__module__
+    try:
+        module = backend_class(method).__module__
+    except Exception:  # an unknown method: search() says so in the user's terms
+        return contextlib.nullcontext()
     preload = (*_WORKER_MODULES, module, *_ENGINE_MODULES.get(module, ()))
     return pool_scope(workers, preload=preload)
 
@@ -388,7 +395,7 @@ def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int
 
     # one pool of worker processes for every stage; its workers import the engine while
     # this process samples (benchmarks/bench_pool.py)
-    with _search_pool(method, executor, workers):
+    with search_pool(method, executor, workers):
         # 1. sample + force-field relax + prune
         t0 = time.perf_counter()
         ff, ff_reason = sampling_method, ""
