@@ -252,3 +252,62 @@ def test_a_fresh_fork_server_preloads_the_engine_with_one_openmp_thread(tmp_path
         assert server_has_xtb  # loaded once, in the fork server
         assert max_threads and set(max_threads) == {1}
         assert threads == 1
+
+
+SCOPED_SCRIPT = """
+import os, sys, time
+from confpop.cli import Terminated, _install_signal_handlers
+from confpop.execution import pool_scope, run_units
+
+def unit(seconds):
+    with open(os.path.join(sys.argv[1], f"started-{os.getpid()}"), "w"):
+        pass
+    time.sleep(seconds)
+    return seconds
+
+if __name__ == "__main__":
+    _install_signal_handlers()
+    try:
+        with pool_scope(2, preload=("confpop.pipeline",)):
+            run_units(unit, [0.0, 0.0])  # a first stage
+            run_units(unit, [60.0, 60.0])  # the second, stopped by the signal
+    except Terminated as stop:
+        sys.exit(128 + stop.signum)
+    sys.exit(0)
+"""
+
+
+def _session_processes(sid: int) -> list[int]:
+    found = []
+    for entry in os.listdir("/proc"):
+        if entry.isdigit():
+            try:
+                if os.getsid(int(entry)) == sid and _alive(int(entry)):
+                    found.append(int(entry))
+            except OSError:
+                pass
+    return found
+
+
+@pytest.mark.skipif(not os.path.exists("/proc/self/stat"), reason="reads /proc")
+@pytest.mark.slow
+def test_sigterm_in_a_later_stage_of_a_scope_leaves_no_process_behind(tmp_path):
+    import subprocess
+    import sys
+
+    script = tmp_path / "run.py"
+    script.write_text(SCOPED_SCRIPT)
+    env = {**os.environ, "OMP_NUM_THREADS": "1"}
+    process = subprocess.Popen([sys.executable, str(script), str(tmp_path)], env=env,
+                               start_new_session=True)
+    deadline = time.monotonic() + 60
+    while len(list(tmp_path.glob("started-*"))) < 2 and time.monotonic() < deadline:
+        time.sleep(0.1)
+    time.sleep(0.5)  # the 60 s units have started too
+    assert len(_session_processes(process.pid)) >= 4  # main, fork server, tracker, 2 workers
+    process.send_signal(signal.SIGTERM)
+    assert process.wait(timeout=30) == 128 + signal.SIGTERM
+    deadline = time.monotonic() + 10
+    while _session_processes(process.pid) and time.monotonic() < deadline:
+        time.sleep(0.1)
+    assert _session_processes(process.pid) == []
