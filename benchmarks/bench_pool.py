@@ -17,9 +17,12 @@ preload  the same command with this tree and three ways to ready the workers: ``
          modules when it starts), ``forkserver`` (the default: the engine modules imported
          once in the fork server, ``multiprocessing.set_forkserver_preload``, and the workers
          forked from it).
+pictures the same command with matplotlib imported in a background thread while the search
+         runs (the default) and without.
 small    8 GFN2 single points (the README example's screen) and 8 GFN2 optimizations in
          chloroform, in this process (workers=1) against a warm shared 2-worker pool and a
-         fresh 2-worker pool per call (the former per-stage cost).
+         fresh 2-worker pool per call (the former per-stage cost; here its fork server already
+         holds the preloaded modules, so it is cheaper than before).
 large    ``confpop.search("CCOC(=O)C[C@H](O)CCCOC", "gfn2", n_trials=60, max_rounds=1,
          workers=2)`` (invented hydroxy-ester), old against new: wall, CPU and whether the
          energies agree.
@@ -109,6 +112,9 @@ def drive(variant: str, argv: list[str]) -> int:
         pipeline._WORKER_MODULES, pipeline._ENGINE_MODULES = (), {}
     elif variant == "initializer":  # each worker imports the engine modules when it starts
         execution._FORKSERVER_PRELOAD = False
+    elif variant == "no background import":  # matplotlib imported when the pictures are drawn
+        import confpop.cli
+        confpop.cli._import_in_background = lambda *modules: None
     elif variant != "forkserver":  # the default: imported once, in the fork server
         raise SystemExit(f"unknown variant {variant!r}")
     from confpop.cli import main
@@ -167,6 +173,18 @@ def part_preload(repeats: int) -> None:
             runs[name].append(readme_run(NEW, variant=name))
     for name in names:
         _show(name, runs[name], runs["none"] if name != "none" else None)
+
+
+def part_pictures(repeats: int) -> None:
+    print(f"\nmatplotlib imported in a background thread during the search (README example, "
+          f"this tree), {repeats} runs each, interleaved")
+    names = ("no background import", "forkserver")
+    runs = {n: [] for n in names}
+    for _ in range(repeats):
+        for name in names:
+            runs[name].append(readme_run(NEW, variant=name))
+    _show("without", runs[names[0]])
+    _show("with", runs[names[1]], runs[names[0]])
 
 
 def part_small(repeats: int) -> None:
@@ -235,7 +253,7 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--repeats", type=int, default=5)
     parser.add_argument("--old", default="/work/main", help="tree with one pool per stage")
-    parser.add_argument("--parts", default="readme,preload,small,large")
+    parser.add_argument("--parts", default="readme,preload,pictures,small,large")
     parser.add_argument("--drive", help=argparse.SUPPRESS)
     parser.add_argument("--drive-large", help=argparse.SUPPRESS)
     args, rest = parser.parse_known_args()
@@ -257,6 +275,8 @@ def main() -> None:
         part_readme(args.old, args.repeats)
     if "preload" in parts:
         part_preload(args.repeats)
+    if "pictures" in parts:
+        part_pictures(args.repeats)
     if "small" in parts:
         sys.path.insert(0, NEW)
         part_small(args.repeats)

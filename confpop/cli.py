@@ -501,6 +501,24 @@ def _run_ensemble(args: argparse.Namespace) -> int:
             folder.close()
 
 
+def _import_in_background(*modules: str) -> None:
+    """Import modules in a daemon thread while the search runs: this process mostly waits
+    for its workers then. The picture writers' matplotlib took 0.66 s to import of the
+    1.8 s the two pictures took on a loaded machine (benchmarks/bench_pool.py measures
+    the command with and without this)."""
+    import importlib
+    import threading
+
+    def run():
+        for name in modules:
+            try:
+                importlib.import_module(name)
+            except Exception:  # the writer that needs it will say so
+                return
+
+    threading.Thread(target=run, name="confpop-imports", daemon=True).start()
+
+
 def _inside(path, folder) -> bool:
     """Whether the file ``path`` would go straight into ``folder`` (both may not exist yet)."""
     if not path or not folder:
@@ -579,6 +597,8 @@ def _ensemble_work(args, temps, progress, folder) -> int:
     if args.store:  # a bad --store is one error line, before the first progress line
         from .store import ResultStore
         ResultStore(args.store).close()
+    if folder is not None or args.plot:  # pictures to draw after the search
+        _import_in_background("matplotlib.figure", "matplotlib.backends.backend_agg")
     results = []
     # one pool of workers for the searches, free energies and rescoring of this command (a
     # single search opens its own, once its input is checked)
