@@ -302,8 +302,11 @@ def _check_workers(workers) -> int:
 
 #: Let the fork server import a scope's ``preload`` modules (when it is not running yet),
 #: so that workers are forked with them loaded: one import for all workers instead of one
-#: per worker. Measured with benchmarks/bench_pool.py (README example, 2 workers, loaded
-#: machine): CPU 0.92 and wall 0.88 of importing in each worker's initializer.
+#: per worker. Measured with benchmarks/bench_pool.py (README example, 2 workers, a loaded
+#: 2-CPU machine, two runs of 4-5 interleaved repeats), against workers that import what a
+#: unit needs when it runs: CPU 0.92-0.93, wall 0.88-0.94; importing in each worker's
+#: initializer instead gained nothing there (CPU 1.00-1.04, wall 1.02-1.06), as the
+#: workers' imports compete with sampling for the CPUs. Off: the initializer imports them.
 _FORKSERVER_PRELOAD = True
 
 
