@@ -267,6 +267,7 @@ def local_executor(workers: int | None = None) -> ProcessPoolExecutor:
     Its workers run with ``OMP_NUM_THREADS=1``. Pass it as ``executor=`` to several calls to
     save the pool start-up (~0.1 s); unlike the pool :func:`run_units` makes itself, a passed
     pool cannot be rebuilt when a worker dies, so the units left are then recorded as failed.
+    :func:`pool_scope` shares one pool between calls and rebuilds it.
 
     Parameters
     ----------
