@@ -111,6 +111,31 @@ def test_a_scope_of_one_worker_opens_no_pool():
         assert pool is None and _active_pool() is None
 
 
+def timed_sleep(item):
+    """Sleeps; returns (start, end) on the monotonic clock (shared by the processes)."""
+    seconds = item
+    start = time.monotonic()
+    time.sleep(seconds)
+    return start, time.monotonic()
+
+
+def _most_at_once(spans) -> int:
+    return max(sum(1 for s, e in spans if s <= t < e) for t, _ in spans)
+
+
+def test_a_call_asking_for_fewer_workers_keeps_that_many_units_in_the_scope_pool(monkeypatch):
+    from confpop import execution
+
+    monkeypatch.setattr(execution, "default_workers", lambda: 3)  # as on a 3-CPU machine
+    with pool_scope(3) as pool:
+        run_units(pid_after, [0.0] * 3)  # the three workers are up
+        limited = [o.value for o in run_units(timed_sleep, [0.5] * 6, workers=2)]
+        full = [o.value for o in run_units(timed_sleep, [0.5] * 6)]
+        assert pool.pool_starts == 1
+    assert _most_at_once(limited) == 2
+    assert _most_at_once(full) == 3
+
+
 # -- a dead worker ---------------------------------------------------------------------------
 def test_a_worker_death_in_a_later_call_is_charged_to_its_unit_and_the_pool_rebuilt():
     with pool_scope(2) as pool:
