@@ -1,7 +1,7 @@
 """One process pool per search (execution.pool_scope) against one pool per stage.
 
-Run: OMP_NUM_THREADS=1 python benchmarks/bench_pool.py [--repeats N] [--old /work/main]
-     [--parts readme,preload,small,large]
+Run: OMP_NUM_THREADS=1 python benchmarks/bench_pool.py [--repeats N] [--large-repeats N]
+     [--old /work/main] [--parts readme,preload,pictures,small,large]
 
 Prints, each part with the candidates interleaved in one run (the machine may be shared:
 compare ratios, not absolute times):
@@ -241,6 +241,8 @@ def part_large(old: str, repeats: int) -> None:
                     result.update(json.load(handle))
                 result["rest"] = result["wall"] - (result["stages"].get("summary") or 0.0)
                 runs[name].append(result)
+                print(f"    {name}: wall {result['wall']:.2f} s, CPU {result['cpu']:.2f} s",
+                      flush=True)
     _show("old", runs["old"])
     _show("new", runs["new"], runs["old"])
     reference = runs["old"][0]
@@ -254,6 +256,7 @@ def main() -> None:
     parser.add_argument("--repeats", type=int, default=5)
     parser.add_argument("--old", default="/work/main", help="tree with one pool per stage")
     parser.add_argument("--parts", default="readme,preload,pictures,small,large")
+    parser.add_argument("--large-repeats", type=int, default=2)
     parser.add_argument("--drive", help=argparse.SUPPRESS)
     parser.add_argument("--drive-large", help=argparse.SUPPRESS)
     args, rest = parser.parse_known_args()
@@ -281,7 +284,7 @@ def main() -> None:
         sys.path.insert(0, NEW)
         part_small(args.repeats)
     if "large" in parts:
-        part_large(args.old, max(1, args.repeats // 2))
+        part_large(args.old, args.large_repeats)
 
 
 if __name__ == "__main__":
