@@ -246,9 +246,11 @@ def part_large(old: str, repeats: int) -> None:
     _show("old", runs["old"])
     _show("new", runs["new"], runs["old"])
     reference = runs["old"][0]
-    same = all(r["energies"] == reference["energies"] and r["status"] == reference["status"]
-               for r in runs["old"] + runs["new"])
-    print(f"  {len(reference['energies'])} rows; same energies and status in every run: {same}")
+    same_rows = all(r["status"] == reference["status"] for r in runs["old"] + runs["new"])
+    largest = max(max(abs(a - b) for a, b in zip(r["energies"], reference["energies"]))
+                  for r in runs["old"] + runs["new"]) if same_rows else float("nan")
+    print(f"  {len(reference['energies'])} rows; same rows and status in every run: {same_rows}; "
+          f"largest energy difference from the first old run {largest:.2e} hartree")
 
 
 def main() -> None:
