@@ -501,6 +501,24 @@ def _run_ensemble(args: argparse.Namespace) -> int:
             folder.close()
 
 
+def _import_in_background(*modules: str) -> None:
+    """Import modules in a daemon thread while the search runs: this process mostly waits
+    for its workers then. The picture writers' matplotlib took 0.66 s to import of the
+    1.8 s the two pictures took on a loaded machine (benchmarks/bench_pool.py measures
+    the command with and without this)."""
+    import importlib
+    import threading
+
+    def run():
+        for name in modules:
+            try:
+                importlib.import_module(name)
+            except Exception:  # the writer that needs it will say so
+                return
+
+    threading.Thread(target=run, name="confpop-imports", daemon=True).start()
+
+
 def _inside(path, folder) -> bool:
     """Whether the file ``path`` would go straight into ``folder`` (both may not exist yet)."""
     if not path or not folder:
@@ -563,10 +581,11 @@ def _ensemble_settings(args) -> dict:
 
 
 def _ensemble_work(args, temps, progress, folder) -> int:
+    import contextlib
     import os
 
     from .writing import ensemble_json
-    from .pipeline import search
+    from .pipeline import search, search_pool
     from .schema import solvent_model
 
     _check_solvent(args)
@@ -578,28 +597,34 @@ def _ensemble_work(args, temps, progress, folder) -> int:
     if args.store:  # a bad --store is one error line, before the first progress line
         from .store import ResultStore
         ResultStore(args.store).close()
+    if folder is not None or args.plot:  # pictures to draw after the search
+        _import_in_background("matplotlib.figure", "matplotlib.backends.backend_agg")
     results = []
-    for source in sources:
-        _heartbeat(progress, f"sampling conformers of {source}")
-        ens = search(source, method=args.method, solvent=args.solvent, seed=args.seed,
-                     n_trials=args.trials, energy_window=args.energy_window,
-                     temperatures=temps, min_population=args.min_population,
-                     check_minima=not args.no_minimum_check, allow_long=args.allow_long_run,
-                     screen_margin=args.screen_margin,
-                     max_rounds=args.rounds, screen_window=args.screen_window,
-                     target_completeness=args.completeness or None,
-                     target_overlap=args.agreement or None, moves=not args.no_moves,
-                     merge_mirror_images=not args.keep_mirror_images, charge=args.charge,
-                     multiplicity=args.multiplicity, workers=args.workers, store=args.store,
-                     keep_largest_fragment=args.keep_largest_fragment, progress=progress)
-        if args.free_energy:
-            ens = ens.add_free_energies(method=ens.level, temperatures=temps,
-                                        low_mode=args.low_mode, workers=args.workers,
-                                        progress=progress, store=args.store)
-        if args.rescore:
-            ens = ens.rescore(args.rescore, workers=args.workers, progress=progress, rank=False,
-                              store=args.store)
-        results.append(ens)
+    # one pool of workers for the searches, free energies and rescoring of this command (a
+    # single search opens its own, once its input is checked)
+    several = args.free_energy or args.rescore or args.enumerate_stereo
+    with search_pool(args.method, None, args.workers) if several else contextlib.nullcontext():
+        for source in sources:
+            _heartbeat(progress, f"sampling conformers of {source}")
+            ens = search(source, method=args.method, solvent=args.solvent, seed=args.seed,
+                         n_trials=args.trials, energy_window=args.energy_window,
+                         temperatures=temps, min_population=args.min_population,
+                         check_minima=not args.no_minimum_check, allow_long=args.allow_long_run,
+                         screen_margin=args.screen_margin,
+                         max_rounds=args.rounds, screen_window=args.screen_window,
+                         target_completeness=args.completeness or None,
+                         target_overlap=args.agreement or None, moves=not args.no_moves,
+                         merge_mirror_images=not args.keep_mirror_images, charge=args.charge,
+                         multiplicity=args.multiplicity, workers=args.workers, store=args.store,
+                         keep_largest_fragment=args.keep_largest_fragment, progress=progress)
+            if args.free_energy:
+                ens = ens.add_free_energies(method=ens.level, temperatures=temps,
+                                            low_mode=args.low_mode, workers=args.workers,
+                                            progress=progress, store=args.store)
+            if args.rescore:
+                ens = ens.rescore(args.rescore, workers=args.workers, progress=progress, rank=False,
+                                  store=args.store)
+            results.append(ens)
     settings = _ensemble_settings(args)
     payloads = [ensemble_json(e, temps, input_text=args.input, settings=settings) for e in results]
     for payload, ens in zip(payloads, results):

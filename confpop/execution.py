@@ -16,7 +16,8 @@ Where the work runs
     started with the ``"forkserver"`` method (never ``"fork"``; see :data:`START_METHOD`).
     Each worker sets ``OMP_NUM_THREADS=1`` before it imports anything a unit needs, so every
     tight-binding engine runs on one thread and parallelism comes from processes; the
-    caller's environment is left as it is.
+    caller's environment is left as it is. Inside :func:`pool_scope` every such call uses the
+    scope's pool: one start-up for many calls (a search's stages).
 ``executor=...``
     Any :class:`concurrent.futures.Executor`, for example
     ``dask.distributed.Client(...).get_executor()``; a ``dask.distributed.Client`` itself is
@@ -26,12 +27,15 @@ Where the work runs
 
 from __future__ import annotations
 
+import contextlib
 import ctypes
+import importlib
 import logging
 import multiprocessing
 import os
 import pickle
 import sys
+import threading
 import time
 from collections import deque
 from concurrent.futures import FIRST_COMPLETED, Executor, ProcessPoolExecutor, wait
@@ -41,7 +45,7 @@ from typing import Any, Callable, Iterable, Sequence
 
 from .errors import InputError, StoreError
 
-__all__ = ["UnitOutcome", "run_units", "local_executor", "default_workers"]
+__all__ = ["UnitOutcome", "run_units", "pool_scope", "local_executor", "default_workers"]
 
 logger = logging.getLogger(__name__)
 
@@ -100,9 +104,12 @@ class UnitOutcome:
 # --------------------------------------------------------------------------------------------
 # worker side
 # --------------------------------------------------------------------------------------------
-# shared array of the local pool: started[i] = attempt once a worker has taken unit i,
-# -attempt once its function has returned; it tells which unit a dead worker was running.
-_started = None
+# Shared array of a local pool, one slot per worker process: marks[slot] = ticket of the
+# unit the worker has taken and not yet returned (0: none). Tickets are numbered per pool, so
+# one array serves every run_units call that uses the pool; after a worker died the parent
+# reads which units were running.
+_marks = None
+_slot = -1
 
 
 def _limit_loaded_openmp() -> tuple[list[str], list[str]]:
@@ -146,11 +153,15 @@ def _one_line_warnings() -> None:
     warnings.showwarning = show
 
 
-def _init_worker(started=None, environ=None) -> None:
+def _init_worker(marks=None, environ=None, counter=None, preload=()) -> None:
     """Initializer of local pool workers: one OpenMP thread, before any unit's imports.
 
     ``environ`` is the caller's environment when the pool was made: a forkserver worker
-    would otherwise see the environment of the moment the server started.
+    would otherwise see the environment of the moment the server started. ``marks`` and
+    ``counter`` are the pool's shared slot array and the counter that hands each worker its
+    slot. ``preload`` names modules to import now, while the parent is busy elsewhere, so
+    that the first unit does not wait for them (a module that fails to import is left to
+    fail the units that need it, with their own error).
     """
     if environ is not None:
         for name in set(os.environ) - set(environ):
@@ -158,8 +169,14 @@ def _init_worker(started=None, environ=None) -> None:
         os.environ.update(environ)
     os.environ["OMP_NUM_THREADS"] = "1"
     _one_line_warnings()
-    global _started
-    _started = started
+    global _marks, _slot
+    _marks, _slot = None, -1
+    if marks is not None and counter is not None:
+        with counter.get_lock():
+            slot = counter.value
+            counter.value += 1
+        if slot < len(marks):  # never otherwise: the pool starts at most len(marks) workers
+            _marks, _slot = marks, slot
     found, failed = _limit_loaded_openmp()
     if found:
         logger.debug("worker %d: OpenMP runtime(s) loaded before the initializer, set to one "
@@ -168,6 +185,16 @@ def _init_worker(started=None, environ=None) -> None:
         logger.warning("worker %d: cannot set %s to one thread (loaded by a top-level import "
                        "in the main script?); engines may use several threads per worker",
                        os.getpid(), failed)
+    for name in preload:
+        try:
+            importlib.import_module(name)
+        except Exception as exc:  # the units that need it will say so
+            logger.debug("worker %d: preloading %s failed: %s", os.getpid(), name, exc)
+
+
+def _worker_ready(_=None) -> int:
+    """A warm-up submission: makes the pool start a worker now; returns its process id."""
+    return os.getpid()
 
 
 def _run_unit(function, item):
@@ -183,16 +210,16 @@ def _run_unit(function, item):
 _function_cache: dict[bytes, Callable] = {}
 
 
-def _run_pooled_unit(function_blob: bytes, item_blob: bytes, index: int, attempt: int):
+def _run_pooled_unit(function_blob: bytes, item_blob: bytes, ticket: int):
     """Local pool entry: mark the unit as taken, then unpickle and run it.
 
     Function and item travel pickled and are unpickled here, after the mark, so that a
     worker dying anywhere in a unit's handling (imports, unpickling, the calculation) is
     charged to that unit.
     """
-    started = _started
-    if started is not None:
-        started[index] = attempt
+    marks, slot = _marks, _slot
+    if marks is not None:
+        marks[slot] = ticket
     try:
         function = _function_cache.get(function_blob)
         if function is None:
@@ -205,8 +232,8 @@ def _run_pooled_unit(function_blob: bytes, item_blob: bytes, index: int, attempt
                   f"cannot unpickle the unit in the worker process: {exc}", 0.0)
     else:
         result = _run_unit(function, item)
-    if started is not None:
-        started[index] = -attempt
+    if marks is not None:
+        marks[slot] = 0
     return result
 
 
@@ -240,6 +267,7 @@ def local_executor(workers: int | None = None) -> ProcessPoolExecutor:
     Its workers run with ``OMP_NUM_THREADS=1``. Pass it as ``executor=`` to several calls to
     save the pool start-up (~0.1 s); unlike the pool :func:`run_units` makes itself, a passed
     pool cannot be rebuilt when a worker dies, so the units left are then recorded as failed.
+    :func:`pool_scope` shares one pool between calls and rebuilds it.
 
     Parameters
     ----------
@@ -271,6 +299,152 @@ def _check_workers(workers) -> int:
                       f"using {cores}", ConfpopWarning, stacklevel=3)
         return cores
     return workers
+
+
+#: Let the fork server import a scope's ``preload`` modules (when it is not running yet),
+#: so that workers are forked with them loaded: one import for all workers instead of one
+#: per worker. Measured with benchmarks/bench_pool.py (README example, 2 workers, a loaded
+#: 2-CPU machine, two runs of 4-5 interleaved repeats), against workers that import what a
+#: unit needs when it runs: CPU 0.92-0.93, wall 0.88-0.94; importing in each worker's
+#: initializer instead gained nothing there (CPU 1.00-1.04, wall 1.02-1.06), as the
+#: workers' imports compete with sampling for the CPUs. Off: the initializer imports them.
+_FORKSERVER_PRELOAD = True
+
+
+def _ask_forkserver_to_preload(modules: Sequence[str]) -> None:
+    """Add ``modules`` to the fork server's preload list (the public
+    ``set_forkserver_preload``; it takes effect only if the server has not started yet,
+    otherwise each worker imports them in its initializer). The server sets one OpenMP
+    thread (``confpop._forkserver_threads``) before it imports them."""
+    from multiprocessing import forkserver
+
+    server = getattr(forkserver, "_forkserver", None)
+    current = list(getattr(server, "_preload_modules", None) or ["__main__"])
+    wanted = [m for m in ("confpop._forkserver_threads", *modules) if m not in current]
+    if wanted:
+        multiprocessing.set_forkserver_preload(current + wanted)
+
+
+class _LocalPool:
+    """A local process pool that can be rebuilt, with the bookkeeping that tells which unit
+    a dead worker was running: one shared slot per worker and tickets numbered per pool.
+
+    Made by :func:`pool_scope` (one for every call inside the scope) or by one
+    :func:`run_units` call for itself.
+    """
+
+    def __init__(self, workers: int, preload: Sequence[str] = ()):
+        self.workers = int(workers)
+        self.preload = tuple(preload)
+        self.context = multiprocessing.get_context(START_METHOD)
+        self.executor: ProcessPoolExecutor | None = None
+        self.marks = None
+        self.pool_starts = 0  # how many executors this object has made (1 + rebuilds)
+        self._tickets = 0
+
+    def get(self) -> ProcessPoolExecutor:
+        """The running executor; a new one if there is none or the last one broke."""
+        if self.executor is not None and getattr(self.executor, "_broken", False):
+            self.discard()  # a worker died between two calls
+        if self.executor is None:
+            if self.preload and _FORKSERVER_PRELOAD and START_METHOD == "forkserver":
+                _ask_forkserver_to_preload(self.preload)
+            self.marks = self.context.RawArray("q", self.workers)
+            counter = self.context.Value("i", 0)
+            self.executor = ProcessPoolExecutor(
+                max_workers=self.workers, mp_context=self.context, initializer=_init_worker,
+                initargs=(self.marks, dict(os.environ), counter, self.preload))
+            self.pool_starts += 1
+        return self.executor
+
+    def warm_up(self) -> None:
+        """Start every worker now (each runs the initializer and its imports at once)."""
+        executor = self.get()
+        for _ in range(self.workers):  # a process starts per submission until all are up
+            executor.submit(_worker_ready)
+
+    def ticket(self) -> int:
+        self._tickets += 1
+        return self._tickets
+
+    def running(self) -> set[int]:
+        """Tickets of the units taken by a worker and not returned (after the pool broke)."""
+        return {int(t) for t in self.marks if t} if self.marks is not None else set()
+
+    def discard(self) -> None:
+        """Shut down the executor and wait for its processes (after a break or at the end)."""
+        if self.executor is not None:
+            executor, self.executor = self.executor, None
+            executor.shutdown(wait=True, cancel_futures=True)
+
+    def terminate(self) -> None:
+        """Stop the executor without waiting for running units (after an interrupt)."""
+        if self.executor is not None:
+            executor, self.executor = self.executor, None
+            terminate_pool(executor)
+
+
+_scopes = threading.local()
+
+
+def _active_pool() -> _LocalPool | None:
+    """The pool of the innermost :func:`pool_scope` opened in this thread, if any."""
+    stack = getattr(_scopes, "stack", None)
+    return stack[-1] if stack else None
+
+
+@contextlib.contextmanager
+def pool_scope(workers: int | None = None, *, preload: Sequence[str] = ()):
+    """One local process pool for every :func:`run_units` call inside the ``with`` block.
+
+    Without it each call that runs in a local pool starts its own (worker start-up and the
+    engines' imports, about a second per stage of a search measured in
+    ``benchmarks/bench_pool.py``). Inside it such calls share one set of workers, started
+    at once (they import ``preload`` while this process does other work). A worker that
+    dies inside a unit rebuilds the shared pool, as for a call's own pool (see
+    :func:`run_units`). On leaving the block the workers are shut down; after an exception
+    (Ctrl-C included) they are stopped without waiting.
+
+    Calls with ``executor=`` or ``workers=1`` are not affected; a call with a smaller
+    ``workers=`` keeps at most that many of its units in the pool at a time. A scope
+    opened inside another one (in the same thread) uses the outer pool.
+
+    Parameters
+    ----------
+    workers : int, optional
+        Processes of the pool; default :func:`default_workers` (capped at it, with a
+        warning). ``workers=1`` opens no pool: the calls inside run in this process.
+    preload : sequence of str
+        Modules every worker imports when it starts, e.g. ``["confpop.pipeline"]``.
+
+    Yields
+    ------
+    object or None
+        The shared pool (opaque), None when ``workers=1`` or when an outer scope's pool
+        is used.
+
+    Examples
+    --------
+    >>> import math
+    >>> with pool_scope(workers=2):  # doctest: +SKIP
+    ...     first = run_units(math.sqrt, [4.0, 9.0])   # these two calls run on the
+    ...     second = run_units(math.log, [1.0, 2.0])   # same two worker processes
+    """
+    workers = default_workers() if workers is None else _check_workers(workers)
+    if workers == 1 or _active_pool() is not None:
+        yield None
+        return
+    pool = _LocalPool(workers, preload)
+    _scopes.stack = (getattr(_scopes, "stack", None) or []) + [pool]
+    try:
+        pool.warm_up()
+        yield pool
+    except BaseException:
+        pool.terminate()
+        raise
+    finally:
+        _scopes.stack = _scopes.stack[:-1]
+        pool.discard()
 
 
 class _NoBar:
@@ -428,31 +602,31 @@ class _Run:
                 future.cancel()
             raise
 
-    def local_pool(self, todo: Sequence[int], workers: int) -> None:
+    def local_pool(self, todo: Sequence[int], workers: int, shared: _LocalPool | None = None,
+                   limit: int | None = None) -> None:
+        """Run on ``shared`` (a scope's pool, left running) or on a pool of this call's own.
+
+        ``limit``: at most this many units in the pool at a time (None: all at once).
+        """
         self.function_blob = pickle.dumps(self.function, protocol=pickle.HIGHEST_PROTOCOL)
-        context = multiprocessing.get_context(START_METHOD)
+        own = shared is None
+        pool = _LocalPool(max(1, min(workers, len(todo)))) if own else shared
         queue = deque(todo)   # units to run, in parallel
         quarantine = deque()  # units suspected of killing a worker: run one at a time
         pending: dict = {}
-        pool = None
-        started = None
+        self.tickets: dict[int, int] = {}  # unit -> ticket of its current attempt
         idle_breaks = 0
         try:
             while queue or quarantine or pending:
-                if pool is None:
-                    started = context.RawArray("i", len(self.items))
-                    size = max(1, min(workers, len(queue) + len(quarantine)))
-                    pool = ProcessPoolExecutor(max_workers=size, mp_context=context,
-                                               initializer=_init_worker,
-                                               initargs=(started, dict(os.environ)))
+                executor = pool.get()
                 lost: list[int] = []
                 try:
                     if quarantine:
                         if not pending:
-                            self._submit(pool, quarantine, pending)
+                            self._submit(pool, executor, quarantine, pending)
                     else:
-                        while queue:
-                            self._submit(pool, queue, pending)
+                        while queue and (limit is None or len(pending) < limit):
+                            self._submit(pool, executor, queue, pending)
                 except BrokenProcessPool:
                     broken = True  # the pool broke between two submissions
                 else:
@@ -481,9 +655,9 @@ class _Run:
                     if self.handle(i, result):
                         queue.append(i)
                 pending.clear()
-                pool.shutdown(wait=True)
-                pool = None
-                idle_breaks = self._sort_lost(lost, started, queue, quarantine, idle_breaks)
+                running = pool.running()
+                pool.discard()  # the next pass starts a new one
+                idle_breaks = self._sort_lost(lost, running, queue, quarantine, idle_breaks)
                 if idle_breaks >= _MAX_IDLE_BREAKS:
                     message = (f"{WORKER_DIED}: the local pool broke {idle_breaks} times in a row "
                                "before any unit started (can the workers import the function "
@@ -493,15 +667,13 @@ class _Run:
                     queue.clear()
                     quarantine.clear()
         except BaseException:
-            if pool is not None:
-                terminate_pool(pool)
-                pool = None
+            pool.terminate()  # a shared pool too: the exception ends its scope as well
             raise
         finally:
-            if pool is not None:
-                pool.shutdown(wait=True)
+            if own:
+                pool.discard()
 
-    def _submit(self, pool, source: deque, pending: dict) -> None:
+    def _submit(self, pool: _LocalPool, executor, source: deque, pending: dict) -> None:
         i = source.popleft()
         try:
             item_blob = pickle.dumps(self.items[i], protocol=pickle.HIGHEST_PROTOCOL)
@@ -510,18 +682,22 @@ class _Run:
             self.failed(i, type(exc).__name__, f"the item cannot be pickled: {exc}", 0.0)
             return
         self.attempts[i] += 1
+        ticket = pool.ticket()
         try:
-            future = pool.submit(_run_pooled_unit, self.function_blob, item_blob, i,
-                                 self.attempts[i])
+            future = executor.submit(_run_pooled_unit, self.function_blob, item_blob, ticket)
         except BaseException:
             self.attempts[i] -= 1
             source.appendleft(i)
             raise
+        self.tickets[i] = ticket
         pending[future] = i
 
-    def _sort_lost(self, lost, started, queue, quarantine, idle_breaks) -> int:
-        """After a worker died: charge the unit that was running, re-queue the rest."""
-        suspects = [i for i in lost if started[i] == self.attempts[i]]  # taken, not returned
+    def _sort_lost(self, lost, running, queue, quarantine, idle_breaks) -> int:
+        """After a worker died: charge the unit that was running, re-queue the rest.
+
+        ``running``: tickets the workers had taken and not returned when the pool broke.
+        """
+        suspects = [i for i in lost if self.tickets.get(i) in running]
         requeue = [i for i in lost if i not in suspects]
         for i in requeue:  # never taken (or finished): that attempt does not count
             self.attempts[i] -= 1
@@ -559,7 +735,8 @@ def run_units(function: Callable[[Any], Any], items: Iterable, *,
         One item per unit of work.
     executor : concurrent.futures.Executor or dask.distributed.Client, optional
         Where to run the units (a ``Client`` is turned into ``client.get_executor()``). It is
-        used, not shut down. Default: a local process pool made (and shut down) by this call.
+        used, not shut down. Default: the pool of the enclosing :func:`pool_scope`, else a
+        local process pool made (and shut down) by this call.
     workers : int, optional
         Processes of the local pool; default :func:`default_workers`, and never more (a
         larger number is capped with a :class:`~confpop.errors.ConfpopWarning`).
@@ -698,7 +875,12 @@ def run_units(function: Callable[[Any], Any], items: Iterable, *,
             elif executor is not None:
                 run.on_executor(executor, todo)
             else:
-                run.local_pool(todo, default_workers() if workers is None else workers)
+                shared = _active_pool()
+                if shared is None:
+                    run.local_pool(todo, default_workers() if workers is None else workers)
+                else:  # inside pool_scope: its workers, at most `workers` units at a time
+                    limit = None if workers is None or workers >= shared.workers else workers
+                    run.local_pool(todo, shared.workers, shared=shared, limit=limit)
     finally:
         bar.close()
     return list(run.outcomes)

@@ -181,7 +181,7 @@ def minimum_unit(item: dict) -> dict:
 
 def _run(function, items, *, executor, workers, progress, store, kind, description):
     """Run units through the execution layer, with the store when one is given."""
-    from .execution import default_workers, run_units
+    from .execution import _active_pool, run_units
 
     keys = None
     if store is not None:
@@ -195,10 +195,47 @@ def _run(function, items, *, executor, workers, progress, store, kind, descripti
             keys.append(content_key(numbers, it["positions"], charge=it["charge"],
                                     multiplicity=it["multiplicity"], method=it["method"],
                                     solvent=it["solvent"], settings=settings, kind=kind))
-    if executor is None and workers is None:
-        workers = 1 if len(items) < 8 else default_workers()  # the CPUs we may use
+    if executor is None and workers is None and _active_pool() is None:
+        workers = 1  # one CPU, so search() opened no pool: run here
+    # Inside the search's pool even a few short units go to the workers: its start-up is
+    # paid once; measured (benchmarks/bench_pool.py, README example's 8 GFN2 single points,
+    # ~25 ms each) in this process 0.214 s, on the warm 2-worker pool 0.226 s, on a fresh
+    # pool (the former cost of a stage) 1.9 s on a loaded machine.
     return run_units(function, items, executor=executor, workers=workers, progress=progress,
                      description=description, store=store, keys=keys)
+
+
+#: modules the workers of a search import when they start, before their first unit (the
+#: engine's and geomeTRIC's: 0.4-0.8 s per process, the first optimization's extra cost in
+#: a fresh process; benchmarks/bench_pool.py)
+_WORKER_MODULES = ("confpop.pipeline", "confpop.optimize", "confpop.minimum",
+                   "geometric.optimize", "geometric.engine", "geometric.prepare",
+                   "geometric.internal")
+#: the engine package each tight-binding backend module loads on its first calculation
+_ENGINE_MODULES = {"confpop.backends.xtb": ("xtb.interface",),
+                   "confpop.backends.tblite": ("tblite.interface",)}
+
+
+def search_pool(method: str, executor, workers):
+    """The process pool scope of a search (:func:`confpop.execution.pool_scope`), its
+    workers preloaded with ``method``'s engine: shared by its stages, and by whatever runs
+    inside it (the command line puts free energies and rescoring in it too). None is opened
+    when the units run in this process or on a given executor, or for a force-field-only
+    search."""
+    import contextlib
+
+    from .execution import default_workers, pool_scope
+
+    method = method.lower() if isinstance(method, str) else method
+    if executor is not None or workers == 1 or method in FORCE_FIELDS or \
+            (workers is None and default_workers() == 1):
+        return contextlib.nullcontext()
+    try:
+        module = backend_class(method).__module__
+    except Exception:  # an unknown method: search() says so in the user's terms
+        return contextlib.nullcontext()
+    preload = (*_WORKER_MODULES, module, *_ENGINE_MODULES.get(module, ()))
+    return pool_scope(workers, preload=preload)
 
 
 def _open_store(store):
@@ -286,7 +323,9 @@ def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int
         added cost; it pays where many force-field minima fall into one GFN2 minimum.
     executor : concurrent.futures.Executor, optional
         Where the units of work run (e.g. ``dask.distributed.Client.get_executor()``);
-        default a local process pool (serial for a handful of units).
+        default one local process pool for every stage of the search
+        (:func:`confpop.execution.pool_scope`; in this process when only one CPU is
+        available).
     workers : int, optional
         Local worker processes (1 = serial in this process).
     store : str, pathlib.Path or ResultStore, optional
@@ -355,99 +394,102 @@ def search(molecule, method: str = "gfn2", solvent: str | None = None, seed: int
                    "min_population": min_population, "confpop": __version__,
                    "libraries": dict(library_versions())}]
 
-    # 1. sample + force-field relax + prune
-    t0 = time.perf_counter()
-    ff, ff_reason = sampling_method, ""
-    if method in FORCE_FIELDS:
-        ff = method
-    else:
-        from .backends.forcefield import sampling_force_field
-        ff, ff_reason = sampling_force_field(mol, sampling_method)
-        if ff_reason:
-            log.info("trial structures relaxed with %s (%s)", ff, ff_reason)
-    sampled, ff_e, times_found, chiral, srep = sample_conformers(
-        mol, n_trials=n_trials, seed=seed, method=ff, energy_window=ff_window,
-        prune=prune_settings, max_rounds=max_rounds, force_trans_amides=force_trans_amides,
-        target_completeness=target_completeness, moves=moves,
-        streams=1 if target_overlap is None else 2, target_overlap=target_overlap,
-        overlap_temperature=t_max)
-    provenance.append(step_record("sample", started=t0, n_in=srep.trials, n_out=srep.unique,
-                                  method=f"ETKDGv3 + {ff}", window_kcal=ff_window,
-                                  force_field=ff, force_field_reason=ff_reason,
-                                  rmsd=rmsd, **srep.as_dict()))
-    table = pd.DataFrame({"status": "ok", "reason": "", "degeneracy": 1,
-                          f"energy_{ff}": ff_e, "times_found": times_found,
-                          "chiral_conformer": chiral},
-                         index=pd.Index(range(sampled.GetNumConformers()), name="conformer"))
-    ens = Ensemble(sampled, table, level=ff, charge=charge, multiplicity=multiplicity,
-                   solvent=None, provenance=provenance, name=provenance[0]["smiles"])
-    positions = {cid: ens.positions(cid) for cid in ens.ids()}
+    # one pool of worker processes for every stage; its workers import the engine while
+    # this process samples (benchmarks/bench_pool.py)
+    with search_pool(method, executor, workers):
+        # 1. sample + force-field relax + prune
+        t0 = time.perf_counter()
+        ff, ff_reason = sampling_method, ""
+        if method in FORCE_FIELDS:
+            ff = method
+        else:
+            from .backends.forcefield import sampling_force_field
+            ff, ff_reason = sampling_force_field(mol, sampling_method)
+            if ff_reason:
+                log.info("trial structures relaxed with %s (%s)", ff, ff_reason)
+        sampled, ff_e, times_found, chiral, srep = sample_conformers(
+            mol, n_trials=n_trials, seed=seed, method=ff, energy_window=ff_window,
+            prune=prune_settings, max_rounds=max_rounds, force_trans_amides=force_trans_amides,
+            target_completeness=target_completeness, moves=moves,
+            streams=1 if target_overlap is None else 2, target_overlap=target_overlap,
+            overlap_temperature=t_max)
+        provenance.append(step_record("sample", started=t0, n_in=srep.trials, n_out=srep.unique,
+                                      method=f"ETKDGv3 + {ff}", window_kcal=ff_window,
+                                      force_field=ff, force_field_reason=ff_reason,
+                                      rmsd=rmsd, **srep.as_dict()))
+        table = pd.DataFrame({"status": "ok", "reason": "", "degeneracy": 1,
+                              f"energy_{ff}": ff_e, "times_found": times_found,
+                              "chiral_conformer": chiral},
+                             index=pd.Index(range(sampled.GetNumConformers()), name="conformer"))
+        ens = Ensemble(sampled, table, level=ff, charge=charge, multiplicity=multiplicity,
+                       solvent=None, provenance=provenance, name=provenance[0]["smiles"])
+        positions = {cid: ens.positions(cid) for cid in ens.ids()}
 
-    if method in FORCE_FIELDS:
+        if method in FORCE_FIELDS:
+            return _finish(ens, positions, method, energy_window, prune_settings, achiral,
+                           sampling=srep, t_start=t_start, t_max=t_max, min_population=min_population)
+
+        base_item = {"mol": Chem.Mol(mol).ToBinary(), "method": method, "charge": charge,
+                     "multiplicity": multiplicity, "solvent": solvent,
+                     "options": dict(method_options or {})}
+
+        # 2. screen with single points
+        t0 = time.perf_counter()
+        ids = ens.ids()
+        outcomes = _run(single_point_unit, [{**base_item, "positions": positions[c]} for c in ids],
+                        executor=executor, workers=workers, progress=progress, store=store,
+                        kind="singlepoint", description="single points")
+        table = ens.raw_table
+        sp_col = f"energy_{method}_sp"
+        table[sp_col] = np.nan
+        for cid, out in zip(ids, outcomes):
+            if out.ok:
+                table.loc[cid, sp_col] = out.value["energy"]
+            else:
+                table.loc[cid, ["status", "reason"]] = ["failed", f"single point: {out.error_type}: {out.error_message}"]
+        ok = table["status"] == "ok"
+        e_min = table.loc[ok, sp_col].min() if ok.any() else 0.0
+        drop = ok & (table[sp_col] - e_min > convert(screen_window, "kcal/mol", "hartree"))
+        keep_ids = [int(c) for c in table.index[~drop]]
+        ens = Ensemble(sampled, table, level=ff, charge=charge, multiplicity=multiplicity,
+                       solvent=solvent, provenance=ens.provenance, name=ens.name)
+        ens = ens.select(keep_ids, step=step_record(
+            "screen", started=t0, n_in=len(ids), n_out=int(ok.sum() - drop.sum()), method=method,
+            solvent=solvent, window_kcal=screen_window, failed=int((~ok).sum())))
+
+        # 3. optimize: a cheap loose pre-optimization collapses force-field minima that fall into
+        #    one tight-binding minimum; only the distinct survivors get the tight optimization
+        if preoptimize:
+            ens, positions = _optimize_stage(ens, positions, base_item, "loose", "lbfgs",
+                                             "preoptimize", method, solvent, executor, workers,
+                                             progress, store)
+            ens, positions = _intermediate_prune(ens, positions, method,
+                                                 min(final_cut, energy_window or np.inf) + preopt_margin,
+                                                 prune_settings, achiral)
+        ens, positions = _optimize_stage(ens, positions, base_item, convergence, "geometric",
+                                         "optimize", method, solvent, executor, workers, progress, store)
+        # 4. minimum check: symmetric structures re-optimized off their symmetry (saddles leave)
+        if check_minima:
+            ens, positions = _minimum_stage(ens, positions, base_item, convergence, method, seed,
+                                            executor, workers, progress, store)
+        opt_mol = ens.mol
+
+        # 5. integrity checks
+        t0 = time.perf_counter()
+        table = ens.raw_table
+        n_bad = 0
+        for cid in ens.ids():
+            # compare each optimized conformer with its own force-field geometry, whose stereo
+            # ETKDG enforced from the input
+            problems = integrity_problems(opt_mol, cid, stereo_signature(sampled, cid),
+                                          reference_positions=sampled.GetConformer(cid).GetPositions())
+            if problems:
+                n_bad += 1
+                table.loc[cid, ["status", "reason"]] = ["failed", "integrity: " + "; ".join(problems)]
+        ens = ens._replace(table=table, step=step_record("check", started=t0, n_in=len(ens),
+                                                          n_out=len(ens) - n_bad, changed=n_bad))
         return _finish(ens, positions, method, energy_window, prune_settings, achiral,
                        sampling=srep, t_start=t_start, t_max=t_max, min_population=min_population)
-
-    base_item = {"mol": Chem.Mol(mol).ToBinary(), "method": method, "charge": charge,
-                 "multiplicity": multiplicity, "solvent": solvent,
-                 "options": dict(method_options or {})}
-
-    # 2. screen with single points
-    t0 = time.perf_counter()
-    ids = ens.ids()
-    outcomes = _run(single_point_unit, [{**base_item, "positions": positions[c]} for c in ids],
-                    executor=executor, workers=workers, progress=progress, store=store,
-                    kind="singlepoint", description="single points")
-    table = ens.raw_table
-    sp_col = f"energy_{method}_sp"
-    table[sp_col] = np.nan
-    for cid, out in zip(ids, outcomes):
-        if out.ok:
-            table.loc[cid, sp_col] = out.value["energy"]
-        else:
-            table.loc[cid, ["status", "reason"]] = ["failed", f"single point: {out.error_type}: {out.error_message}"]
-    ok = table["status"] == "ok"
-    e_min = table.loc[ok, sp_col].min() if ok.any() else 0.0
-    drop = ok & (table[sp_col] - e_min > convert(screen_window, "kcal/mol", "hartree"))
-    keep_ids = [int(c) for c in table.index[~drop]]
-    ens = Ensemble(sampled, table, level=ff, charge=charge, multiplicity=multiplicity,
-                   solvent=solvent, provenance=ens.provenance, name=ens.name)
-    ens = ens.select(keep_ids, step=step_record(
-        "screen", started=t0, n_in=len(ids), n_out=int(ok.sum() - drop.sum()), method=method,
-        solvent=solvent, window_kcal=screen_window, failed=int((~ok).sum())))
-
-    # 3. optimize: a cheap loose pre-optimization collapses force-field minima that fall into
-    #    one tight-binding minimum; only the distinct survivors get the tight optimization
-    if preoptimize:
-        ens, positions = _optimize_stage(ens, positions, base_item, "loose", "lbfgs",
-                                         "preoptimize", method, solvent, executor, workers,
-                                         progress, store)
-        ens, positions = _intermediate_prune(ens, positions, method,
-                                             min(final_cut, energy_window or np.inf) + preopt_margin,
-                                             prune_settings, achiral)
-    ens, positions = _optimize_stage(ens, positions, base_item, convergence, "geometric",
-                                     "optimize", method, solvent, executor, workers, progress, store)
-    # 4. minimum check: symmetric structures re-optimized off their symmetry (saddles leave)
-    if check_minima:
-        ens, positions = _minimum_stage(ens, positions, base_item, convergence, method, seed,
-                                        executor, workers, progress, store)
-    opt_mol = ens.mol
-
-    # 5. integrity checks
-    t0 = time.perf_counter()
-    table = ens.raw_table
-    n_bad = 0
-    for cid in ens.ids():
-        # compare each optimized conformer with its own force-field geometry, whose stereo
-        # ETKDG enforced from the input
-        problems = integrity_problems(opt_mol, cid, stereo_signature(sampled, cid),
-                                      reference_positions=sampled.GetConformer(cid).GetPositions())
-        if problems:
-            n_bad += 1
-            table.loc[cid, ["status", "reason"]] = ["failed", "integrity: " + "; ".join(problems)]
-    ens = ens._replace(table=table, step=step_record("check", started=t0, n_in=len(ens),
-                                                      n_out=len(ens) - n_bad, changed=n_bad))
-    return _finish(ens, positions, method, energy_window, prune_settings, achiral,
-                   sampling=srep, t_start=t_start, t_max=t_max, min_population=min_population)
 
 
 # d8 centres that are square planar with four ligands (Pt(II), Pd(II), Au(III), Rh(I), Ir(I))

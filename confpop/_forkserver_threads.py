@@ -1,0 +1,11 @@
+"""Imported first among confpop's modules by the fork server of the local pools.
+
+The fork server then imports the engines (xtb, tblite: OpenMP and BLAS runtimes that read
+their thread count once, when they load) so that workers forked from it start with them
+loaded; one thread each, as in every worker (see confpop.execution). Workers set their own
+environment (the caller's, with ``OMP_NUM_THREADS=1``) in their initializer.
+"""
+
+import os
+
+os.environ["OMP_NUM_THREADS"] = "1"
