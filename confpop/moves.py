@@ -213,7 +213,7 @@ def list_moves(mol: Chem.Mol, settings: MoveSettings | None = None) -> list[Move
     >>> [m.label for m in list_moves(Chem.AddHs(Chem.MolFromSmiles("CCCC")))]
     ['C1-C2 +120', 'C1-C2 -120']
     """
-    from .torsion import rotatable_torsions
+    from .rotatable import rotatable_torsions
 
     settings = settings or MoveSettings()
     if any(a.GetNumImplicitHs() for a in mol.GetAtoms()):
@@ -249,7 +249,7 @@ def list_moves(mol: Chem.Mol, settings: MoveSettings | None = None) -> list[Move
 
 def apply_move(mol: Chem.Mol, positions, move: Move) -> np.ndarray:
     """The start structure of one move (unrelaxed), a new (n_atoms, 3) array in angstrom."""
-    from .torsion import dihedral_angle, set_dihedral
+    from .geometry import dihedral_angle, set_dihedral
 
     p = np.array(positions, dtype=float)
     if move.kind in ("torsion", "cis/trans"):

@@ -570,3 +570,24 @@ def test_standard_state_corrections():
     with pytest.raises(InputError, match=r"temperature must be finite and > 0 K, got 0\.0"):
         standard_state_correction(0.0)
     assert gas_constant("kcal/mol") == pytest.approx(R_KCAL, rel=1e-14)
+
+
+def test_numpy_logsumexp_and_entr_equal_scipys():
+    # thermo computes log-sum-exp and -p log p with numpy (no scipy import at start-up);
+    # the reference is scipy.special, an independent library
+    from scipy.special import entr, logsumexp
+
+    from confpop.thermo import _entr, _logsumexp
+
+    rng = np.random.default_rng(7)
+    x = rng.normal(scale=300.0, size=(5, 9))
+    x[1, :] = -np.inf            # a row of zero weights
+    x[2, 3] = -np.inf
+    for axis in (0, 1):
+        np.testing.assert_allclose(_logsumexp(x, axis=axis), logsumexp(x, axis=axis),
+                                   rtol=1e-13, atol=0)
+        np.testing.assert_allclose(_logsumexp(x, axis=axis, keepdims=True),
+                                   logsumexp(x, axis=axis, keepdims=True), rtol=1e-13, atol=0)
+    assert _logsumexp(np.array([1000.0, 1000.0])) == pytest.approx(1000.0 + np.log(2.0))
+    p = np.array([0.0, 1e-300, 0.25, 0.5, 1.0, -0.1])
+    np.testing.assert_allclose(_entr(p), entr(p), rtol=1e-14, atol=0)
