@@ -354,6 +354,8 @@ def draw_conformers(ens, top: int = 4, path=None, temperature: float = 298.15):
     matplotlib.figure.Figure
     """
     from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.collections import LineCollection
+    from matplotlib.colors import to_rgba_array
     from matplotlib.figure import Figure
     from rdkit import Chem
     from rdkit.Chem import rdMolAlign
@@ -384,21 +386,30 @@ def draw_conformers(ens, top: int = 4, path=None, temperature: float = 298.15):
                                 atomMap=[(a, a) for a in heavy])
         xyz = mol.GetConformer(int(cid)).GetPositions()
         p = (xyz - center) @ axes
+        # one collection of bonds and one of atoms per panel (an artist per bond and per
+        # atom made this picture 0.5 s of the README example's 3.8 s)
+        segments, colors, widths = [], [], []
         for bond in mol.GetBonds():
             a, b = bond.GetBeginAtomIdx(), bond.GetEndAtomIdx()
             if a not in shown or b not in shown:
                 continue
             color = bond_color.get((a, b)) or bond_color.get((b, a))
-            ax.plot(p[[a, b], 0], p[[a, b], 1], "-", color=color or "0.35",
-                    lw=4 if color else 1.4, zorder=1)
+            segments.append(p[[a, b]])
+            colors.append(color or "0.35")
+            widths.append(4 if color else 1.4)
+        ax.add_collection(LineCollection(segments, colors=colors, linewidths=widths, zorder=1))
         hb = desc.hbonds[desc.hbonds["conformer"] == cid]
         for r in hb.itertuples():
             ax.plot(p[[r.hydrogen, r.acceptor], 0], p[[r.hydrogen, r.acceptor], 1], ":",
                     color="magenta", lw=1.5, zorder=1)
-        for a in shown:
-            sym = mol.GetAtomWithIdx(a).GetSymbol()
-            ax.scatter(p[a, 0], p[a, 1], s=30 if sym != "H" else 12,
-                       color=_ELEMENT_COLORS.get(sym, "purple"), zorder=2)
+        atoms = sorted(shown)
+        symbols = [mol.GetAtomWithIdx(a).GetSymbol() for a in atoms]
+        # color=, not c=: grey levels given as strings ("0.25") must not be colour-mapped
+        ax.scatter(p[atoms, 0], p[atoms, 1], s=[30 if sym != "H" else 12 for sym in symbols],
+                   color=to_rgba_array([_ELEMENT_COLORS.get(sym, "purple") for sym in symbols]),
+                   zorder=2)
+        ax.autoscale_view()
+        for a, sym in zip(atoms, symbols):
             if sym != "C" or len(heavy) <= 12:
                 ax.annotate(atom_label(mol, a), (p[a, 0], p[a, 1]), fontsize=6,
                             xytext=(2, 2), textcoords="offset points")

@@ -129,3 +129,25 @@ def test_notebook_views_name_units_and_temperature(butane):
                                               atoms=(0, 1, 2, 3))
     view = unlabelled._repr_html_()
     assert "Torsion profile atoms 1, 2, 3, 4 (atoms numbered from 1" in view
+
+
+def test_conformer_picture_draws_every_shown_bond_and_atom(butane, tmp_path):
+    # one panel per conformer; in each, one line per C-C bond (butane's three; hydrogens
+    # on carbon are not drawn) and one marker per carbon, grey as in the element table
+    from matplotlib.collections import LineCollection, PathCollection
+    from matplotlib.colors import to_rgba
+
+    from confpop.plot import draw_conformers
+
+    path = tmp_path / "conformers.png"
+    fig = draw_conformers(butane, path=path)
+    panels = [ax for ax in fig.axes if ax.collections]
+    assert len(panels) == 2
+    for ax in panels:
+        lines = [c for c in ax.collections if isinstance(c, LineCollection)]
+        atoms = [c for c in ax.collections if isinstance(c, PathCollection)]
+        assert sum(len(c.get_segments()) for c in lines) == 3
+        assert len(atoms) == 1 and len(atoms[0].get_offsets()) == 4
+        # not colour-mapped: "0.25" is a grey level, not a value on a colour scale
+        assert all(tuple(c) == to_rgba("0.25") for c in atoms[0].get_facecolors())
+    assert path.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
