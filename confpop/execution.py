@@ -34,6 +34,7 @@ import logging
 import multiprocessing
 import os
 import pickle
+import signal
 import sys
 import threading
 import time
@@ -168,6 +169,9 @@ def _init_worker(marks=None, environ=None, counter=None, preload=()) -> None:
             del os.environ[name]
         os.environ.update(environ)
     os.environ["OMP_NUM_THREADS"] = "1"
+    # Ctrl-C reaches the whole process group; the caller stops the workers (terminate_pool),
+    # so a worker need not print its own traceback
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
     _one_line_warnings()
     global _marks, _slot
     _marks, _slot = None, -1
@@ -435,7 +439,8 @@ def pool_scope(workers: int | None = None, *, preload: Sequence[str] = ()):
     ----------
     workers : int, optional
         Processes of the pool; default :func:`default_workers` (capped at it, with a
-        warning). ``workers=1`` opens no pool: the calls inside run in this process.
+        warning). ``workers=1`` opens no pool: each call inside runs as it would outside
+        the block (with its own ``workers=``).
     preload : sequence of str
         Modules every worker imports when it starts, e.g. ``["confpop.pipeline"]``.
 
@@ -452,7 +457,11 @@ def pool_scope(workers: int | None = None, *, preload: Sequence[str] = ()):
     ...     first = run_units(math.sqrt, [4.0, 9.0])   # these two calls run on the
     ...     second = run_units(math.log, [1.0, 2.0])   # same two worker processes
     """
-    workers = default_workers() if workers is None else _check_workers(workers)
+    if workers is not None and (isinstance(workers, bool) or not isinstance(workers, int)
+                                or workers < 1):
+        raise InputError(f"workers must be an int >= 1, got {workers!r}")
+    # capped silently: the call that asked for more workers says so (run_units, search)
+    workers = default_workers() if workers is None else min(workers, default_workers())
     if workers == 1 or _active_pool() is not None:
         yield None
         return

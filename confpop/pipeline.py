@@ -168,7 +168,8 @@ def minimum_unit(item: dict) -> dict:
     backend = _backend_for(item)
     out = relax_to_minimum(backend, np.asarray(item["positions"]), item["energy"],
                            optimize_options={"convergence": item.get("convergence", "tight"),
-                                             "engine": item.get("engine", "geometric")},
+                                             "engine": item.get("engine", "geometric"),
+                                             "hessian_guess": item.get("hessian_guess")},
                            seed=item.get("seed", 0))
     dip = None
     if out.saddle:
@@ -610,8 +611,11 @@ def _minimum_stage(ens, positions, base_item, convergence, method, seed, executo
     symmetric = [c for c in ens.ids() if symmetry_of_conformer(mol, positions[c], perms=perms)]
     for c in ens.ids():
         table.loc[c, "minimum_check"] = "symmetric" if c in symmetric else "not symmetric"
+    from .optimize import DEFAULT_HESSIAN_GUESS
+
     items = [{**base_item, "positions": positions[c], "energy": float(table.loc[c, f"energy_{method}"]),
-              "convergence": convergence, "engine": "geometric", "seed": int(seed) % 2**31}
+              "convergence": convergence, "engine": "geometric", "seed": int(seed) % 2**31,
+              "hessian_guess": DEFAULT_HESSIAN_GUESS}  # in the store key, as for optimize
              for c in symmetric]
     outcomes = _run(minimum_unit, items, executor=executor, workers=workers, progress=progress,
                     store=store, kind="minimum-check", description="minimum check")

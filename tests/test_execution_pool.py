@@ -336,3 +336,77 @@ def test_sigterm_in_a_later_stage_of_a_scope_leaves_no_process_behind(tmp_path):
     while _session_processes(process.pid) and time.monotonic() < deadline:
         time.sleep(0.1)
     assert _session_processes(process.pid) == []
+
+
+def _session_processes(sid: int) -> list[int]:
+    found = []
+    for entry in os.listdir("/proc"):
+        if entry.isdigit():
+            try:
+                if os.getsid(int(entry)) == sid:
+                    found.append(int(entry))
+            except OSError:
+                pass
+    return found
+
+
+@pytest.mark.slow
+@pytest.mark.skipif(not os.path.isdir("/proc") or len(os.sched_getaffinity(0)) < 2,
+                    reason="needs Linux /proc and two CPUs")
+def test_ctrl_c_while_the_fork_server_loads_the_engines_prints_no_traceback(tmp_path):
+    # A terminal's Ctrl-C reaches the whole process group, fork server and workers included;
+    # they ignore it (the command stops them), so the user sees one line, no traceback
+    import subprocess
+    import sys
+
+    env = {**os.environ, "OMP_NUM_THREADS": "1"}
+    proc = subprocess.Popen([sys.executable, "-m", "confpop", "ensemble", "CCCCOC(=O)C",
+                             "--method", "gfn2", "--workers", "2", "--quiet"],
+                            env=env, cwd=tmp_path, start_new_session=True, text=True,
+                            stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
+
+    def forkserver_up():
+        for pid in _session_processes(proc.pid):
+            try:
+                with open(f"/proc/{pid}/cmdline", "rb") as handle:
+                    if b"forkserver" in handle.read():
+                        return True
+            except OSError:
+                pass
+        return False
+
+    deadline = time.monotonic() + 60
+    while not forkserver_up() and proc.poll() is None and time.monotonic() < deadline:
+        time.sleep(0.02)
+    assert proc.poll() is None, "the search ended before its pool started"
+    time.sleep(0.2)  # the fork server is importing the engines now
+    os.killpg(proc.pid, signal.SIGINT)
+    err = proc.communicate(timeout=120)[1]
+    assert proc.returncode == 130
+    assert "Traceback" not in err and "Fatal Python error" not in err, err[-2000:]
+    assert "interrupted" in err
+    deadline = time.monotonic() + 15
+    while _session_processes(proc.pid) and time.monotonic() < deadline:
+        time.sleep(0.1)
+    assert _session_processes(proc.pid) == []
+
+
+def test_pool_scope_caps_workers_silently_and_the_asking_call_warns_once():
+    # the scope is capped at the CPUs without a warning of its own: a search asked for too
+    # many workers warned twice, once from contextlib's frame
+    import warnings
+
+    from confpop.errors import ConfpopWarning
+
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        with pool_scope(workers=10_000):
+            out = run_units(abs, [-1, -2], workers=10_000)
+    about_workers = [w for w in caught if issubclass(w.category, ConfpopWarning)
+                     and "workers=10000" in str(w.message)]
+    assert len(about_workers) == 1
+    assert about_workers[0].filename == __file__
+    assert [o.value for o in out] == [1, 2]
+    with pytest.raises(Exception, match="workers must be an int"):
+        with pool_scope(workers=0):
+            pass
