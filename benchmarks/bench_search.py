@@ -136,8 +136,6 @@ def path_convergence(path: str):
     return criteria
 
 
-#: the library's own optimizer path (its initial Hessian, SCF restarts on), before set_path
-LIBRARY_PATH = _LIBRARY_GUESS
 
 
 def set_path(path: str) -> None:
@@ -368,7 +366,7 @@ def converged(names, paths, seeds, brute_source, run_id, log=print):
         smiles = bs.MOLECULES[name]
         mol = load_molecule(smiles)
         # the brute force on the library's default optimizer path
-        set_path(LIBRARY_PATH)
+        set_path("default")
         if brute_source == "run":
             earlier = (run_dir / f"{name}.brute.json").exists()
             resumed = not earlier and (run_dir / f"{name}.partial.json").exists()
