@@ -17,7 +17,8 @@ one process (serial, ``OMP_NUM_THREADS=1``), per molecule:
    the ratio CPU / floor, and the starts that ended more than 0.05 kcal/mol above the
    verytight energy (a neighbouring minimum or a saddle) or failed.
 2. **Whole search** (``--search``): ``confpop.search`` with its defaults (``--trials`` and
-   ``--rounds`` to make it smaller), once per path in ``--paths``, with the CPU of the search,
+   ``--rounds`` to make it smaller, ``--move-parents`` and ``--move-iterations`` to limit
+   the move search), once per path in ``--paths``, with the CPU of the search,
    the number of gradient calls, the engine floor and the ratio, and median/p90 calls of
    the tight optimizations (minimum check included), and the CPU spent inside engine calls
    against the rest (sampling, screening bookkeeping, geomeTRIC's own step work, pruning).
@@ -25,7 +26,8 @@ one process (serial, ``OMP_NUM_THREADS=1``), per molecule:
 Goals (issue "Speed"): CPU / floor <= 1.3; median calls <= 16 at 31 atoms.
 
     nice -n 10 python benchmarks/bench_search.py [--starts 30] [--only ester] [--paths reference,model]
-                                                 [--search] [--trials 60 --rounds 1]
+                                                 [--search] [--trials 60 --rounds 1
+                                                  --move-parents 10 --move-iterations 1]
 
 The ``--converged`` mode (:func:`converged`) measures the CPU time to a converged ensemble
 against the brute force of ``benchmarks/bench_sampling.py``, per optimizer path:
@@ -237,7 +239,8 @@ def optimizer_paths(name, smiles, paths, n_starts, seed, meter):
     return out
 
 
-def whole_search(name, smiles, paths, seed, trials, rounds, meter):
+def whole_search(name, smiles, paths, seed, trials, rounds, meter, move_parents=None,
+                 move_iterations=None):
     out = []
     mol = load_molecule(smiles)
     for p in paths:
@@ -248,6 +251,15 @@ def whole_search(name, smiles, paths, seed, trials, rounds, meter):
             kw["n_trials"] = trials
         if rounds:
             kw["max_rounds"] = rounds
+        if move_parents or move_iterations:
+            from confpop.moves import MoveSettings
+
+            limits = {}
+            if move_parents:
+                limits["max_parents"] = move_parents
+            if move_iterations:
+                limits["max_iterations"] = move_iterations
+            kw["moves"] = MoveSettings(**limits)
         t0, w0 = time.process_time(), time.perf_counter()
         ens = cp.search(smiles, **kw)
         cpu, wall = time.process_time() - t0, time.perf_counter() - w0
@@ -543,6 +555,10 @@ def main() -> None:
     ap.add_argument("--no-paths", action="store_true", help="skip the optimizer-path comparison")
     ap.add_argument("--trials", type=int, default=None, help="search: trials per round")
     ap.add_argument("--rounds", type=int, default=None, help="search: largest number of rounds")
+    ap.add_argument("--move-parents", type=int, default=None,
+                    help="search: most conformers the move search moves (MoveSettings.max_parents)")
+    ap.add_argument("--move-iterations", type=int, default=None,
+                    help="search: most move iterations (MoveSettings.max_iterations)")
     ap.add_argument("--converged", action="store_true",
                     help="CPU to a converged ensemble (two seeds) against bench_sampling.py's "
                          "brute force, per optimizer path; 'bench_search.py --converged --help' "
@@ -568,7 +584,8 @@ def main() -> None:
                       f"one gradient {1000 * r[11]:.1f} ms", flush=True)
             opt_rows += rows
         if args.search:
-            rows = whole_search(name, smiles, paths, args.seed, args.trials, args.rounds, meter)
+            rows = whole_search(name, smiles, paths, args.seed, args.trials, args.rounds, meter,
+                                args.move_parents, args.move_iterations)
             for r in rows:
                 print(f"  {r[0]} search [{r[1]}]: CPU {r[2]:.1f} s (wall {r[3]:.1f} s), "
                       f"{r[4]} gradient calls + {r[5]} single points, floor {r[6]:.1f} s, "
