@@ -64,6 +64,35 @@ WORKER_DIED = "worker process died"
 # a pool that breaks this many times in a row with no unit running is given up
 _MAX_IDLE_BREAKS = 3
 _OPENMP_RUNTIMES = ("libgomp", "libiomp", "libomp")
+#: what a script must do so that its workers can start (Python's multiprocessing rule: a
+#: "forkserver" or "spawn" worker imports the main script before it runs anything)
+MAIN_GUARD_HINT = ("if this runs from a script, put its confpop calls under "
+                   "'if __name__ == \"__main__\":' (each worker process imports the script "
+                   "first, and an unguarded call would start a search inside every worker), "
+                   "or pass workers=1")
+
+
+def _refuse_in_worker_start() -> None:
+    """Stop a worker process that is importing the caller's script (see MAIN_GUARD_HINT)
+    when that import reaches a confpop call that would start another pool.
+
+    One line on stderr and the worker exits; without this the worker printed
+    multiprocessing's 25-line bootstrapping traceback, and the caller saw only a broken pool.
+    The caller's own error (the pool broke before any unit started) then carries the hint.
+    """
+    if getattr(multiprocessing.current_process(), "_inheriting", False):
+        print(f"confpop: worker {os.getpid()} stopped: the script it imports calls confpop at "
+              "its top level (put those calls under 'if __name__ == \"__main__\":')",
+              file=sys.stderr, flush=True)
+        raise SystemExit(1)
+
+
+def _pool_broke_hint() -> str:
+    """The hint for a pool whose workers never started, when the caller is a script."""
+    main = sys.modules.get("__main__")
+    if START_METHOD != "fork" and getattr(main, "__file__", None):
+        return f"; {MAIN_GUARD_HINT}"
+    return ""
 
 
 @dataclass(frozen=True)
@@ -284,6 +313,7 @@ def local_executor(workers: int | None = None) -> ProcessPoolExecutor:
         Shut it down (or use it in a ``with`` block) when done.
     """
     workers = default_workers() if workers is None else _check_workers(workers)
+    _refuse_in_worker_start()
     return ProcessPoolExecutor(max_workers=workers,
                                mp_context=multiprocessing.get_context(START_METHOD),
                                initializer=_init_worker, initargs=(None, dict(os.environ)))
@@ -352,6 +382,7 @@ class _LocalPool:
         if self.executor is not None and getattr(self.executor, "_broken", False):
             self.discard()  # a worker died between two calls
         if self.executor is None:
+            _refuse_in_worker_start()
             if self.preload and _FORKSERVER_PRELOAD and START_METHOD == "forkserver":
                 _ask_forkserver_to_preload(self.preload)
             self.marks = self.context.RawArray("q", self.workers)
@@ -692,7 +723,7 @@ class _Run:
                 if idle_breaks >= _MAX_IDLE_BREAKS:
                     message = (f"{WORKER_DIED}: the local pool broke {idle_breaks} times in a row "
                                "before any unit started (can the workers import the function "
-                               "and unpickle the items?)")
+                               f"and unpickle the items?){_pool_broke_hint()}")
                     for i in (*quarantine, *queue):
                         self.failed(i, "BrokenProcessPool", message, 0.0)
                     queue.clear()

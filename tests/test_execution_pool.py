@@ -410,3 +410,42 @@ def test_pool_scope_caps_workers_silently_and_the_asking_call_warns_once():
     with pytest.raises(Exception, match="workers must be an int"):
         with pool_scope(workers=0):
             pass
+
+
+UNGUARDED_SCRIPT = """
+from confpop.execution import run_units
+
+outcomes = run_units(abs, [-1, -2], workers=2)  # at the top level: no __main__ guard
+print("RESULT", outcomes[0].ok, outcomes[0].error_message)
+"""
+
+
+@pytest.mark.skipif(len(os.sched_getaffinity(0)) < 2, reason="needs 2 usable cores")
+def test_a_script_without_the_main_guard_gets_one_line_per_worker_and_the_fix_in_its_error(tmp_path):
+    # Python's multiprocessing rule ("Safe importing of main module", its documentation):
+    # a forkserver or spawn worker imports the caller's script first. An unguarded call
+    # used to kill every worker with multiprocessing's bootstrapping traceback and leave the
+    # caller with "the local pool broke"; now each worker says why in one line and the
+    # caller's error names the fix.
+    import subprocess
+    import sys
+
+    script = tmp_path / "unguarded.py"
+    script.write_text(UNGUARDED_SCRIPT)
+    out = subprocess.run([sys.executable, str(script)], capture_output=True, text=True,
+                         timeout=120, cwd=tmp_path)
+    assert out.returncode == 0, out.stderr[-2000:]
+    assert "Traceback" not in out.stderr, out.stderr[-2000:]
+    worker_lines = [line for line in out.stderr.splitlines() if "stopped: the script" in line]
+    assert worker_lines and all("__name__ == \"__main__\"" in line for line in worker_lines)
+    result = next(line for line in out.stdout.splitlines() if line.startswith("RESULT"))
+    assert result.startswith("RESULT False")
+    assert "if __name__ == \"__main__\":" in result and "workers=1" in result
+    # the guarded script runs (the same call under the guard)
+    guarded = tmp_path / "guarded.py"
+    guarded.write_text("from confpop.execution import run_units\n"
+                       "if __name__ == '__main__':\n"
+                       "    print('RESULT', [o.value for o in run_units(abs, [-1, -2], workers=2)])\n")
+    out = subprocess.run([sys.executable, str(guarded)], capture_output=True, text=True,
+                         timeout=120, cwd=tmp_path)
+    assert out.returncode == 0 and "RESULT [1, 2]" in out.stdout, out.stderr[-2000:]
