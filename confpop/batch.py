@@ -695,20 +695,16 @@ def _run_molecules(entries, settings, executor, workers, store, progress, writer
 
 
 def _run_conformers(entries, settings, executor, workers, store, progress, writer) -> None:
-    from .execution import default_workers, local_executor, terminate_pool
-    from .pipeline import search
+    from .execution import default_workers
+    from .pipeline import search, search_pool
 
-    # One local pool for the whole batch: a search given workers= makes a new pool for each
-    # of its stages, and every new pool's workers import the engines again (seconds each).
+    # One local pool for the whole batch (pool_scope, its workers preloaded with the engine):
+    # every search and stage inside runs on it, and a worker that dies is replaced (the unit
+    # it ran is charged one attempt) instead of failing the molecules after it.
     n_local = (default_workers() if workers is None else workers) if executor is None else 1
-    pool = local_executor(n_local) if n_local > 1 else None
-    try:
+    where = {"executor": executor} if executor is not None else {"workers": n_local}
+    with search_pool(settings["method"], executor, n_local):
         for k, entry in enumerate(entries):
-            if pool is not None and getattr(pool, "_broken", False):
-                pool.shutdown(wait=False)  # a worker died: the pool cannot be used again
-                pool = local_executor(n_local)
-            where = {"executor": executor} if executor is not None else \
-                {"executor": pool} if pool is not None else {"workers": 1}
             start = time.perf_counter()
             try:
                 molecule = _decode(_encode(entry["molecule"]))
@@ -722,14 +718,6 @@ def _run_conformers(entries, settings, executor, workers, store, progress, write
             else:
                 value = {"ok": True, "ensemble": ens, "seconds": time.perf_counter() - start}
             writer.finished(k, value)
-    except BaseException:
-        if pool is not None:  # do not wait for running calculations after an interrupt
-            terminate_pool(pool)
-            pool = None
-        raise
-    finally:
-        if pool is not None:
-            pool.shutdown(wait=True)
 
 
 # ------------------------------------------------------------------------------ collecting

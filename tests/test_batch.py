@@ -445,3 +445,28 @@ def test_temporary_files_of_a_killed_run_are_cleaned_only_when_ours(tmp_path):
     search_many({"ethanol": "CCO"}, method="mmff94s", workers=1, out_dir=out)
     assert [p.exists() for p in left] == [False, False]
     assert [p.exists() for p in foreign] == [True, True]
+
+
+@pytest.mark.skipif(len(os.sched_getaffinity(0)) < 2, reason="needs 2 usable cores")
+def test_conformer_parallel_batch_runs_every_search_on_one_pool_with_the_serial_result(monkeypatch):
+    # parallel="conformers" shares one pool_scope between the molecules' searches (a worker
+    # that dies is replaced there); the summary equals the serial batch's (the same GFN2
+    # calculations in another process)
+    pytest.importorskip("xtb.interface")
+    import confpop.execution as execution
+
+    starts = []
+    original = execution._LocalPool.get
+
+    def counting(self):
+        if self.executor is None:
+            starts.append(self)
+        return original(self)
+
+    monkeypatch.setattr(execution._LocalPool, "get", counting)
+    molecules = {"ethanol": "CCO", "ether": "COC"}
+    pooled = search_many(molecules, method="gfn2", workers=2, parallel="conformers", seed=3)
+    serial = search_many(molecules, method="gfn2", workers=1, parallel="conformers", seed=3)
+    assert pooled.parallel == "conformers"
+    assert len(starts) == 1  # one pool for both molecules and all their stages
+    pd.testing.assert_frame_equal(comparable(pooled.summary), comparable(serial.summary))
