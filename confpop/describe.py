@@ -302,7 +302,8 @@ def cremer_pople(positions) -> dict:
     -------
     dict
         ``Q`` (total amplitude, angstrom), ``q`` ({m: q_m}), ``phi`` ({m: phi_m, degrees in
-        [0, 360)}), and for N = 6 ``theta`` (degrees, 0..180).
+        [0, 360)}), ``z`` (each atom's signed distance from the mean plane along n, angstrom)
+        and for N = 6 ``theta`` (degrees, 0..180).
 
     Notes
     -----
@@ -328,7 +329,7 @@ def cremer_pople(positions) -> dict:
         phi[m] = float(np.degrees(np.arctan2(s, c)) % 360.0)
     if n % 2 == 0:
         q[n // 2] = float(np.sqrt(1.0 / n) * np.sum(z * (-1.0) ** j))
-    out = {"Q": float(np.sqrt(np.sum(z ** 2))), "q": q, "phi": phi}
+    out = {"Q": float(np.sqrt(np.sum(z ** 2))), "q": q, "phi": phi, "z": z.tolist()}
     if n == 6:
         out["theta"] = float(np.degrees(np.arctan2(q[2], q[3])))
     return out
@@ -371,6 +372,39 @@ def pucker_name(coords: dict, size: int) -> str:
     return ""
 
 
+#: how the side of an out-of-plane ring atom is named (IUPAC conformational nomenclature of
+#: rings: "above" is the side from which the ring's numbering runs clockwise)
+SIDE_CONVENTION = ("above/below: the side of the ring's mean plane from which its atoms, in "
+                   "the order of the ring's label, run clockwise / anticlockwise")
+
+
+def ring_form(mol: Chem.Mol, ring, coords: dict) -> str:
+    """The pucker name, and for a five-membered ring which atoms leave the plane, on which
+    side: "envelope, C8 above" (the flap), "twist, C7 above, C8 below" (the twisted bond).
+
+    Two envelopes of one ring with the same flap on opposite sides (a ring flip: the
+    substituents swap between pseudo-axial and pseudo-equatorial) have the same pucker name
+    but are different conformers; this tells them apart. The atoms are those of largest
+    displacement from the Cremer-Pople mean plane (an ideal envelope has its flap at
+    cos = 1 and no other atom above cos 36 deg = 0.81 of it; an ideal twist has its two
+    twisted atoms at +-cos 18 deg = 0.95 and the next at 0.59). The side follows
+    :data:`SIDE_CONVENTION`: the mean-plane normal n of :func:`cremer_pople` points to the side
+    from which the atoms, in ring order, run clockwise.
+    """
+    name = pucker_name(coords, len(ring))
+    if len(ring) != 5 or name not in ("envelope", "twist"):
+        return name
+    z = np.asarray(coords["z"], float)
+    largest = np.argsort(-np.abs(z), kind="stable")
+
+    def where(j):
+        return f"{atom_label(mol, ring[j])} {'above' if z[j] > 0 else 'below'}"
+    if name == "envelope":
+        return f"envelope, {where(largest[0])}"
+    first, second = sorted(largest[:2])
+    return f"twist, {where(first)}, {where(second)}"
+
+
 def _ordered_ring(mol, ring) -> list[int]:
     """Ring atoms in bond order, starting at the lowest index, going to its lower neighbour."""
     members = set(ring)
@@ -401,7 +435,8 @@ def ring_puckers(mol: Chem.Mol, conf_ids=None) -> pd.DataFrame:
     pandas.DataFrame
         One row per (conformer, ring): ``conformer``, ``ring`` (1-based label, e.g.
         "C1-C2-C3-C4-C5-C6"), ``size``, ``Q_angstrom``, ``theta_deg`` (6-rings),
-        ``phi2_deg``, ``pucker``.
+        ``phi2_deg``, ``pucker`` (the name of the ideal form) and ``form`` (:func:`ring_form`:
+        the pucker name, for a five-membered ring with the out-of-plane atoms and their side).
     """
     ids = [c.GetId() for c in mol.GetConformers()] if conf_ids is None else [int(c) for c in conf_ids]
     rows = []
@@ -410,9 +445,10 @@ def ring_puckers(mol: Chem.Mol, conf_ids=None) -> pd.DataFrame:
             cp = cremer_pople(mol.GetConformer(cid).GetPositions()[ring])
             rows.append({"conformer": cid, "ring": _labels(mol, ring), "size": len(ring),
                          "Q_angstrom": cp["Q"], "theta_deg": cp.get("theta", np.nan),
-                         "phi2_deg": cp["phi"][2], "pucker": pucker_name(cp, len(ring))})
+                         "phi2_deg": cp["phi"][2], "pucker": pucker_name(cp, len(ring)),
+                         "form": ring_form(mol, ring, cp)})
     return pd.DataFrame(rows, columns=["conformer", "ring", "size", "Q_angstrom", "theta_deg",
-                                       "phi2_deg", "pucker"])
+                                       "phi2_deg", "pucker", "form"])
 
 
 def ring_substituents(mol: Chem.Mol, conf_ids=None, *, axial: float = AXIAL_DEGREES) -> pd.DataFrame:
@@ -466,8 +502,9 @@ def ring_substituents(mol: Chem.Mol, conf_ids=None, *, axial: float = AXIAL_DEGR
 
 
 def _ring_labels(rings: pd.DataFrame, subs: pd.DataFrame) -> pd.Series:
-    """Per (conformer, ring) row of ``rings``: the pucker name, followed by the positions of
-    the substituents whose position differs between the conformers ("chair, N3 ax")."""
+    """Per (conformer, ring) row of ``rings``: the ring's form (:func:`ring_form`), followed by
+    the positions of the substituents whose position differs between the conformers
+    ("chair, N3 ax", "envelope, C8 above")."""
     if not len(rings):
         return pd.Series([], dtype=object)
     varying = {}
@@ -479,7 +516,7 @@ def _ring_labels(rings: pd.DataFrame, subs: pd.DataFrame) -> pd.Series:
     for r in rings.itertuples():
         extra = [f"{lab} {where[(r.conformer, r.ring, lab)]}" for lab in varying.get(r.ring, [])
                  if (r.conformer, r.ring, lab) in where]
-        out.append(", ".join([r.pucker] + extra))
+        out.append(", ".join([r.form] + extra))
     return pd.Series(out, index=rings.index, dtype=object)
 
 
@@ -605,7 +642,7 @@ class ConformerDescription:
 
         return {
             "torsions_deg": {t.label: round(t.values[cid], 1) for t in self.torsions},
-            "rings": {r.ring: {"pucker": r.pucker, "Q_angstrom": round(float(r.Q_angstrom), 3),
+            "rings": {r.ring: {"pucker": r.pucker, "form": r.form, "Q_angstrom": round(float(r.Q_angstrom), 3),
                                "theta_deg": None if np.isnan(r.theta_deg) else round(float(r.theta_deg), 1),
                                "phi2_deg": round(float(r.phi2_deg), 1),
                                "shown": getattr(r, "label", r.pucker),
@@ -643,10 +680,11 @@ class ConformerDescription:
         return out
 
     def ring_summary(self) -> list[str]:
-        """Rings whose pucker is the same in every conformer, as 'ring X: chair'."""
+        """Rings whose form is the same in every conformer, as 'ring X: chair'."""
         out = []
+        key = "form" if "form" in self.rings.columns else "pucker"
         for ring, sub in self.rings.groupby("ring", sort=False):
-            names = set(sub["pucker"])
+            names = set(sub[key])
             if len(names) == 1:
                 out.append(f"ring {ring}: {names.pop()} in every conformer")
         return out

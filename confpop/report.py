@@ -147,8 +147,11 @@ def _pucker_sentence(ens, populations) -> str:
              for ring, shares in describe_conformers(ens).pucker_shares(populations).items()]
     if not parts:
         return ""
+    from .describe import SIDE_CONVENTION
+
     return ("<p>Ring puckers (Cremer-Pople; ax/eq: axial or equatorial substituent, where it "
-            "differs between conformers), with their share of the population: "
+            f"differs between conformers; {SIDE_CONVENTION}), with their share of the "
+            "population: "
             + html.escape(". ".join(parts)) + ".</p>")
 
 

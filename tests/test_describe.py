@@ -11,7 +11,7 @@ from rdkit.Chem import AllChem, rdMolTransforms
 
 from confpop.describe import HBOND_ANGLE, HBOND_DISTANCE
 from confpop.describe import (atom_label, cremer_pople, describe_conformers,
-                              distinguishing_torsions, hydrogen_bonds, pucker_name)
+                              distinguishing_torsions, hydrogen_bonds, pucker_name, ring_form)
 
 
 def _ring(n, q, phi, q_half=0.0, radius=1.45):
@@ -61,6 +61,75 @@ def test_five_ring_envelope_and_twist(phi, name):
     assert cp["Q"] == pytest.approx(0.43, abs=1e-9)
     assert pucker_name(cp, 5) == name
     assert pucker_name(cremer_pople(_ring(5, {2: 0.02}, {2: phi})), 5) == "planar"
+
+
+def _clockwise_side(xyz, k) -> str:
+    """Brute force, without the mean plane: atom k is "above" when a viewer on its side sees
+    the ring atoms, in order, run clockwise (IUPAC conformational nomenclature of rings, from
+    memory), i.e. when the ring's vector area sum(p_i x p_(i+1)) points away from it."""
+    centred = xyz - xyz.mean(axis=0)
+    area = sum(np.cross(centred[i], centred[(i + 1) % len(xyz)]) for i in range(len(xyz)))
+    return "above" if area @ centred[k] < 0 else "below"
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_five_ring_envelopes_name_the_flap_and_its_side_as_a_viewer_sees_it(seed):
+    # an envelope built by hand (four atoms of a regular pentagon in one plane, one lifted),
+    # turned and shifted at random: the flap atom and its side from the vector area
+    mol = Chem.MolFromSmiles("C1CCCC1")
+    rng = np.random.default_rng(seed)
+    k = int(rng.integers(5))
+    lift = float(rng.choice([-1.0, 1.0]) * rng.uniform(0.4, 0.7))
+    angle = 2 * np.pi * np.arange(5) / 5
+    flat = np.column_stack([1.25 * np.cos(angle), 1.25 * np.sin(angle), np.zeros(5)])
+    flat[k, 2] = lift
+    rotation, _ = np.linalg.qr(rng.normal(size=(3, 3)))
+    xyz = flat @ rotation.T + rng.normal(size=3)
+    form = ring_form(mol, list(range(5)), cremer_pople(xyz))
+    assert form == f"envelope, C{k + 1} {_clockwise_side(xyz, k)}"
+    # the mirror image (or the ring read the other way round) puts the flap on the other side
+    other = "below" if form.endswith("above") else "above"
+    assert ring_form(mol, list(range(5)), cremer_pople(xyz * [1, 1, -1])) == f"envelope, C{k + 1} {other}"
+
+
+def test_five_ring_twists_name_the_twisted_bond_and_both_sides():
+    # the ideal twist (Cremer & Pople 1975: phi_2 = 18 + 36k): its two atoms of largest
+    # displacement are bonded and on opposite sides
+    mol = Chem.MolFromSmiles("C1CCCC1")
+    for k in range(10):
+        xyz = _ring(5, {2: 0.43}, {2: TWIST_5 + k * ENVELOPE_5})
+        form = ring_form(mol, list(range(5)), cremer_pople(xyz))
+        name, first, second = form.split(", ")
+        assert name == "twist"
+        (a, side_a), (b, side_b) = first.split(), second.split()
+        ia, ib = int(a[1:]) - 1, int(b[1:]) - 1
+        assert (ib - ia) % 5 in (1, 4) and {side_a, side_b} == {"above", "below"}
+        assert side_a == _clockwise_side(xyz, ia) and side_b == _clockwise_side(xyz, ib)
+    # six-membered rings keep their plain name
+    assert ring_form(Chem.MolFromSmiles("C1CCCCC1"), list(range(6)),
+                     cremer_pople(_ring(6, {2: 0.0}, {2: 0.0}, q_half=0.6))) == "chair"
+
+
+def test_the_two_envelopes_of_a_lactone_are_told_apart_in_the_description():
+    # the gamma-lactone's ring flip (flap C8 on one side or the other) used to read
+    # "envelope" in both conformers; MMFF94s conformers of both kinds, and the form of each
+    # agrees with the brute-force side of its flap
+    mol = Chem.AddHs(Chem.MolFromSmiles("OC[C@H]1OC(=O)CC1"))
+    AllChem.EmbedMultipleConfs(mol, 30, randomSeed=11)
+    AllChem.MMFFOptimizeMoleculeConfs(mol)
+    desc = describe_conformers(mol)
+    rings = desc.rings
+    assert set(rings["pucker"]) <= {"envelope", "twist"}
+    envelopes = rings[rings["pucker"] == "envelope"]
+    assert {f.rsplit(" ", 1)[1] for f in envelopes["form"]} == {"above", "below"}
+    ring = [2, 3, 4, 6, 7]  # ring order of the label C3-O4-C5-C7-C8
+    assert envelopes["ring"].iloc[0] == "C3-O4-C5-C7-C8"
+    for r in envelopes.itertuples():
+        flap = r.form.split(", ")[1].split()[0]
+        xyz = mol.GetConformer(r.conformer).GetPositions()[ring]
+        k = [atom_label(mol, a) for a in ring].index(flap)
+        assert r.form.endswith(_clockwise_side(xyz, k))
+    assert desc.table["ring_C3-O4-C5-C7-C8"].nunique() > 1
 
 
 def test_cyclohexane_is_a_chair_with_the_known_amplitude():
