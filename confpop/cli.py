@@ -1344,12 +1344,13 @@ def _run_scan(args: argparse.Namespace) -> int:
 
 
 def _scan_work(args, temps, unit, workers, folder) -> int:
+    import contextlib
     import time
 
     from . import kinetics
     from .describe import LABEL_CONVENTION, atom_label
-    from .execution import local_executor
     from .molecule import load_molecule
+    from .pipeline import search_pool
     from .describe import one_based_labels
     from .schema import solvent_model
     from .torsion import _check_dihedral_atoms, scan_torsion, torsion_for_bond
@@ -1385,22 +1386,21 @@ def _scan_work(args, temps, unit, workers, folder) -> int:
     _heartbeat(progress, f"scanning {label} ({'rigid' if args.rigid else 'relaxed'}, "
                          f"step {args.step:g} deg)")
     started = time.perf_counter()
-    executor = local_executor(workers) if (workers > 1 and not args.rigid) else None
+    # the up and down walks on one pool of preloaded workers, replaced if one dies
+    scope = search_pool(args.method, None, workers) if (workers > 1 and not args.rigid) \
+        else contextlib.nullcontext()
     try:
-        try:
+        with scope:
             profile = scan_torsion(mol, atoms, method=args.method, solvent=args.solvent,
                                    step=args.step, relaxed=not args.rigid,
-                                   convergence=args.convergence, executor=executor, unit=unit,
+                                   convergence=args.convergence, unit=unit,
                                    charge=args.charge, multiplicity=args.multiplicity,
                                    store=args.store)
-        except InputError as exc:
-            text = one_based_labels(str(exc))
-            for pattern, replacement in _SCAN_TERMS:
-                text = re.sub(pattern, replacement, text)
-            raise InputError(text) from None
-    finally:
-        if executor is not None:
-            executor.shutdown()
+    except InputError as exc:
+        text = one_based_labels(str(exc))
+        for pattern, replacement in _SCAN_TERMS:
+            text = re.sub(pattern, replacement, text)
+        raise InputError(text) from None
     seconds = time.perf_counter() - started
     _heartbeat(progress, f"scan done in {seconds:.1f} s")
     title = (f"{label} of {args.input if len(args.input) <= 40 else args.input[:37] + '...'}  "

@@ -181,9 +181,13 @@ class _Runner:
     def run(self, function, items, what, *, kind="torsion-walk") -> list:
         from .jobs import run_jobs
 
+        from .execution import _active_pool
+
         keys = [self._key(it, kind) for it in items] if self.store is not None else None
+        # on the given executor, or on the pool of an enclosing pool_scope, else here
+        local = 1 if self.executor is None and _active_pool() is None else None
         outcomes = run_jobs(function, items, keys=keys, store=self.store,
-                            executor=self.executor, workers=None if self.executor else 1)
+                            executor=self.executor, workers=local)
         for outcome in outcomes:
             if not outcome.ok:
                 if outcome.error_type == "InputError":
@@ -284,7 +288,8 @@ def scan_torsion(molecule, atoms, method=_SCAN.method, solvent=_SCAN.solvent,
         If given, the up and down walks of a relaxed scan run as two units on it, and the
         points added at extrema one unit each, through :func:`confpop.execution.run_units`
         (set ``OMP_NUM_THREADS=1`` in its workers, as
-        :func:`confpop.execution.local_executor` does). Default: all in this process.
+        :func:`confpop.execution.local_executor` does). Default: on the pool of an enclosing
+        :func:`confpop.execution.pool_scope` (the command line's), else all in this process.
     unit : str
         Energy unit of the profile.
     charge, multiplicity : int, optional

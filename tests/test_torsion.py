@@ -562,3 +562,29 @@ def test_cli_scan_cautions_number_atoms_from_one(capsys):
     assert len(scan) == 1
     assert scan[0].startswith("confpop: warning: scan of O1-C2-C3-O4: the up and down walks")
     assert all(line.startswith("confpop: ") for line in err), err
+
+
+def test_a_scan_inside_a_pool_scope_runs_its_walks_on_that_pool_with_the_serial_profile(monkeypatch):
+    # the command line's scan opens a pool_scope (preloaded workers, rebuilt after a worker
+    # death) and passes no executor: the walks must go to that pool, and give the profile of
+    # the same calculations in this process (an independent run of the same units)
+    import confpop.execution as execution
+    from confpop.execution import pool_scope
+
+    uses = []  # the pool's executor handed out: once when the scope opens, then per call
+    original = execution._LocalPool.get
+
+    def counting(self):
+        uses.append(self)
+        return original(self)
+
+    monkeypatch.setattr(execution._LocalPool, "get", counting)
+    atoms = (0, 1, 2, 3)
+    serial = scan_torsion("CCCC", atoms, method="mmff94s", step=60, convergence="loose")
+    assert not uses  # outside a scope: in this process
+    with pool_scope(2):
+        opened = len(uses)
+        pooled = scan_torsion("CCCC", atoms, method="mmff94s", step=60, convergence="loose")
+    assert len(uses) > opened and len(set(map(id, uses))) == 1  # the walks ran on that pool
+    np.testing.assert_allclose(pooled.angles, serial.angles)
+    np.testing.assert_allclose(pooled.energies, serial.energies, atol=1e-9)
