@@ -1349,8 +1349,9 @@ def _scan_work(args, temps, unit, workers, folder) -> int:
 
     from . import kinetics
     from .describe import LABEL_CONVENTION, atom_label
+    from .execution import pool_scope
     from .molecule import load_molecule
-    from .pipeline import search_pool
+    from .pipeline import FORCE_FIELDS, search_pool
     from .describe import one_based_labels
     from .schema import solvent_model
     from .torsion import _check_dihedral_atoms, scan_torsion, torsion_for_bond
@@ -1387,8 +1388,10 @@ def _scan_work(args, temps, unit, workers, folder) -> int:
                          f"step {args.step:g} deg)")
     started = time.perf_counter()
     # the up and down walks on one pool of preloaded workers, replaced if one dies
-    scope = search_pool(args.method, None, workers) if (workers > 1 and not args.rigid) \
-        else contextlib.nullcontext()
+    scope = contextlib.nullcontext()
+    if workers > 1 and not args.rigid:  # a force-field scan gets a pool without preloading
+        scope = (pool_scope(workers) if str(args.method).lower() in FORCE_FIELDS
+                 else search_pool(args.method, None, workers))
     try:
         with scope:
             profile = scan_torsion(mol, atoms, method=args.method, solvent=args.solvent,
