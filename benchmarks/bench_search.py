@@ -126,6 +126,9 @@ _CONTINUATION = None
 RMSD_LIMIT = 0.05
 # the library's own initial Hessian, before set_path changes it
 _LIBRARY_GUESS = getattr(copt, "DEFAULT_HESSIAN_GUESS", "geometric")
+# the library's own Hessian update (steps in its multi-secant update), read at the first
+# set_path
+_LIBRARY_SECANT_PAIRS = None
 
 
 def path_convergence(path: str):
@@ -149,8 +152,10 @@ def path_convergence(path: str):
 
 def set_path(path: str) -> None:
     """Select an optimizer path: an initial Hessian, "+norestart" for fresh SCF guesses,
-    "+oldsteps" for geomeTRIC's own step work (before the accelerated step work), "@preset"
-    for the convergence preset (see :func:`path_convergence`).
+    "+oldsteps" for geomeTRIC's own step work (before the accelerated step work), "+msec"
+    for the multi-secant Hessian update over the last 3 steps or "+bfgs" for geomeTRIC's
+    one-step BFGS update (:data:`confpop.geometric_fast._SECANT_PAIRS`), "@preset" for the
+    convergence preset (see :func:`path_convergence`).
 
     "reference" is geomeTRIC's own guess Hessian with a fresh SCF guess at every step (the
     optimizer before this work); old confpop versions only have that one. "default" is the
@@ -162,18 +167,29 @@ def set_path(path: str) -> None:
     from confpop.backends.base import Backend
 
     path = path.partition("@")[0]
-    if path == "default":
-        path = _LIBRARY_GUESS
     guess, *flags = path.split("+")
+    if guess == "default":
+        guess = _LIBRARY_GUESS
     restart = "norestart" not in flags
     if guess == "reference":  # the yardstick stays what it was before the step work too
-        flags.append("oldsteps")
+        flags += ["oldsteps", "bfgs"]
     try:  # "+oldsteps": geomeTRIC's own step work (confpop.geometric_fast._FAST_STEPS)
         import confpop.geometric_fast as fast
         if hasattr(fast, "_FAST_STEPS"):
             fast._FAST_STEPS = "oldsteps" not in flags
         elif "oldsteps" in flags:
             sys.exit(f"this confpop has no optimizer path {path!r}")
+        # "+msec": the multi-secant Hessian update over the last 3 steps, "+bfgs": geomeTRIC's
+        # one-step BFGS update; neither: the library's own (_SECANT_PAIRS)
+        secant = [f for f in flags if f in ("msec", "bfgs")]
+        if secant and not hasattr(fast, "_SECANT_PAIRS"):
+            sys.exit(f"this confpop has no optimizer path {path!r}")
+        if hasattr(fast, "_SECANT_PAIRS"):
+            global _LIBRARY_SECANT_PAIRS
+            if _LIBRARY_SECANT_PAIRS is None:
+                _LIBRARY_SECANT_PAIRS = fast._SECANT_PAIRS
+            fast._SECANT_PAIRS = (3 if "msec" in secant else 1 if "bfgs" in secant
+                                  else _LIBRARY_SECANT_PAIRS)
     except ImportError:
         pass
     if guess == "reference":
@@ -605,8 +621,10 @@ def main() -> None:
     ap.add_argument("--starts", type=int, default=30, help="starts per molecule for the paths")
     ap.add_argument("--paths", default="reference,default",
                     help="optimizer paths, comma-separated: an initial Hessian (geometric, lindh, "
-                         "lindh-primitive) with '+norestart' for fresh SCF guesses, '+oldsteps' for "
-                         "geomeTRIC's own step work and '@preset[/key=value...]' for the "
+                         "lindh-primitive, lindh-primitive-soft) with '+norestart' for fresh SCF "
+                         "guesses, '+oldsteps' for geomeTRIC's own step work, '+msec' for the "
+                         "multi-secant Hessian update over the last 3 steps, '+bfgs' for "
+                         "geomeTRIC's one-step BFGS update and '@preset[/key=value...]' for the "
                          "convergence (default: the search's, tight); reference = "
                          "geometric+norestart+oldsteps, the optimizer before the speed work; "
                          "default = the search's defaults")
