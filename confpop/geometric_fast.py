@@ -165,7 +165,7 @@ def coordinate_classes(hessian_guess: str = "geometric", *, accelerate: bool = T
 
     Parameters
     ----------
-    hessian_guess : {"geometric", "lindh", "lindh-primitive"}
+    hessian_guess : {"geometric", "lindh", "lindh-primitive", "lindh-primitive-soft"}
         Initial Hessian (see :data:`HESSIAN_GUESSES`); only the accelerated classes can
         use a model Hessian.
     accelerate : bool

@@ -353,11 +353,12 @@ def optimize_positions(backend: Backend, positions, *, convergence="tight", max_
         coordinates (no constraints; stops when the largest gradient component is below
         ``gmax`` or the relative energy change falls below ``energy/|E|``; it can stop
         early on flat torsions, see the module docstring). Case is ignored.
-    hessian_guess : {"geometric", "lindh", "lindh-primitive"}, optional
+    hessian_guess : {"geometric", "lindh", "lindh-primitive", "lindh-primitive-soft"}, optional
         Initial Hessian of the geomeTRIC engines (default :data:`DEFAULT_HESSIAN_GUESS`,
         see the module docstring): ``"geometric"`` is geomeTRIC's own guess (the reference
         path), ``"lindh"`` Lindh's model Hessian over all atoms (:mod:`confpop.model_hessian`),
-        ``"lindh-primitive"`` Lindh's force constants on geomeTRIC's primitives.
+        ``"lindh-primitive"`` Lindh's force constants on geomeTRIC's primitives,
+        ``"lindh-primitive-soft"`` the same with the dihedral force constants halved.
 
     Returns
     -------
