@@ -470,7 +470,9 @@ def _accelerated_classes():
 
         def UpdateHessian(self):  # noqa: N802 (geomeTRIC's name)
             # geomeTRIC's update_hessian with one step of history (its call here): BFGS,
-            # then back to the guess when an eigenvalue falls to params.epsilon
+            # then back to the guess when an eigenvalue falls to params.epsilon; with
+            # _SECANT_PAIRS > 1 and no constraints, the multi-secant update over the last
+            # steps instead (multisecant_update; measured in confpop.optimize)
             if self._own_steps():
                 return super().UpdateHessian()
             ic, p = self.IC, self.params
