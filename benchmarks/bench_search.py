@@ -684,8 +684,9 @@ def main() -> None:
                   f"{r[6]:>9.2f} {r[7]:>9.2f} {r[8]:>+8.3f} {r[9]:>5d} {r[10]:>6d} "
                   f"{r[12]:>8.3f} {r[13]:>8.3f} {r[14]:>6d} {r[15]:>22s}")
         print("median/p90 = gradient calls per tight optimization; floor = calls x CPU of one "
-              "gradient; dE vs geomeTRIC 'verytight' from the same start, kcal/mol; RMSD (angstrom, "
-              "the duplicate check's atoms and symmetry) of each end structure to the verytight "
+              "gradient; dE vs geomeTRIC 'verytight' from the same start, kcal/mol; RMSD "
+              "(angstrom, the duplicate check's atoms and symmetry) of each end structure to the "
+              "verytight "
               "one of the same start; dedup mismatch: starts whose end structure and the "
               "baseline path's of the same start are two conformers under the search's duplicate "
               "criteria (0.2 A, 0.05 kcal/mol)")

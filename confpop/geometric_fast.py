@@ -26,6 +26,10 @@ once (same algorithm, same decisions, only rounding differs):
   (asked twice, choosing it and taking it), the Wilson B matrix's row-by-row copy, and
   geomeTRIC's version (read from package metadata at every optimization).
 
+Optional, measured and not the default (see :mod:`confpop.optimize`): a multi-secant Hessian
+update over the last steps (:func:`multisecant_update`, ``_SECANT_PAIRS``) and a softer
+initial Hessian, ``"lindh-primitive-soft"`` (Lindh's dihedral constants halved).
+
 Measured with ``benchmarks/bench_geometric_step.py --starts 10`` (GFN2-xTB, xtb-python,
 one thread, the default initial Hessian and SCF restarts; the search's own starts, paths
 interleaved start by start on a shared 2-core machine at load 6-7; geomeTRIC's own CPU =
@@ -539,10 +543,11 @@ def multisecant_update(h, s, y, *, asymmetry=None, independence=None):
     H+ = H - H S (S^T H S)^-1 S^T H + Y C^-1 Y^T,  C = (S^T Y + Y^T S) / 2,
 
     so that H+ S = Y holds for every step kept at once when S^T Y is symmetric (exactly so
-    on a quadratic surface: S^T Y = S^T A S), and H+ acts as H on directions H-orthogonal to
-    the steps. With one step it is the BFGS update. Sequential BFGS updates keep only the
-    latest secant equation; older ones hold only after exact line searches on a quadratic,
-    which a trust-radius Newton optimizer does not make.
+    on a quadratic surface: S^T Y = S^T A S), and H+ - H lies in the span of H S and Y
+    (H is kept wherever the steps tell nothing). With one step it is the BFGS update.
+    Sequential BFGS updates keep only the latest secant equation; older ones hold only
+    after exact line searches on a quadratic, which a trust-radius Newton optimizer does
+    not make.
 
     Steps are taken newest first while they keep (a) C positive definite, (b) S^T Y close to
     symmetric (relative antisymmetric part below ``asymmetry``; larger means curvature that
