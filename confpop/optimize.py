@@ -184,9 +184,10 @@ minimum 0.215 kcal/mol up (0.26 angstrom away; the soft guess reaches the veryti
 there, so that start is the one duplicate-check mismatch against "default", 1 of 30 in both
 runs); largest RMSD to "verytight" otherwise 0.001-0.003 angstrom on every path. The goal
 of 16 calls at 31 atoms is not reached (18-19), so the default stays ``"lindh-primitive"``
-with the one-step BFGS update. Tried and dropped (8-10 starts, hydroxy-ester or all three): a curvature
-probe (one extra gradient 0.02-0.05 delocalized units along the coming Newton step or H's
-softest eigenvector once the gradient criteria are within 2-5x) cost more calls than it saved
+with the one-step BFGS update. Tried and dropped (8-10 starts, hydroxy-ester or all
+three): a curvature probe (one extra gradient 0.02-0.05 delocalized units along the coming
+Newton step or H's softest eigenvector once the gradient criteria are within 2-5x) cost more
+calls than it saved
 (median/mean 17.5-19/17.4-18.6 against 17.5/17.1); an extrapolation along the last
 step by its secant changed no result (30 starts); SR1 alone needed 36-48 median calls
 (against 19-27); the Farkas-Schlegel SR1/BFGS mix and GDIIS did no better than the block
