@@ -15,7 +15,11 @@ one process (serial, ``OMP_NUM_THREADS=1``), per molecule:
    p90 gradient calls per optimization, CPU per optimization, the engine floor (gradient
    calls x the CPU time of one gradient, measured on the same molecule in the same run) and
    the ratio CPU / floor, and the starts that ended more than 0.05 kcal/mol above the
-   verytight energy (a neighbouring minimum or a saddle) or failed.
+   verytight energy (a neighbouring minimum or a saddle) or failed; and where the end
+   structures lie (:func:`geometry_check`): RMSD to the verytight end structure of the same
+   start (median, largest, count above 0.05 angstrom) and the starts whose end structure is
+   no longer a duplicate of the ``default`` path's (or the first path's) under the search's
+   duplicate criteria.
 2. **Whole search** (``--search``): ``confpop.search`` with its defaults (``--trials`` and
    ``--rounds`` to make it smaller, ``--move-parents`` and ``--move-iterations`` to limit
    the move search), once per path in ``--paths``, with the CPU of the search,
@@ -117,8 +121,14 @@ def one_gradient(mol, positions, repeats=15) -> float:
 
 
 _CONTINUATION = None
+#: end structures farther than this from the "verytight" one of the same start are counted,
+#: angstrom (a quarter of the duplicate check's 0.2 angstrom)
+RMSD_LIMIT = 0.05
 # the library's own initial Hessian, before set_path changes it
 _LIBRARY_GUESS = getattr(copt, "DEFAULT_HESSIAN_GUESS", "geometric")
+# the library's own Hessian update (steps in its multi-secant update), read at the first
+# set_path
+_LIBRARY_SECANT_PAIRS = None
 
 
 def path_convergence(path: str):
@@ -142,8 +152,10 @@ def path_convergence(path: str):
 
 def set_path(path: str) -> None:
     """Select an optimizer path: an initial Hessian, "+norestart" for fresh SCF guesses,
-    "+oldsteps" for geomeTRIC's own step work (before the accelerated step work), "@preset"
-    for the convergence preset (see :func:`path_convergence`).
+    "+oldsteps" for geomeTRIC's own step work (before the accelerated step work), "+msec"
+    for the multi-secant Hessian update over the last 3 steps or "+bfgs" for geomeTRIC's
+    one-step BFGS update (:data:`confpop.geometric_fast._SECANT_PAIRS`), "@preset" for the
+    convergence preset (see :func:`path_convergence`).
 
     "reference" is geomeTRIC's own guess Hessian with a fresh SCF guess at every step (the
     optimizer before this work); old confpop versions only have that one. "default" is the
@@ -155,18 +167,29 @@ def set_path(path: str) -> None:
     from confpop.backends.base import Backend
 
     path = path.partition("@")[0]
-    if path == "default":
-        path = _LIBRARY_GUESS
     guess, *flags = path.split("+")
+    if guess == "default":
+        guess = _LIBRARY_GUESS
     restart = "norestart" not in flags
     if guess == "reference":  # the yardstick stays what it was before the step work too
-        flags.append("oldsteps")
+        flags += ["oldsteps", "bfgs"]
     try:  # "+oldsteps": geomeTRIC's own step work (confpop.geometric_fast._FAST_STEPS)
         import confpop.geometric_fast as fast
         if hasattr(fast, "_FAST_STEPS"):
             fast._FAST_STEPS = "oldsteps" not in flags
         elif "oldsteps" in flags:
             sys.exit(f"this confpop has no optimizer path {path!r}")
+        # "+msec": the multi-secant Hessian update over the last 3 steps, "+bfgs": geomeTRIC's
+        # one-step BFGS update; neither: the library's own (_SECANT_PAIRS)
+        secant = [f for f in flags if f in ("msec", "bfgs")]
+        if secant and not hasattr(fast, "_SECANT_PAIRS"):
+            sys.exit(f"this confpop has no optimizer path {path!r}")
+        if hasattr(fast, "_SECANT_PAIRS"):
+            global _LIBRARY_SECANT_PAIRS
+            if _LIBRARY_SECANT_PAIRS is None:
+                _LIBRARY_SECANT_PAIRS = fast._SECANT_PAIRS
+            fast._SECANT_PAIRS = (3 if "msec" in secant else 1 if "bfgs" in secant
+                                  else _LIBRARY_SECANT_PAIRS)
     except ImportError:
         pass
     if guess == "reference":
@@ -197,19 +220,61 @@ def starts_of(mol, n, seed):
     return [c.GetPositions() for c in confs[::step][:n]]
 
 
+def geometry_check(mol, paths, positions, energies, reference_positions, baseline):
+    """Where each path's end structures lie, per path: RMSD to the "verytight" end structure of
+    the same start, and the starts whose end no longer matches the ``baseline`` path's end
+    structure of the same start under the search's duplicate criteria.
+
+    RMSD: :func:`confpop.prune.best_rmsd` over :func:`confpop.prune.rmsd_atoms` (heavy atoms
+    and polar hydrogens) with the molecule's automorphisms, as the duplicate check aligns.
+    Mismatch: :func:`confpop.prune.find_duplicates` with the search's
+    :class:`~confpop.prune.PruneSettings` (0.2 angstrom, 0.05 kcal/mol, mirror images merged
+    for achiral molecules) on the two end structures of one start keeps both.
+
+    Returns {path: (RMSDs in angstrom, one per start with both structures; mismatches;
+    starts compared)}.
+    """
+    from confpop.prune import (PruneSettings, automorphisms, best_rmsd, find_duplicates,
+                               is_achiral, rmsd_atoms)
+
+    settings = PruneSettings()
+    perms = automorphisms(mol, rmsd_atoms(mol), settings.max_automorphisms)
+    achiral = is_achiral(mol)
+    out = {}
+    for p in paths:
+        rmsd, mismatch, compared = [], 0, 0
+        for i, pos in enumerate(positions[p]):
+            if pos is None:
+                continue
+            if reference_positions[i] is not None:
+                rmsd.append(best_rmsd(reference_positions[i], pos, perms))
+            base = positions[baseline][i]
+            if p != baseline and base is not None:
+                compared += 1
+                report = find_duplicates(mol, [base, pos],
+                                         [energies[baseline][i], energies[p][i]], settings,
+                                         achiral=achiral)
+                mismatch += len(report.unique) > 1
+        out[p] = (np.array(rmsd), mismatch, compared)
+    return out
+
+
 def optimizer_paths(name, smiles, paths, n_starts, seed, meter):
     mol = load_molecule(smiles)
     starts = starts_of(mol, n_starts, seed)
     backend = get_backend("gfn2", mol)
-    rows = {p: {"calls": [], "cpu": [], "energy": [], "failed": 0} for p in paths}
-    reference_energy = []
+    rows = {p: {"calls": [], "cpu": [], "energy": [], "positions": [], "failed": 0}
+            for p in paths}
+    reference_energy, reference_positions = [], []
     for start in starts:
         set_path("reference")
         try:
             ref = copt.optimize_positions(backend, start, convergence="verytight", max_steps=600)
             reference_energy.append(ref.energy)
+            reference_positions.append(np.array(ref.positions))
         except cp.errors.ConfpopError:
             reference_energy.append(np.nan)
+            reference_positions.append(None)
         for p in paths:
             set_path(p)
             t0 = time.process_time()
@@ -218,14 +283,21 @@ def optimizer_paths(name, smiles, paths, n_starts, seed, meter):
             except cp.errors.ConfpopError:
                 rows[p]["failed"] += 1
                 rows[p]["energy"].append(np.nan)
+                rows[p]["positions"].append(None)
                 continue
             rows[p]["cpu"].append(time.process_time() - t0)
             rows[p]["calls"].append(res.gradient_calls if res.converged else res.gradient_calls)
             rows[p]["energy"].append(res.energy if res.converged else np.nan)
+            rows[p]["positions"].append(np.array(res.positions) if res.converged else None)
             if not res.converged:
                 rows[p]["failed"] += 1
     set_path("reference")
     t_grad = one_gradient(mol, starts[0])
+    # the baseline of the duplicate check: the search's default path when it is measured
+    baseline = "default" if "default" in paths else paths[0]
+    geometry = geometry_check(mol, paths, {p: rows[p]["positions"] for p in paths},
+                              {p: rows[p]["energy"] for p in paths}, reference_positions,
+                              baseline)
     out = []
     for p in paths:
         r = rows[p]
@@ -233,9 +305,14 @@ def optimizer_paths(name, smiles, paths, n_starts, seed, meter):
         high = int(np.sum(de > 0.05))
         floor = np.array(r["calls"]) * t_grad
         cpu = np.array(r["cpu"])
+        rmsd, mismatch, compared = geometry[p]
         out.append((name, mol.GetNumAtoms(), p, len(starts), statistics.median(r["calls"]),
                     p90(r["calls"]), float(np.median(cpu)), float(np.sum(cpu) / np.sum(floor)),
-                    float(np.nanmax(de)), high, r["failed"], t_grad))
+                    float(np.nanmax(de)), high, r["failed"], t_grad,
+                    float(np.median(rmsd)) if len(rmsd) else float("nan"),
+                    float(np.max(rmsd)) if len(rmsd) else float("nan"),
+                    int(np.sum(rmsd > RMSD_LIMIT)),
+                    f"{mismatch}/{compared} vs {baseline}" if p != baseline else "(baseline)"))
     return out
 
 
@@ -544,8 +621,10 @@ def main() -> None:
     ap.add_argument("--starts", type=int, default=30, help="starts per molecule for the paths")
     ap.add_argument("--paths", default="reference,default",
                     help="optimizer paths, comma-separated: an initial Hessian (geometric, lindh, "
-                         "lindh-primitive) with '+norestart' for fresh SCF guesses, '+oldsteps' for "
-                         "geomeTRIC's own step work and '@preset[/key=value...]' for the "
+                         "lindh-primitive, lindh-primitive-soft) with '+norestart' for fresh SCF "
+                         "guesses, '+oldsteps' for geomeTRIC's own step work, '+msec' for the "
+                         "multi-secant Hessian update over the last 3 steps, '+bfgs' for "
+                         "geomeTRIC's one-step BFGS update and '@preset[/key=value...]' for the "
                          "convergence (default: the search's, tight); reference = "
                          "geometric+norestart+oldsteps, the optimizer before the speed work; "
                          "default = the search's defaults")
@@ -581,7 +660,9 @@ def main() -> None:
                 print(f"  {r[0]} [{r[2]}]: median {r[4]:.0f} calls (p90 {r[5]:.0f}), "
                       f"{r[6]:.2f} s CPU per optimization, CPU/floor {r[7]:.2f}, worst dE "
                       f"{r[8]:+.3f} kcal/mol, {r[9]} above +0.05, {r[10]} failed/unconverged; "
-                      f"one gradient {1000 * r[11]:.1f} ms", flush=True)
+                      f"one gradient {1000 * r[11]:.1f} ms; RMSD to verytight median {r[12]:.3f}, "
+                      f"largest {r[13]:.3f} A, {r[14]} > {RMSD_LIMIT}; dedup mismatches {r[15]}",
+                      flush=True)
             opt_rows += rows
         if args.search:
             rows = whole_search(name, smiles, paths, args.seed, args.trials, args.rounds, meter,
@@ -596,12 +677,19 @@ def main() -> None:
     if opt_rows:
         print()
         print(f"{'molecule':28s} {'atoms':>5} {'path':>26} {'starts':>6} {'median':>6} {'p90':>5} "
-              f"{'CPU s/opt':>9} {'CPU/floor':>9} {'worst dE':>8} {'>0.05':>5} {'failed':>6}")
+              f"{'CPU s/opt':>9} {'CPU/floor':>9} {'worst dE':>8} {'>0.05':>5} {'failed':>6} "
+              f"{'RMSD med':>8} {'RMSD max':>8} {'>0.05A':>6} {'dedup mismatch':>22}")
         for r in opt_rows:
             print(f"{r[0]:28s} {r[1]:>5d} {r[2]:>26s} {r[3]:>6d} {r[4]:>6.0f} {r[5]:>5.0f} "
-                  f"{r[6]:>9.2f} {r[7]:>9.2f} {r[8]:>+8.3f} {r[9]:>5d} {r[10]:>6d}")
+                  f"{r[6]:>9.2f} {r[7]:>9.2f} {r[8]:>+8.3f} {r[9]:>5d} {r[10]:>6d} "
+                  f"{r[12]:>8.3f} {r[13]:>8.3f} {r[14]:>6d} {r[15]:>22s}")
         print("median/p90 = gradient calls per tight optimization; floor = calls x CPU of one "
-              "gradient; dE vs geomeTRIC 'verytight' from the same start, kcal/mol")
+              "gradient; dE vs geomeTRIC 'verytight' from the same start, kcal/mol; RMSD "
+              "(angstrom, the duplicate check's atoms and symmetry) of each end structure to the "
+              "verytight "
+              "one of the same start; dedup mismatch: starts whose end structure and the "
+              "baseline path's of the same start are two conformers under the search's duplicate "
+              "criteria (0.2 A, 0.05 kcal/mol)")
     if search_rows:
         print()
         print(f"{'molecule':28s} {'path':>26} {'CPU s':>7} {'wall s':>7} {'gradients':>9} "

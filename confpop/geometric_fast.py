@@ -26,6 +26,10 @@ once (same algorithm, same decisions, only rounding differs):
   (asked twice, choosing it and taking it), the Wilson B matrix's row-by-row copy, and
   geomeTRIC's version (read from package metadata at every optimization).
 
+Optional, measured and not the default (see :mod:`confpop.optimize`): a multi-secant Hessian
+update over the last steps (:func:`multisecant_update`, ``_SECANT_PAIRS``) and a softer
+initial Hessian, ``"lindh-primitive-soft"`` (Lindh's dihedral constants halved).
+
 Measured with ``benchmarks/bench_geometric_step.py --starts 10`` (GFN2-xTB, xtb-python,
 one thread, the default initial Hessian and SCF restarts; the search's own starts, paths
 interleaved start by start on a shared 2-core machine at load 6-7; geomeTRIC's own CPU =
@@ -94,11 +98,22 @@ _VALUE_MEMORY = 4
 # False: the step work of geomeTRIC's own Optimizer and an eigendecomposition for every G
 # inverse (the accelerated classes as they were before); for benchmarks and tests only
 _FAST_STEPS = True
+#: steps whose secant equations the Hessian update keeps at once (1: geomeTRIC's BFGS update
+#: with the last step; more: :func:`multisecant_update`)
+_SECANT_PAIRS = 1
+#: largest relative antisymmetric part of S^T Y for a step to join a multi-secant update
+_SECANT_ASYMMETRY = 0.1
+#: smallest H-orthogonal part of a step (relative) for it to join a multi-secant update
+_SECANT_INDEPENDENCE = 0.1
 #: initial Hessians: "geometric" = geomeTRIC's own diagonal guess on its primitives
 #: (Schlegel-type rules); "lindh" = Lindh's model Hessian over all atoms (Cartesian,
 #: projected on the delocalized coordinates); "lindh-primitive" = Lindh's force constants
-#: on geomeTRIC's primitives (diagonal)
-HESSIAN_GUESSES = ("geometric", "lindh", "lindh-primitive")
+#: on geomeTRIC's primitives (diagonal); "lindh-primitive-soft" = the same with the dihedral
+#: force constants times :data:`_SOFT_TORSION_SCALE`
+HESSIAN_GUESSES = ("geometric", "lindh", "lindh-primitive", "lindh-primitive-soft")
+#: dihedral force constants of "lindh-primitive-soft" relative to Lindh's 0.005 hartree/rad^2
+#: (measured: benchmarks/bench_search.py, see confpop.optimize)
+_SOFT_TORSION_SCALE = 0.5
 
 
 class GeometricVersionWarning(ConfpopWarning):
@@ -154,7 +169,7 @@ def coordinate_classes(hessian_guess: str = "geometric", *, accelerate: bool = T
 
     Parameters
     ----------
-    hessian_guess : {"geometric", "lindh", "lindh-primitive"}
+    hessian_guess : {"geometric", "lindh", "lindh-primitive", "lindh-primitive-soft"}
         Initial Hessian (see :data:`HESSIAN_GUESSES`); only the accelerated classes can
         use a model Hessian.
     accelerate : bool
@@ -267,10 +282,10 @@ def _accelerated_classes():
         def derivatives(self, xyz):
             return _primitive_derivatives(self, self._groups(), xyz)
 
-        def lindh_diagonal(self, coords):
+        def lindh_diagonal(self, coords, torsion_scale=1.0):
             """geomeTRIC's diagonal guess with Lindh's force constants for distances,
-            angles and dihedrals (k rho_ij [rho_jk [rho_kl]]); other primitives keep
-            geomeTRIC's values."""
+            angles and dihedrals (k rho_ij [rho_jk [rho_kl]]; dihedrals times
+            ``torsion_scale``); other primitives keep geomeTRIC's values."""
             h = np.array(PrimitiveInternalCoordinates.guess_hessian(self, coords))
             numbers = [Elements.index(e) for e in self.elem]
             rho = lindh_weights(numbers, np.asarray(coords).reshape(-1, 3))
@@ -281,7 +296,8 @@ def _accelerated_classes():
                 elif kind is Angle:
                     h[k, k] = 0.15 * rho[prim.a, prim.b] * rho[prim.b, prim.c]
                 elif kind is Dihedral:
-                    h[k, k] = 0.005 * rho[prim.a, prim.b] * rho[prim.b, prim.c] * rho[prim.c, prim.d]
+                    h[k, k] = (0.005 * torsion_scale * rho[prim.a, prim.b] * rho[prim.b, prim.c]
+                               * rho[prim.c, prim.d])
             return h
 
     class FastDelocalized(DelocalizedInternalCoordinates):
@@ -342,8 +358,9 @@ def _accelerated_classes():
                 g_inv = self.GInverse(coords)
                 h = g_inv @ b @ hx @ b.T @ g_inv
                 return 0.5 * (h + h.T)
-            if self.hessian_guess == "lindh-primitive":
-                h = self.Prims.lindh_diagonal(coords)
+            if self.hessian_guess in ("lindh-primitive", "lindh-primitive-soft"):
+                scale = _SOFT_TORSION_SCALE if self.hessian_guess.endswith("soft") else 1.0
+                h = self.Prims.lindh_diagonal(coords, torsion_scale=scale)
                 return self.Vecs.T @ h @ self.Vecs
             return super().guess_hessian(coords)
 
@@ -457,14 +474,29 @@ def _accelerated_classes():
 
         def UpdateHessian(self):  # noqa: N802 (geomeTRIC's name)
             # geomeTRIC's update_hessian with one step of history (its call here): BFGS,
-            # then back to the guess when an eigenvalue falls to params.epsilon
+            # then back to the guess when an eigenvalue falls to params.epsilon; with
+            # _SECANT_PAIRS > 1 and no constraints, the multi-secant update over the last
+            # steps instead (multisecant_update; measured in confpop.optimize)
             if self._own_steps():
                 return super().UpdateHessian()
             ic, p = self.IC, self.params
             h = self.H.copy()
             dy = ic.calcDiff(self.X, self.Xprev)
             dg = ic.calcGrad(self.X, self.gradx) - ic.calcGrad(self.Xprev, self.Gxprev)
-            if np.linalg.norm(dg) >= 1e-6 and np.linalg.norm(dy) >= 1e-6:
+            pairs = None
+            history = getattr(self, "X_hist", [])
+            # the multi-secant update (unconstrained steps only): the history must end with
+            # this step
+            if (_SECANT_PAIRS > 1 and self._plain_step() and len(history) > 2
+                    and np.array_equal(history[-1], self.X)
+                    and np.array_equal(history[-2], self.Xprev)):
+                memory = self.__dict__.get("_confpop_gradients")
+                if memory is None or memory[0] is not ic:  # per coordinate system
+                    memory = self._confpop_gradients = (ic, {})
+                pairs = _secant_history(ic, history, self.Gx_hist, _SECANT_PAIRS, memory[1])
+            if pairs is not None and pairs[0].shape[1] > 1:
+                h = multisecant_update(h, *pairs)
+            elif np.linalg.norm(dg) >= 1e-6 and np.linalg.norm(dy) >= 1e-6:
                 hdy = h @ dy
                 h += np.outer(dg, dg) / (dg @ dy) - np.outer(hdy, hdy) / (dy @ hdy)
             if p.reset and np.min(self._eigh(h)[0]) <= p.epsilon:
@@ -473,6 +505,108 @@ def _accelerated_classes():
             self.H = h
 
     return FastPrimitives, FastDelocalized, by_guess, FastOptimizer
+
+
+def _secant_history(ic, xs, gxs, most, memory):
+    """The last steps and gradient changes in the current internal coordinates.
+
+    Returns (S, Y), (n_coordinates, k) arrays, newest step first, of the consecutive accepted
+    points in ``xs`` (Cartesian, bohr) and ``gxs`` (Cartesian gradients), k <= ``most``; steps or
+    gradient changes below 1e-6 (geomeTRIC's cut for its BFGS update) end the history.
+    ``memory`` (a dict for this coordinate system) keeps the internal gradients of the points.
+    """
+    steps, changes = [], []
+    count = min(most, len(xs) - 1)
+    grads = []
+    for i in range(count + 1):
+        key = xs[-1 - i].tobytes()
+        if key not in memory:
+            memory[key] = ic.calcGrad(xs[-1 - i], gxs[-1 - i])
+        grads.append(memory[key])
+    for key in list(memory)[:-(most + 2)]:
+        del memory[key]
+    for i in range(count):
+        dy = ic.calcDiff(xs[-1 - i], xs[-2 - i])
+        dg = grads[i] - grads[i + 1]
+        if np.linalg.norm(dy) < 1e-6 or np.linalg.norm(dg) < 1e-6:
+            break
+        steps.append(dy)
+        changes.append(dg)
+    if not steps:
+        return None
+    return np.array(steps).T, np.array(changes).T
+
+
+def multisecant_update(h, s, y, *, asymmetry=None, independence=None):
+    """Symmetric multi-secant (block BFGS) update of a Hessian over the last steps.
+
+    H+ = H - H S (S^T H S)^-1 S^T H + Y C^-1 Y^T,  C = (S^T Y + Y^T S) / 2,
+
+    so that H+ S = Y holds for every step kept at once when S^T Y is symmetric (exactly so
+    on a quadratic surface: S^T Y = S^T A S), and H+ - H lies in the span of H S and Y
+    (H is kept wherever the steps tell nothing). With one step it is the BFGS update.
+    Sequential BFGS updates keep only the latest secant equation; older ones hold only
+    after exact line searches on a quadratic, which a trust-radius Newton optimizer does
+    not make.
+
+    Steps are taken newest first while they keep (a) C positive definite, (b) S^T Y close to
+    symmetric (relative antisymmetric part below ``asymmetry``; larger means curvature that
+    changed between the steps, or gradient noise) and (c) each new step's part H-orthogonal
+    to the newer steps at least ``independence`` of its H-norm (nearly parallel steps make
+    S^T H S singular and add no direction).
+
+    Parameters
+    ----------
+    h : (n, n) array
+        Current Hessian (symmetric positive definite).
+    s, y : (n, k) arrays
+        Steps and gradient changes, newest first.
+    asymmetry, independence : float, optional
+        The limits (b) and (c) (default :data:`_SECANT_ASYMMETRY`,
+        :data:`_SECANT_INDEPENDENCE`).
+
+    Returns
+    -------
+    (n, n) array
+        The updated Hessian. If not even the newest step qualifies under (a), the plain BFGS
+        update with it (geomeTRIC's update, which does not check the curvature).
+
+    References
+    ----------
+    R. B. Schnabel, "Quasi-Newton methods using multiple secant equations", Technical
+    Report CU-CS-247-83, University of Colorado at Boulder, 1983.
+    """
+    asymmetry = _SECANT_ASYMMETRY if asymmetry is None else asymmetry
+    independence = _SECANT_INDEPENDENCE if independence is None else independence
+    h = np.asarray(h, dtype=float)
+    keep = 0
+    for k in range(1, s.shape[1] + 1):
+        sk, yk = s[:, :k], y[:, :k]
+        m = sk.T @ h @ sk
+        c = sk.T @ yk
+        cs = 0.5 * (c + c.T)
+        if k > 1:
+            if np.linalg.norm(c - c.T) > asymmetry * np.linalg.norm(cs):
+                break
+            # the newest k-1 steps' H-metric projection of step k
+            m_old = m[:k - 1, :k - 1]
+            b = m[:k - 1, k - 1]
+            rest = m[k - 1, k - 1] - b @ np.linalg.solve(m_old, b)
+            if not rest > independence ** 2 * m[k - 1, k - 1]:
+                break
+        if np.min(np.linalg.eigvalsh(cs)) <= 0:
+            break
+        keep = k
+    if keep == 0:
+        dy, dg = s[:, 0], y[:, 0]
+        hdy = h @ dy
+        return h + np.outer(dg, dg) / (dg @ dy) - np.outer(hdy, hdy) / (dy @ hdy)
+    sk, yk = s[:, :keep], y[:, :keep]
+    hs = h @ sk
+    c = sk.T @ yk
+    cs = 0.5 * (c + c.T)
+    out = h - hs @ np.linalg.solve(sk.T @ hs, hs.T) + yk @ np.linalg.solve(cs, yk.T)
+    return 0.5 * (out + out.T)
 
 
 def optimizer_class(accelerated: bool):

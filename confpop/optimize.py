@@ -139,6 +139,62 @@ be kept as two conformers and the basin's population counted twice. Displacement
 3x, 5x and 10x tight's (21, 13 and 11.5 calls on the aryl ester) wander as far (largest
 0.27 angstrom), so "tight" stays the search's preset.
 
+Learning the soft modes faster (measured, selectable, not the default): the tail of a tight
+optimization is not noise but curvature: on the hydroxy-ester (start 0 of the benchmark) the
+softest mode at the minimum has a curvature of 4e-4 hartree per squared delocalized unit
+(finite-difference GFN2 Hessian at the "verytight" minimum), Lindh's guess gives it 1e-2,
+and BFGS learns it only over five steps whose displacement is mostly along that mode while
+the gradient is mostly elsewhere; then two to three modes still 2-3x too stiff take another
+five steps. Two changes help, and together they keep the minima:
+
+- ``hessian_guess="lindh-primitive-soft"``: Lindh's dihedral force constants halved
+  (:data:`confpop.geometric_fast._SOFT_TORSION_SCALE`; on 8-10 starts of the hydroxy-ester
+  0.5 gave median/mean 16/15.5 calls, 0.7 16.5/15.9, 1 (Lindh) 17.5/17.1, 0.25 18/18.3,
+  0.1 25.5/25.9);
+- the multi-secant (block BFGS) Hessian update over the last 3 steps
+  (:func:`confpop.geometric_fast.multisecant_update`, ``_SECANT_PAIRS = 3``; 2, 4 or 6
+  steps and looser step-selection limits did no better), unconstrained steps only.
+
+``benchmarks/bench_search.py --starts 30 --paths default,default+msec,lindh-primitive-soft,
+lindh-primitive-soft+msec`` (seed 1) and ``--seed 2 --paths
+default,lindh-primitive-soft+msec`` (other starts), each one run, interleaved start by start,
+load ~2; calls median (p90); CPU per optimization, median; RMSD = largest RMSD of an end
+structure to the "verytight" one of the same start (the duplicate check's atoms):
+
+=================== ========================= =============== =============== ===============
+molecule            path                      calls, seed 1   calls, seed 2   CPU s (1 / 2)
+=================== ========================= =============== =============== ===============
+hydroxy-ester (31)  default                   20 (28)         22 (42)         0.39 / 0.41
+                    default+msec              18 (28)                         0.37
+                    lindh-primitive-soft      18 (31)                         0.36
+                    lindh-primitive-soft+msec 18 (25)         19 (35)         0.35 / 0.36
+ether-amide (35)    default                   24 (38)         24 (40)         0.55 / 0.56
+                    default+msec              24 (34)                         0.53
+                    lindh-primitive-soft      22 (35)                         0.55
+                    lindh-primitive-soft+msec 21 (33)         21 (34)         0.52 / 0.50
+aryl ester (43)     default                   30 (50)         32 (50)         0.96 / 1.02
+                    default+msec              30 (45)                         0.92
+                    lindh-primitive-soft      28 (46)                         0.89
+                    lindh-primitive-soft+msec 26 (37)         26 (42)         0.80 / 0.87
+=================== ========================= =============== =============== ===============
+
+Every path of both runs: no failure, no start more than 0.05 kcal/mol above "verytight"
+except the ether-amide start that "default" and "default+msec" end in the neighbouring
+minimum 0.215 kcal/mol up (0.26 angstrom away; the soft guess reaches the verytight minimum
+there, so that start is the one duplicate-check mismatch against "default", 1 of 30 in both
+runs); largest RMSD to "verytight" otherwise 0.001-0.003 angstrom on every path. The goal
+of 16 calls at 31 atoms is not reached (18-19), so the default stays ``"lindh-primitive"``
+with the one-step BFGS update. Tried and dropped (8-10 starts, hydroxy-ester or all
+three): a curvature probe (one extra gradient 0.02-0.05 delocalized units along the coming
+Newton step or H's softest eigenvector once the gradient criteria are within 2-5x) cost more
+calls than it saved
+(median/mean 17.5-19/17.4-18.6 against 17.5/17.1); an extrapolation along the last
+step by its secant changed no result (30 starts); SR1 alone needed 36-48 median calls
+(against 19-27); the Farkas-Schlegel SR1/BFGS mix and GDIIS did no better than the block
+update (with the indefinite Hessian kept, one aryl-ester start ended 0.47 angstrom away); a
+force-field (MMFF94) Hessian put in once near the minimum made it worse (21-32 calls
+against 19).
+
 Examples
 --------
 >>> sorted(CONVERGENCE_PRESETS)
@@ -353,11 +409,12 @@ def optimize_positions(backend: Backend, positions, *, convergence="tight", max_
         coordinates (no constraints; stops when the largest gradient component is below
         ``gmax`` or the relative energy change falls below ``energy/|E|``; it can stop
         early on flat torsions, see the module docstring). Case is ignored.
-    hessian_guess : {"geometric", "lindh", "lindh-primitive"}, optional
+    hessian_guess : {"geometric", "lindh", "lindh-primitive", "lindh-primitive-soft"}, optional
         Initial Hessian of the geomeTRIC engines (default :data:`DEFAULT_HESSIAN_GUESS`,
         see the module docstring): ``"geometric"`` is geomeTRIC's own guess (the reference
         path), ``"lindh"`` Lindh's model Hessian over all atoms (:mod:`confpop.model_hessian`),
-        ``"lindh-primitive"`` Lindh's force constants on geomeTRIC's primitives.
+        ``"lindh-primitive"`` Lindh's force constants on geomeTRIC's primitives,
+        ``"lindh-primitive-soft"`` the same with the dihedral force constants halved.
 
     Returns
     -------

@@ -309,3 +309,144 @@ def test_fast_steps_with_the_model_hessian(monkeypatch):
         assert after.converged and after.gradient_calls == before.gradient_calls
         assert after.energy == pytest.approx(before.energy, abs=1e-9)
         np.testing.assert_allclose(after.positions, before.positions, rtol=0, atol=1e-8)
+
+
+# --- The multi-secant Hessian update and the softer torsion guess (issue "Speed"): the
+# references are a quadratic surface built with a known Hessian (the secant equations then
+# hold exactly: y = A s), geomeTRIC 1.1.1's own BFGS update (geometric.step), and the minima
+# geomeTRIC's own classes reach.
+
+def _spd(rng, n, low=0.05, high=2.0):
+    q, _ = np.linalg.qr(rng.normal(size=(n, n)))
+    return (q * rng.uniform(low, high, n)) @ q.T
+
+
+def test_multisecant_update_holds_every_secant_of_a_quadratic():
+    # on a quadratic E = x.A x / 2 every step s has the gradient change y = A s (by
+    # construction), so the updated Hessian must map each kept step onto A s
+    rng = np.random.default_rng(5)
+    n = 9
+    a, h0 = _spd(rng, n), _spd(rng, n)
+    s = rng.normal(size=(n, 3))
+    y = a @ s
+    h = fast.multisecant_update(h0, s, y, asymmetry=1e-8, independence=0.01)
+    np.testing.assert_allclose(h @ s, a @ s, rtol=0, atol=1e-10)
+    np.testing.assert_allclose(h, h.T, rtol=0, atol=1e-12)
+    assert np.linalg.eigvalsh(h).min() > 0  # positive definite, as BFGS keeps it
+    # n independent steps determine A completely
+    s = rng.normal(size=(n, n))
+    h = fast.multisecant_update(h0, s, a @ s, asymmetry=1e-8, independence=1e-3)
+    np.testing.assert_allclose(h, a, rtol=0, atol=1e-8)
+
+
+def test_sequential_bfgs_loses_older_secants_the_block_update_keeps():
+    # the reason for the block update: after two BFGS updates (geomeTRIC's own formula) the
+    # older secant equation no longer holds on a quadratic; after the block update it does
+    from geometric.step import get_hessian_update_bfgs
+
+    rng = np.random.default_rng(8)
+    n = 7
+    a, h0 = _spd(rng, n), _spd(rng, n)
+    s = rng.normal(size=(n, 2))  # newest first
+    h_seq = h0.copy()
+    for k in (1, 0):  # the older step first
+        col = s[:, k:k + 1]
+        h_seq = h_seq + get_hessian_update_bfgs(col, a @ col, h_seq)
+    h_block = fast.multisecant_update(h0, s, a @ s)
+    np.testing.assert_allclose(h_block @ s, a @ s, rtol=0, atol=1e-10)
+    np.testing.assert_allclose(h_seq @ s[:, 0], a @ s[:, 0], rtol=0, atol=1e-10)
+    assert np.linalg.norm(h_seq @ s[:, 1] - a @ s[:, 1]) > 1e-3 * np.linalg.norm(a @ s[:, 1])
+
+
+def test_multisecant_update_with_one_step_is_geometric_bfgs():
+    from geometric.step import get_hessian_update_bfgs
+
+    rng = np.random.default_rng(11)
+    n = 6
+    h0 = _spd(rng, n)
+    s = rng.normal(size=(n, 1))
+    y = _spd(rng, n) @ s
+    expected = h0 + get_hessian_update_bfgs(s, y, h0)
+    np.testing.assert_allclose(fast.multisecant_update(h0, s, y), expected, rtol=0, atol=1e-12)
+
+
+@pytest.mark.parametrize("older", ["parallel", "inconsistent", "negative curvature"])
+def test_multisecant_update_leaves_out_unusable_older_steps(older):
+    # an older step parallel to the newest, one whose gradient change comes from another
+    # surface (S^T Y far from symmetric) or one of negative curvature must be left out:
+    # the result is then the BFGS update with the newest step alone
+    from geometric.step import get_hessian_update_bfgs
+
+    rng = np.random.default_rng(21)
+    n = 6
+    a, h0 = _spd(rng, n), _spd(rng, n)
+    new = rng.normal(size=n)
+    if older == "parallel":
+        old = 2.0 * new + 1e-6 * rng.normal(size=n)
+        y_old = a @ old
+    elif older == "inconsistent":
+        old = rng.normal(size=n)
+        y_old = _spd(rng, n, 5.0, 10.0) @ old
+    else:
+        old = rng.normal(size=n)
+        y_old = -a @ old
+    s = np.column_stack([new, old])
+    y = np.column_stack([a @ new, y_old])
+    expected = h0 + get_hessian_update_bfgs(s[:, :1], y[:, :1], h0)
+    np.testing.assert_allclose(fast.multisecant_update(h0, s, y), expected, rtol=0, atol=1e-10)
+
+
+def test_soft_guess_halves_only_the_dihedral_force_constants():
+    # "lindh-primitive-soft" is Lindh's diagonal with the dihedral constants halved; every
+    # other primitive keeps its value (the reference: the "lindh-primitive" guess)
+    from geometric.internal import Dihedral
+    from geometric.molecule import Molecule
+
+    mol = Chem.AddHs(Chem.MolFromSmiles("CCOC(=O)C"))
+    assert AllChem.EmbedMolecule(mol, randomSeed=3) == 0
+    molecule = Molecule()
+    molecule.elem = [a.GetSymbol() for a in mol.GetAtoms()]
+    molecule.xyzs = [mol.GetConformer().GetPositions()]
+    molecule.build_topology()
+    x = molecule.xyzs[0].ravel() * 1.8897261
+    ic = fast.coordinate_classes("lindh-primitive")[0](molecule, build=True, connect=True)
+    plain = np.diag(ic.Prims.lindh_diagonal(x))
+    soft = np.diag(ic.Prims.lindh_diagonal(x, torsion_scale=fast._SOFT_TORSION_SCALE))
+    dihedral = np.array([type(p) is Dihedral for p in ic.Prims.Internals])
+    assert dihedral.sum() > 0
+    np.testing.assert_allclose(soft[dihedral], 0.5 * plain[dihedral], rtol=1e-12)
+    np.testing.assert_allclose(soft[~dihedral], plain[~dihedral], rtol=1e-12)
+    soft_ic = fast.coordinate_classes("lindh-primitive-soft")[0](molecule, build=True,
+                                                                  connect=True)
+    np.testing.assert_allclose(soft_ic.guess_hessian(x),
+                               soft_ic.Vecs.T @ np.diag(soft) @ soft_ic.Vecs, atol=1e-12)
+
+
+def test_multisecant_path_reaches_geometric_own_minima(monkeypatch):
+    # the update changes the path, not the end: MMFF94 minima of an invented hydroxy-ester
+    # from three embeddings, against geomeTRIC's own classes and guess (verytight both)
+    mol = Chem.AddHs(Chem.MolFromSmiles("CCOC(=O)C[C@H](O)CC"))
+    ids = AllChem.EmbedMultipleConfs(mol, numConfs=3, randomSeed=29)
+    backend = get_backend("mmff94", mol)
+    used = []
+    original = fast.multisecant_update
+
+    def counted(*args, **kwargs):
+        used.append(args[1].shape[1])
+        return original(*args, **kwargs)
+
+    monkeypatch.setattr(fast, "multisecant_update", counted)
+    d = lambda x: np.sort(np.linalg.norm(x[:, None] - x[None], axis=2).ravel())  # noqa: E731
+    for conf_id in ids:
+        start = mol.GetConformer(conf_id).GetPositions()
+        monkeypatch.setattr(fast, "_SECANT_PAIRS", 1)
+        own = optimize_positions(backend, start, convergence="verytight",
+                                 hessian_guess="geometric")
+        monkeypatch.setattr(fast, "_SECANT_PAIRS", 3)
+        for guess in ("lindh-primitive", "lindh-primitive-soft"):
+            res = optimize_positions(backend, start, convergence="verytight",
+                                     hessian_guess=guess)
+            assert res.converged and own.converged
+            assert res.energy == pytest.approx(own.energy, abs=1e-7)  # hartree
+            np.testing.assert_allclose(d(res.positions), d(own.positions), atol=2e-3)
+    assert used and max(used) > 1  # the block update did run with several steps
