@@ -10,6 +10,11 @@ these figures.
 
     nice -n 10 python benchmarks/bench_scan_step.py [--steps 10,15,20,30] [--only butane]
 
+``--guesses A,B`` instead compares two initial Hessians of the scan's optimizations
+(``confpop.optimize.DEFAULT_HESSIAN_GUESS`` and ``CONSTRAINED_HESSIAN_GUESS``) at the default step, interleaved torsion by
+torsion: the largest energy difference between the two profiles, the barrier differences,
+and the CPU ratio B / A.
+
 Molecules: textbook torsions (n-butane's C2-C3, biphenyl's inter-ring bond, methyl
 acetate's ester C-O, N-methylacetamide's amide C-N) and one invented hydroxy-ester's
 C-C bond.
@@ -26,6 +31,7 @@ os.environ.setdefault("OMP_NUM_THREADS", "1")
 import numpy as np  # noqa: E402
 
 import confpop as cp  # noqa: E402
+import confpop.settings  # noqa: E402,F401
 from confpop.molecule import load_molecule  # noqa: E402
 
 # name: (SMILES, bond atoms (0-based heavy atoms), what it is)
@@ -74,11 +80,51 @@ def _compare(profile, reference):
     return worst_barrier, matched, len(ref_b), full, worst_angle
 
 
+def compare_guesses(guesses, only):
+    """Two initial Hessians for the scan's optimizations, at the default step."""
+    import confpop.optimize as copt
+
+    rows = []
+    for name, (smiles, bond, what) in TORSIONS.items():
+        if only and not any(p.strip() in name for p in only.split(",")):
+            continue
+        out = {}
+        for guess in guesses:
+            copt.DEFAULT_HESSIAN_GUESS = guess
+            if hasattr(copt, "CONSTRAINED_HESSIAN_GUESS"):  # a scan's points are constrained
+                copt.CONSTRAINED_HESSIAN_GUESS = guess
+            out[guess] = _scan(smiles, bond, cp.settings.SCAN_DEFAULTS.step)
+        (pa, ca), (pb, cb) = out[guesses[0]], out[guesses[1]]
+        same_grid = len(pa.angles) == len(pb.angles) and np.allclose(pa.angles, pb.angles)
+        d_profile = float(np.max(np.abs(pa.energies - pb.energies))) if same_grid else np.nan
+        worst, matched, total, full, angle = _compare(pb, pa)
+        rows.append((name, d_profile, worst, matched, total, angle, cb / ca))
+        print(f"{name} ({what}): profiles differ by up to {d_profile:.3f} kcal/mol, barriers "
+              f"{worst:.3f} ({matched}/{total} matched), minima {angle:.1f} deg; CPU "
+              f"{guesses[1]} / {guesses[0]} = {cb / ca:.2f} ({ca:.1f} s vs {cb:.1f} s)", flush=True)
+    print()
+    print(f"{'torsion':20s} {'profile |dE|':>12} {'barrier |dE|':>12} {'matched':>8} "
+          f"{'min angle':>9} {'CPU B/A':>7}")
+    for r in rows:
+        print(f"{r[0]:20s} {r[1]:>12.3f} {r[2]:>12.3f} {f'{r[3]}/{r[4]}':>8} {r[5]:>9.1f} "
+              f"{r[6]:>7.2f}")
+    print(f"A = {guesses[0]}, B = {guesses[1]}; |dE| in kcal/mol")
+
+
 def main():
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--steps", default="10,15,20,30")
     ap.add_argument("--only", default=None, help="torsion names containing this (comma-separated)")
+    ap.add_argument("--guesses", default=None,
+                    help="two initial Hessians to compare at the default step, e.g. "
+                         "lindh-primitive,lindh-primitive-soft")
     args = ap.parse_args()
+    if args.guesses:
+        guesses = [g.strip() for g in args.guesses.split(",")]
+        if len(guesses) != 2:
+            raise SystemExit(f"--guesses: two names, got {args.guesses!r}")
+        compare_guesses(guesses, args.only)
+        return
     steps = [float(s) for s in args.steps.split(",")]
     print(f"load average at start {os.getloadavg()[0]:.2f}", flush=True)
     rows = []

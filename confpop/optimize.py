@@ -183,8 +183,17 @@ except the ether-amide start that "default" and "default+msec" end in the neighb
 minimum 0.215 kcal/mol up (0.26 angstrom away; the soft guess reaches the verytight minimum
 there, so that start is the one duplicate-check mismatch against "default", 1 of 30 in both
 runs); largest RMSD to "verytight" otherwise 0.001-0.003 angstrom on every path. The goal
-of 16 calls at 31 atoms is not reached (18-19), so the default stays ``"lindh-primitive"``
-with the one-step BFGS update. Tried and dropped (8-10 starts, hydroxy-ester or all
+of 16 calls at 31 atoms is not reached (18-19), but the two together take 10-13 % fewer
+gradient calls and 0.83-0.95x the CPU per optimization to the same minima, and a whole
+search (``--search --paths default,lindh-primitive-soft+msec --trials 60 --rounds 1
+--move-parents 10 --move-iterations 1``, hydroxy-ester) 0.88x the gradient calls and 0.90x
+the CPU with the same 143 conformers: they are the default of unconstrained optimizations
+(:data:`DEFAULT_HESSIAN_GUESS`, ``_SECANT_PAIRS = 3``). Constrained optimizations (torsion
+scans, held dihedrals; the multi-secant update is off there anyway) keep
+:data:`CONSTRAINED_HESSIAN_GUESS` = ``"lindh-primitive"``: relaxed GFN2 scans of five
+torsions (``benchmarks/bench_scan_step.py --guesses lindh-primitive,lindh-primitive-soft``)
+gave the same profiles (< 0.0005 kcal/mol apart) with the soft guess, at 0.83-1.00x the CPU
+on four and 1.41x on biphenyl's stiffer conjugated torsion. Tried and dropped (8-10 starts, hydroxy-ester or all
 three): a curvature probe (one extra gradient 0.02-0.05 delocalized units along the coming
 Newton step or H's softest eigenvector once the gradient criteria are within 2-5x) cost more
 calls than it saved
@@ -240,7 +249,11 @@ _GEOMETRIC_COORDINATES = {"geometric": "auto", "geometric-tric": "tric", "geomet
 # False runs geomeTRIC's own (unvectorized) coordinate classes: for benchmarks only
 _ACCELERATE_GEOMETRIC = True
 #: initial Hessian of the geomeTRIC engines when none is asked for: measured, module docstring
-DEFAULT_HESSIAN_GUESS = "lindh-primitive"
+#: ("Learning the soft modes faster")
+DEFAULT_HESSIAN_GUESS = "lindh-primitive-soft"
+#: the same for constrained optimizations (scans, held dihedrals, frozen atoms): measured,
+#: module docstring
+CONSTRAINED_HESSIAN_GUESS = "lindh-primitive"
 
 
 @dataclass(frozen=True)
@@ -411,7 +424,8 @@ def optimize_positions(backend: Backend, positions, *, convergence="tight", max_
         early on flat torsions, see the module docstring). Case is ignored.
     hessian_guess : {"geometric", "lindh", "lindh-primitive", "lindh-primitive-soft"}, optional
         Initial Hessian of the geomeTRIC engines (default :data:`DEFAULT_HESSIAN_GUESS`,
-        see the module docstring): ``"geometric"`` is geomeTRIC's own guess (the reference
+        with constraints :data:`CONSTRAINED_HESSIAN_GUESS`; see the module docstring):
+        ``"geometric"`` is geomeTRIC's own guess (the reference
         path), ``"lindh"`` Lindh's model Hessian over all atoms (:mod:`confpop.model_hessian`),
         ``"lindh-primitive"`` Lindh's force constants on geomeTRIC's primitives,
         ``"lindh-primitive-soft"`` the same with the dihedral force constants halved.
@@ -467,7 +481,8 @@ def optimize_positions(backend: Backend, positions, *, convergence="tight", max_
         raise InputError("engine='lbfgs' has no constraints; use engine='geometric' for "
                          "dihedral_constraints or frozen_atoms")
     if hessian_guess is None:
-        hessian_guess = DEFAULT_HESSIAN_GUESS
+        hessian_guess = CONSTRAINED_HESSIAN_GUESS if (dihedrals or frozen) else \
+            DEFAULT_HESSIAN_GUESS
     if not isinstance(hessian_guess, str) or hessian_guess.lower() not in HESSIAN_GUESSES:
         raise InputError(f"hessian_guess must be one of {list(HESSIAN_GUESSES)}, "
                          f"got {hessian_guess!r}")

@@ -547,16 +547,24 @@ def _refuse_open_square_planar(mol: Chem.Mol) -> None:
                 f"[{atom.GetSymbol()}@SP2] (first and third trans)")
 
 
+def _optimizer_path() -> dict:
+    """The optimizer path of an optimization unit: the initial Hessian (passed on) and the
+    Hessian update (the workers' own, :data:`confpop.geometric_fast._SECANT_PAIRS`; in the
+    item only for its store key), so a store never returns another path's result."""
+    from .geometric_fast import _SECANT_PAIRS
+    from .optimize import DEFAULT_HESSIAN_GUESS
+
+    return {"hessian_guess": DEFAULT_HESSIAN_GUESS, "hessian_update_steps": int(_SECANT_PAIRS)}
+
+
 def _optimize_stage(ens, positions, base_item, convergence, engine, name, method, solvent,
                     executor, workers, progress, store):
     """Optimize every active conformer; failures become rows with status "failed"."""
-    from .optimize import DEFAULT_HESSIAN_GUESS
-
     t0 = time.perf_counter()
     ids = ens.ids()
-    # the initial Hessian is part of the unit (and of its store key): results of another
-    # optimizer path are not taken from a store
-    path = {"hessian_guess": DEFAULT_HESSIAN_GUESS} if engine.startswith("geometric") else {}
+    # the optimizer path is part of the unit (and of its store key): results of another
+    # path are not taken from a store
+    path = _optimizer_path() if engine.startswith("geometric") else {}
     outcomes = _run(optimize_unit, [{**base_item, "positions": positions[c],
                                      "convergence": convergence, "engine": engine, **path}
                                     for c in ids],
@@ -611,11 +619,9 @@ def _minimum_stage(ens, positions, base_item, convergence, method, seed, executo
     symmetric = [c for c in ens.ids() if symmetry_of_conformer(mol, positions[c], perms=perms)]
     for c in ens.ids():
         table.loc[c, "minimum_check"] = "symmetric" if c in symmetric else "not symmetric"
-    from .optimize import DEFAULT_HESSIAN_GUESS
-
     items = [{**base_item, "positions": positions[c], "energy": float(table.loc[c, f"energy_{method}"]),
               "convergence": convergence, "engine": "geometric", "seed": int(seed) % 2**31,
-              "hessian_guess": DEFAULT_HESSIAN_GUESS}  # in the store key, as for optimize
+              **_optimizer_path()}  # in the store key, as for optimize
              for c in symmetric]
     outcomes = _run(minimum_unit, items, executor=executor, workers=workers, progress=progress,
                     store=store, kind="minimum-check", description="minimum check")

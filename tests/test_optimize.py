@@ -330,8 +330,12 @@ def test_vectorized_primitives_edge_cases():
 def test_vectorized_geometric_takes_geometric_own_steps(engine, monkeypatch):
     # Same algorithm, faster arithmetic: the optimization must follow geomeTRIC's own
     # coordinate classes step for step (MMFF94 keeps this cheap; constraints included).
+    import confpop.geometric_fast as fast
     import confpop.optimize as optimize_module
 
+    # geomeTRIC's own Optimizer updates its Hessian with the last step only (BFGS); the
+    # multi-secant update (the default) is tested in test_geometric_fast.py
+    monkeypatch.setattr(fast, "_SECANT_PAIRS", 1)
     mol = Chem.AddHs(Chem.MolFromSmiles("N#CCC(=O)NC"))  # invented: nitrile + amide
     assert AllChem.EmbedMolecule(mol, randomSeed=3) == 0
     start = mol.GetConformer().GetPositions()
