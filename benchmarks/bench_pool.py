@@ -158,10 +158,19 @@ def part_readme(old: str, repeats: int) -> None:
     for _ in range(repeats):
         for name, tree in (("old", old), ("new", NEW)):
             runs[name].append(readme_run(tree))
-    same = all(r["energies"] == runs["old"][0]["energies"] for r in runs["old"] + runs["new"])
+    first = runs["old"][0]["energies"]
+    same_count = all(len(r["energies"]) == len(first) for r in runs["old"] + runs["new"])
+    # relative energies (kcal/mol) and populations, largest difference from the first old run
+    # (another optimizer path moves them by SCF-noise amounts, not by conformers)
+    d_energy = max((abs(a[0] - b[0]) for r in runs["old"] + runs["new"] if len(r["energies"]) ==
+                    len(first) for a, b in zip(r["energies"], first)), default=float("nan"))
+    d_pop = max((max(abs(x - y) for x, y in zip(a[1], b[1])) for r in runs["old"] + runs["new"]
+                 if len(r["energies"]) == len(first) for a, b in zip(r["energies"], first)),
+                default=float("nan"))
     _show("old", runs["old"])
     _show("new", runs["new"], runs["old"])
-    print(f"  same conformers and energies in every run: {same}")
+    print(f"  same number of conformers in every run: {same_count}; largest difference from the "
+          f"first old run: {d_energy:.4f} kcal/mol, population {d_pop:.4f}")
 
 
 def part_preload(repeats: int) -> None:
