@@ -439,8 +439,8 @@ def _ensemble_table_text(ens, temps, views=None, free: bool = False) -> str:
             lines.append(f"ring {ring}, share of the population at {temps[0]:g} K: " + "; ".join(
                 f"{name} {100 * share:.0f} %" for name, share in shares.items())
                 + " (Cremer-Pople)")
-    if any(" above" in str(v) or " below" in str(v) for c in rings for v in desc.table[c]) or \
-            any(" above" in line or " below" in line for line in desc.ring_summary()):
+    if any(" toward" in str(v) or " away from" in str(v) for c in rings for v in desc.table[c]) \
+            or any(" toward" in line or " away from" in line for line in desc.ring_summary()):
         from .describe import SIDE_CONVENTION
         lines.append(f"rings: {SIDE_CONVENTION}")
     if hbonds is not None:

@@ -372,37 +372,109 @@ def pucker_name(coords: dict, size: int) -> str:
     return ""
 
 
-#: how the side of an out-of-plane ring atom is named (IUPAC conformational nomenclature of
-#: rings: "above" is the side from which the ring's numbering runs clockwise)
-SIDE_CONVENTION = ("above/below: the side of the ring's mean plane from which its atoms, in "
-                   "the order of the ring's label, run clockwise / anticlockwise")
+#: how the side of an out-of-plane ring atom is named
+SIDE_CONVENTION = ("toward/away from X: the out-of-plane ring atom lies on the same/the other "
+                   "side of the ring's mean plane as substituent X (the ring's first "
+                   "non-hydrogen substituent on a tetrahedral ring atom)")
 
 
-def ring_form(mol: Chem.Mol, ring, coords: dict) -> str:
-    """The pucker name, and for a five-membered ring which atoms leave the plane, on which
-    side: "envelope, C8 above" (the flap), "twist, C7 above, C8 below" (the twisted bond).
+def _reference_substituent(mol: Chem.Mol, ring) -> tuple[int, int] | None:
+    """(ring atom, substituent) the side of a five-membered ring's out-of-plane atoms is
+    named by: the lowest-numbered non-hydrogen substituent of a ring atom with four
+    neighbours (an sp3 substituent leaves the ring's plane; a carbonyl O lies in it), or
+    None (nothing to refer to: the side is then not named)."""
+    members = set(ring)
+    best = None
+    for a in ring:
+        atom = mol.GetAtomWithIdx(int(a))
+        if atom.GetTotalDegree() != 4:
+            continue
+        for nb in atom.GetNeighbors():
+            b = nb.GetIdx()
+            if b not in members and nb.GetAtomicNum() > 1 and (best is None or b < best[1]):
+                best = (int(a), b)
+    return best
+
+
+def ring_form(mol: Chem.Mol, ring, coords: dict, positions=None) -> str:
+    """The pucker name, and for a five-membered ring which atoms leave the plane and to
+    which side: "envelope, C8 toward C2" (the flap), "twist, C6 toward and C7 away from C2"
+    (the twisted bond's atoms).
 
     Two envelopes of one ring with the same flap on opposite sides (a ring flip: the
     substituents swap between pseudo-axial and pseudo-equatorial) have the same pucker name
     but are different conformers; this tells them apart. The atoms are those of largest
     displacement from the Cremer-Pople mean plane (an ideal envelope has its flap at
     cos = 1 and no other atom above cos 36 deg = 0.81 of it; an ideal twist has its two
-    twisted atoms at +-cos 18 deg = 0.95 and the next at 0.59). The side follows
-    :data:`SIDE_CONVENTION`: the mean-plane normal n of :func:`cremer_pople` points to the side
-    from which the atoms, in ring order, run clockwise.
+    twisted atoms at +-cos 18 deg = 0.95 and the next at 0.59). The side is named against a
+    substituent (:func:`_reference_substituent`, :data:`SIDE_CONVENTION`), not against the
+    ring's numbering: a conformer and its mirror image (one row of an ensemble when mirror
+    images are merged) then read the same. Without such a substituent only the atoms are
+    named.
+
+    Parameters
+    ----------
+    mol : rdkit.Chem.Mol
+    ring : sequence of int
+        The ring atoms in ring order (0-based).
+    coords : dict
+        :func:`cremer_pople` of the ring's positions.
+    positions : (n_atoms, 3) array, optional
+        All atoms' positions (the substituent's direction); without them only the atoms are
+        named.
     """
     name = pucker_name(coords, len(ring))
     if len(ring) != 5 or name not in ("envelope", "twist"):
         return name
     z = np.asarray(coords["z"], float)
     largest = np.argsort(-np.abs(z), kind="stable")
+    reference = _reference_substituent(mol, ring) if positions is not None else None
+    if reference is not None:
+        xyz = np.asarray(positions, float)
+        normal = _mean_plane_normal(xyz[list(ring)] - xyz[list(ring)].mean(axis=0))
+        toward = float((xyz[reference[1]] - xyz[reference[0]]) @ normal)
+        ref_label = atom_label(mol, reference[1])
 
     def where(j):
-        return f"{atom_label(mol, ring[j])} {'above' if z[j] > 0 else 'below'}"
+        if reference is None:
+            return atom_label(mol, ring[j])
+        side = "toward" if z[j] * toward > 0 else "away from"
+        return f"{atom_label(mol, ring[j])} {side}"
     if name == "envelope":
-        return f"envelope, {where(largest[0])}"
+        flap = where(largest[0])
+        return f"envelope, {flap} {ref_label}" if reference is not None else f"envelope, {flap}"
     first, second = sorted(largest[:2])
-    return f"twist, {where(first)}, {where(second)}"
+    if reference is None:
+        return f"twist, {where(first)}-{where(second)}"
+    return f"twist, {where(first)} and {where(second)} {ref_label}"
+
+
+def _ring_relabellings(mol: Chem.Mol):
+    """(heavy atoms, their graph automorphisms) for :func:`_canonical_form`."""
+    from .prune import automorphisms
+
+    heavy = np.array([a.GetIdx() for a in mol.GetAtoms() if a.GetAtomicNum() > 1], dtype=int)
+    return heavy, automorphisms(mol, heavy)
+
+
+def _canonical_form(mol: Chem.Mol, ring, xyz, relabelled) -> str:
+    """:func:`ring_form` made independent of which of several equivalent atoms a conformer's
+    coordinates happen to sit on: the alphabetically first form over the molecule's graph
+    automorphisms (cyclopentanol's C3/C6 and C4/C5 are equivalent: a conformer kept by one
+    seed can be another seed's with those atoms swapped, or, with mirror images merged, its
+    mirror image)."""
+    heavy, perms = relabelled
+    forms = set()
+    seen = set()
+    for perm in perms:
+        key = tuple(perm)
+        if key in seen:
+            continue
+        seen.add(key)
+        moved = np.array(xyz, dtype=float)
+        moved[heavy] = xyz[perm]
+        forms.add(ring_form(mol, ring, cremer_pople(moved[ring]), positions=moved))
+    return min(forms)
 
 
 def _ordered_ring(mol, ring) -> list[int]:
@@ -440,13 +512,19 @@ def ring_puckers(mol: Chem.Mol, conf_ids=None) -> pd.DataFrame:
     """
     ids = [c.GetId() for c in mol.GetConformers()] if conf_ids is None else [int(c) for c in conf_ids]
     rows = []
-    for ring in puckered_rings(mol):
+    rings = puckered_rings(mol)
+    relabelled = _ring_relabellings(mol) if any(len(r) == 5 for r in rings) else None
+    for ring in rings:
         for cid in ids:
-            cp = cremer_pople(mol.GetConformer(cid).GetPositions()[ring])
+            xyz = mol.GetConformer(cid).GetPositions()
+            cp = cremer_pople(xyz[ring])
+            form = pucker_name(cp, len(ring))
+            if len(ring) == 5:
+                form = _canonical_form(mol, ring, xyz, relabelled)
             rows.append({"conformer": cid, "ring": _labels(mol, ring), "size": len(ring),
                          "Q_angstrom": cp["Q"], "theta_deg": cp.get("theta", np.nan),
                          "phi2_deg": cp["phi"][2], "pucker": pucker_name(cp, len(ring)),
-                         "form": ring_form(mol, ring, cp)})
+                         "form": form})
     return pd.DataFrame(rows, columns=["conformer", "ring", "size", "Q_angstrom", "theta_deg",
                                        "phi2_deg", "pucker", "form"])
 
@@ -504,7 +582,7 @@ def ring_substituents(mol: Chem.Mol, conf_ids=None, *, axial: float = AXIAL_DEGR
 def _ring_labels(rings: pd.DataFrame, subs: pd.DataFrame) -> pd.Series:
     """Per (conformer, ring) row of ``rings``: the ring's form (:func:`ring_form`), followed by
     the positions of the substituents whose position differs between the conformers
-    ("chair, N3 ax", "envelope, C8 above")."""
+    ("chair, N3 ax", "envelope, C8 toward C2")."""
     if not len(rings):
         return pd.Series([], dtype=object)
     varying = {}

@@ -149,9 +149,10 @@ def _pucker_sentence(ens, populations) -> str:
         return ""
     from .describe import SIDE_CONVENTION
 
+    sides = any(" toward " in part or " away from " in part for part in parts)
     return ("<p>Ring puckers (Cremer-Pople; ax/eq: axial or equatorial substituent, where it "
-            f"differs between conformers; {SIDE_CONVENTION}), with their share of the "
-            "population: "
+            "differs between conformers" + (f"; {SIDE_CONVENTION}" if sides else "")
+            + "), with their share of the population: "
             + html.escape(". ".join(parts)) + ".</p>")
 
 
