@@ -88,9 +88,13 @@ def _refuse_in_worker_start() -> None:
 
 
 def _pool_broke_hint() -> str:
-    """The hint for a pool whose workers never started, when the caller is a script."""
+    """The hint for a pool whose workers never started, when the caller is a user's script
+    (not the confpop command, whose entry point is guarded)."""
     main = sys.modules.get("__main__")
-    if START_METHOD != "fork" and getattr(main, "__file__", None):
+    spec = getattr(main, "__spec__", None)
+    ours = (spec is not None and str(spec.name).startswith("confpop")) or \
+        os.path.basename(sys.argv[0] if sys.argv else "") in ("confpop", "confpop.exe")
+    if START_METHOD != "fork" and getattr(main, "__file__", None) and not ours:
         return f"; {MAIN_GUARD_HINT}"
     return ""
 
@@ -353,7 +357,11 @@ def _ask_forkserver_to_preload(modules: Sequence[str]) -> None:
     from multiprocessing import forkserver
 
     server = getattr(forkserver, "_forkserver", None)
-    current = list(getattr(server, "_preload_modules", None) or ["__main__"])
+    # "__main__" (the default list) is left out: a fork server that imports the caller's
+    # script itself (CPython 3.13.x/3.14) would run an unguarded script's confpop calls in
+    # the server and die; the workers import the script as on other versions, where an
+    # unguarded call is stopped with its hint (_refuse_in_worker_start)
+    current = [m for m in (getattr(server, "_preload_modules", None) or []) if m != "__main__"]
     wanted = [m for m in ("confpop._forkserver_threads", *modules) if m not in current]
     if wanted:
         multiprocessing.set_forkserver_preload(current + wanted)
@@ -689,8 +697,10 @@ class _Run:
                     else:
                         while queue and (limit is None or len(pending) < limit):
                             self._submit(pool, executor, queue, pending)
-                except BrokenProcessPool:
-                    broken = True  # the pool broke between two submissions
+                except (BrokenProcessPool, EOFError, ConnectionError):
+                    # the pool broke between two submissions; EOFError/ConnectionError: the
+                    # fork server itself died while starting a worker
+                    broken = True
                 else:
                     broken = False
                     done, _ = wait(pending, return_when=FIRST_COMPLETED)

@@ -184,8 +184,13 @@ class _Runner:
         from .execution import _active_pool
 
         keys = [self._key(it, kind) for it in items] if self.store is not None else None
-        # on the given executor, or on the pool of an enclosing pool_scope, else here
-        local = 1 if self.executor is None and _active_pool() is None else None
+        # on the given executor, or on the pool of an enclosing pool_scope (only for a method
+        # a worker can import: a backend class defined in a notebook or script cannot be
+        # unpickled there), else here
+        importable = isinstance(self.method, str) or \
+            getattr(self.method, "__module__", "__main__") != "__main__"
+        local = 1 if self.executor is None and (_active_pool() is None or not importable) \
+            else None
         outcomes = run_jobs(function, items, keys=keys, store=self.store,
                             executor=self.executor, workers=local)
         for outcome in outcomes:

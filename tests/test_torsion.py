@@ -588,3 +588,27 @@ def test_a_scan_inside_a_pool_scope_runs_its_walks_on_that_pool_with_the_serial_
     assert len(uses) > opened and len(set(map(id, uses))) == 1  # the walks ran on that pool
     np.testing.assert_allclose(pooled.angles, serial.angles)
     np.testing.assert_allclose(pooled.energies, serial.energies, atol=1e-9)
+
+
+def test_a_scan_with_a_backend_class_of_the_callers_script_stays_in_process_inside_a_pool_scope():
+    # a backend class defined in a notebook or `python -c` cannot be unpickled by a worker:
+    # inside a pool_scope the scan must run such a method here (review finding: it failed
+    # with "Can't get attribute 'MyPotential'" after scans learnt to use an enclosing scope)
+    import subprocess
+    import sys
+
+    code = ("from confpop.backends.model import ModelTorsion\n"
+            "from confpop.execution import pool_scope\n"
+            "from confpop import scan_torsion\n"
+            "class MyPotential(ModelTorsion):\n"
+            "    pass\n"
+            "with pool_scope(2):\n"
+            "    p = scan_torsion('CCCC', (0, 1, 2, 3), method=MyPotential, step=60)\n"
+            "print('ENERGIES', [round(float(e), 6) for e in p.energies])\n")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
+    assert out.returncode == 0, out.stderr[-2000:]
+    import ast
+
+    energies = ast.literal_eval(out.stdout.split("ENERGIES", 1)[1].strip())
+    direct = scan_torsion("CCCC", (0, 1, 2, 3), method=ModelTorsion, step=60)
+    np.testing.assert_allclose(energies, direct.energies, atol=1e-6)
