@@ -11,8 +11,8 @@ these figures.
     nice -n 10 python benchmarks/bench_scan_step.py [--steps 10,15,20,30] [--only butane]
 
 ``--guesses A,B`` instead compares two initial Hessians of the scan's optimizations
-(``confpop.optimize.DEFAULT_HESSIAN_GUESS`` and ``CONSTRAINED_HESSIAN_GUESS``) at the default step, interleaved torsion by
-torsion: the largest energy difference between the two profiles, the barrier differences,
+(``confpop.optimize.DEFAULT_HESSIAN_GUESS`` and ``CONSTRAINED_HESSIAN_GUESS``) at the default step, torsion by
+torsion (A then B for each torsion, in one run): the largest energy difference between the two profiles, the barrier differences,
 and the CPU ratio B / A.
 
 Molecules: textbook torsions (n-butane's C2-C3, biphenyl's inter-ring bond, methyl

@@ -695,13 +695,15 @@ def _run_molecules(entries, settings, executor, workers, store, progress, writer
 
 
 def _run_conformers(entries, settings, executor, workers, store, progress, writer) -> None:
-    from .execution import default_workers
+    from .execution import _check_workers, default_workers
     from .pipeline import search, search_pool
 
     # One local pool for the whole batch (pool_scope, its workers preloaded with the engine):
     # every search and stage inside runs on it, and a worker that dies is replaced (the unit
     # it ran is charged one attempt) instead of failing the molecules after it.
-    n_local = (default_workers() if workers is None else workers) if executor is None else 1
+    # capped once here (one warning for the batch, not one per search and stage)
+    n_local = (default_workers() if workers is None else _check_workers(workers)) \
+        if executor is None else 1
     where = {"executor": executor} if executor is not None else {"workers": n_local}
     with search_pool(settings["method"], executor, n_local):
         for k, entry in enumerate(entries):

@@ -157,7 +157,10 @@ five steps. Two changes help, and together they keep the minima:
 
 ``benchmarks/bench_search.py --starts 30 --paths default,default+msec,lindh-primitive-soft,
 lindh-primitive-soft+msec`` (seed 1) and ``--seed 2 --paths
-default,lindh-primitive-soft+msec`` (other starts), each one run, interleaved start by start,
+default,lindh-primitive-soft+msec`` (other starts), measured while "default" was
+``lindh-primitive`` with the one-step BFGS update (to repeat now: ``--paths
+lindh-primitive+bfgs,lindh-primitive+msec,lindh-primitive-soft+bfgs,
+lindh-primitive-soft+msec``), each one run, interleaved start by start,
 load ~2; calls median (p90); CPU per optimization, median; RMSD = largest RMSD of an end
 structure to the "verytight" one of the same start (the duplicate check's atoms):
 
@@ -254,6 +257,16 @@ DEFAULT_HESSIAN_GUESS = "lindh-primitive-soft"
 #: the same for constrained optimizations (scans, held dihedrals, frozen atoms): measured,
 #: module docstring
 CONSTRAINED_HESSIAN_GUESS = "lindh-primitive"
+
+
+def optimizer_path(constrained: bool = False) -> dict:
+    """The default optimizer path as it enters a stored result's key: the initial Hessian
+    and the number of steps the Hessian update keeps (constrained steps always one)."""
+    from .geometric_fast import _SECANT_PAIRS
+
+    if constrained:
+        return {"hessian_guess": CONSTRAINED_HESSIAN_GUESS, "hessian_update_steps": 1}
+    return {"hessian_guess": DEFAULT_HESSIAN_GUESS, "hessian_update_steps": int(_SECANT_PAIRS)}
 
 
 @dataclass(frozen=True)

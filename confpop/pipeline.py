@@ -548,13 +548,12 @@ def _refuse_open_square_planar(mol: Chem.Mol) -> None:
 
 
 def _optimizer_path() -> dict:
-    """The optimizer path of an optimization unit: the initial Hessian (passed on) and the
-    Hessian update (the workers' own, :data:`confpop.geometric_fast._SECANT_PAIRS`; in the
-    item only for its store key), so a store never returns another path's result."""
-    from .geometric_fast import _SECANT_PAIRS
-    from .optimize import DEFAULT_HESSIAN_GUESS
+    """The optimizer path of an optimization unit (:func:`confpop.optimize.optimizer_path`):
+    the initial Hessian is passed on, the Hessian update is in the item only for its store
+    key, so a store never returns another path's result."""
+    from .optimize import optimizer_path
 
-    return {"hessian_guess": DEFAULT_HESSIAN_GUESS, "hessian_update_steps": int(_SECANT_PAIRS)}
+    return optimizer_path()
 
 
 def _optimize_stage(ens, positions, base_item, convergence, engine, name, method, solvent,

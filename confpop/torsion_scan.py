@@ -174,6 +174,9 @@ class _Runner:
         settings = {"options": kw.pop("options", {}), "atoms": list(self.atoms),
                     "targets": item["targets"], "convergence": item["convergence"],
                     "moving": self.moving, "relaxed": item["relaxed"]}
+        if kind == "torsion-start":  # the one unconstrained optimization of a scan
+            from .optimize import optimizer_path
+            settings["optimizer"] = optimizer_path()
         return job_key([a.GetAtomicNum() for a in self.mol.GetAtoms()], item["positions"],
                        charge=kw["charge"], multiplicity=kw["multiplicity"], method=name,
                        solvent=kw["solvent"], settings=settings, kind=kind)

@@ -454,3 +454,35 @@ def test_multisecant_path_reaches_geometric_own_minima(monkeypatch):
             assert res.energy == pytest.approx(own.energy, abs=1e-7)  # hartree
             np.testing.assert_allclose(d(res.positions), d(own.positions), atol=2e-3)
     assert used and max(used) > 1  # the block update did run with several steps
+
+
+def test_constrained_optimizations_keep_the_one_step_update_and_their_own_guess(monkeypatch):
+    # the multi-secant update (the default, _SECANT_PAIRS = 3) is for unconstrained steps
+    # only, and constrained optimizations (scans) start from CONSTRAINED_HESSIAN_GUESS: with
+    # a held dihedral and a frozen atom the block update is never called and the result
+    # equals the one-step BFGS path's to 1e-10 angstrom (MMFF94, invented methoxy-amide)
+    calls = []
+    original = fast.multisecant_update
+
+    def counting(*args, **kwargs):
+        calls.append(1)
+        return original(*args, **kwargs)
+
+    monkeypatch.setattr(fast, "multisecant_update", counting)
+    mol = Chem.AddHs(Chem.MolFromSmiles("COCC(=O)N(C)C"))
+    assert AllChem.EmbedMolecule(mol, randomSeed=5) == 0
+    start = mol.GetConformer().GetPositions()
+    backend = get_backend("mmff94", mol)
+    options = {"dihedral_constraints": [((0, 1, 2, 3), None)], "frozen_atoms": [5]}
+    monkeypatch.setattr(fast, "_SECANT_PAIRS", 3)
+    held = optimize_positions(backend, start, **options)
+    assert held.converged and not calls
+    monkeypatch.setattr(fast, "_SECANT_PAIRS", 1)
+    one_step = optimize_positions(backend, start, **options)
+    np.testing.assert_allclose(held.positions, one_step.positions, rtol=0, atol=1e-10)
+    assert optimize_module.optimizer_path(constrained=True) == {
+        "hessian_guess": optimize_module.CONSTRAINED_HESSIAN_GUESS, "hessian_update_steps": 1}
+    # unconstrained, the same start uses the block update
+    monkeypatch.setattr(fast, "_SECANT_PAIRS", 3)
+    free = optimize_positions(backend, start)
+    assert free.converged and calls
