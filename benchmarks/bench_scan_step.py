@@ -13,7 +13,7 @@ these figures.
 ``--guesses A,B`` instead compares two initial Hessians of the scan's optimizations
 (``confpop.optimize.DEFAULT_HESSIAN_GUESS`` and ``CONSTRAINED_HESSIAN_GUESS``) at the default step, torsion by
 torsion (A then B for each torsion, in one run): the largest energy difference between the two profiles, the barrier differences,
-and the CPU ratio B / A.
+the gradient calls (they do not drift with the machine's load) and the CPU ratio B / A.
 
 Molecules: textbook torsions (n-butane's C2-C3, biphenyl's inter-ring bond, methyl
 acetate's ester C-O, N-methylacetamide's amide C-N) and one invented hydroxy-ester's
@@ -83,31 +83,37 @@ def _compare(profile, reference):
 def compare_guesses(guesses, only):
     """Two initial Hessians for the scan's optimizations, at the default step."""
     import confpop.optimize as copt
+    from bench_search import Meter  # counts the xtb-python backends' gradient calls
 
+    meter = Meter()
     rows = []
     for name, (smiles, bond, what) in TORSIONS.items():
         if only and not any(p.strip() in name for p in only.split(",")):
             continue
-        out = {}
+        out, calls = {}, {}
         for guess in guesses:
             copt.DEFAULT_HESSIAN_GUESS = guess
             if hasattr(copt, "CONSTRAINED_HESSIAN_GUESS"):  # a scan's points are constrained
                 copt.CONSTRAINED_HESSIAN_GUESS = guess
+            meter.reset()
             out[guess] = _scan(smiles, bond, cp.settings.SCAN_DEFAULTS.step)
+            calls[guess] = len(meter.gradient_times)
         (pa, ca), (pb, cb) = out[guesses[0]], out[guesses[1]]
+        na, nb = calls[guesses[0]], calls[guesses[1]]
         same_grid = len(pa.angles) == len(pb.angles) and np.allclose(pa.angles, pb.angles)
         d_profile = float(np.max(np.abs(pa.energies - pb.energies))) if same_grid else np.nan
         worst, matched, total, full, angle = _compare(pb, pa)
-        rows.append((name, d_profile, worst, matched, total, angle, cb / ca))
+        rows.append((name, d_profile, worst, matched, total, angle, cb / ca, na, nb))
         print(f"{name} ({what}): profiles differ by up to {d_profile:.3f} kcal/mol, barriers "
-              f"{worst:.3f} ({matched}/{total} matched), minima {angle:.1f} deg; CPU "
-              f"{guesses[1]} / {guesses[0]} = {cb / ca:.2f} ({ca:.1f} s vs {cb:.1f} s)", flush=True)
+              f"{worst:.3f} ({matched}/{total} matched), minima {angle:.1f} deg; gradient calls "
+              f"{na} vs {nb}; CPU {guesses[1]} / {guesses[0]} = {cb / ca:.2f} ({ca:.1f} s vs "
+              f"{cb:.1f} s)", flush=True)
     print()
     print(f"{'torsion':20s} {'profile |dE|':>12} {'barrier |dE|':>12} {'matched':>8} "
-          f"{'min angle':>9} {'CPU B/A':>7}")
+          f"{'min angle':>9} {'calls A':>7} {'calls B':>7} {'CPU B/A':>7}")
     for r in rows:
         print(f"{r[0]:20s} {r[1]:>12.3f} {r[2]:>12.3f} {f'{r[3]}/{r[4]}':>8} {r[5]:>9.1f} "
-              f"{r[6]:>7.2f}")
+              f"{r[7]:>7d} {r[8]:>7d} {r[6]:>7.2f}")
     print(f"A = {guesses[0]}, B = {guesses[1]}; |dE| in kcal/mol")
 
 

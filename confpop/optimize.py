@@ -195,8 +195,9 @@ the CPU with the same 143 conformers: they are the default of unconstrained opti
 scans, held dihedrals; the multi-secant update is off there anyway) keep
 :data:`CONSTRAINED_HESSIAN_GUESS` = ``"lindh-primitive"``: relaxed GFN2 scans of five
 torsions (``benchmarks/bench_scan_step.py --guesses lindh-primitive,lindh-primitive-soft``)
-gave the same profiles (< 0.0005 kcal/mol apart) with the soft guess, at 0.83-1.00x the CPU
-on four and 1.41x on biphenyl's stiffer conjugated torsion. Tried and dropped (8-10 starts, hydroxy-ester or all
+gave the same profiles (< 0.0005 kcal/mol apart) with the soft guess, and 0.89-0.92x the
+gradient calls on four torsions but 1.40x on biphenyl's stiffer conjugated one (402 -> 563;
+0.97x over all five; a second run, with gradient calls counted). Tried and dropped (8-10 starts, hydroxy-ester or all
 three): a curvature probe (one extra gradient 0.02-0.05 delocalized units along the coming
 Newton step or H's softest eigenvector once the gradient criteria are within 2-5x) cost more
 calls than it saved
