@@ -464,15 +464,16 @@ def _canonical_form(mol: Chem.Mol, ring, xyz, relabelled) -> str:
     seed can be another seed's with those atoms swapped, or, with mirror images merged, its
     mirror image)."""
     heavy, perms = relabelled
+    # only where the ring atoms and their substituents go matters (a molecule's other
+    # symmetries, e.g. tert-butyl groups, would multiply the work without changing a label)
+    near = sorted({int(a) for a in ring} | {nb.GetIdx() for a in ring
+                                            for nb in mol.GetAtomWithIdx(int(a)).GetNeighbors()
+                                            if nb.GetAtomicNum() > 1})
+    columns = np.searchsorted(heavy, near)
     forms = set()
-    seen = set()
-    for perm in perms:
-        key = tuple(perm)
-        if key in seen:
-            continue
-        seen.add(key)
+    for mapping in np.unique(perms[:, columns], axis=0):
         moved = np.array(xyz, dtype=float)
-        moved[heavy] = xyz[perm]
+        moved[near] = xyz[mapping]
         forms.add(ring_form(mol, ring, cremer_pople(moved[ring]), positions=moved))
     return min(forms)
 
