@@ -186,7 +186,7 @@ except the ether-amide start that "default" and "default+msec" end in the neighb
 minimum 0.215 kcal/mol up (0.26 angstrom away; the soft guess reaches the verytight minimum
 there, so that start is the one duplicate-check mismatch against "default", 1 of 30 in both
 runs); largest RMSD to "verytight" otherwise 0.001-0.003 angstrom on every path. The goal
-of 16 calls at 31 atoms is not reached (18-19), but the two together take 10-13 % fewer
+of 16 calls at 31 atoms is not reached (18-19), but the two together take 10-19 % fewer
 gradient calls and 0.83-0.95x the CPU per optimization to the same minima, and a whole
 search (``--search --paths default,lindh-primitive-soft+msec --trials 60 --rounds 1
 --move-parents 10 --move-iterations 1``, hydroxy-ester) 0.88x the gradient calls and 0.90x
