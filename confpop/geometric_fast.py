@@ -29,7 +29,8 @@ once (same algorithm, same decisions, only rounding differs):
 Measured and the default of unconstrained optimizations (see :mod:`confpop.optimize`): a
 multi-secant Hessian update over the last 3 steps (:func:`multisecant_update`,
 ``_SECANT_PAIRS``) and a softer initial Hessian, ``"lindh-primitive-soft"`` (Lindh's
-dihedral constants halved): 10-19 % fewer gradient calls (median, two sets of 30 starts) to the same minima.
+dihedral constants halved): 10-19 % fewer gradient calls (median, two sets of 30 starts)
+to the same minima.
 
 Measured with ``benchmarks/bench_geometric_step.py --starts 10`` (GFN2-xTB, xtb-python,
 one thread, the default initial Hessian and SCF restarts; the search's own starts, paths
