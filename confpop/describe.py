@@ -721,7 +721,8 @@ class ConformerDescription:
 
         return {
             "torsions_deg": {t.label: round(t.values[cid], 1) for t in self.torsions},
-            "rings": {r.ring: {"pucker": r.pucker, "form": r.form, "Q_angstrom": round(float(r.Q_angstrom), 3),
+            "rings": {r.ring: {"pucker": r.pucker, "form": r.form,
+                               "Q_angstrom": round(float(r.Q_angstrom), 3),
                                "theta_deg": None if np.isnan(r.theta_deg) else round(float(r.theta_deg), 1),
                                "phi2_deg": round(float(r.phi2_deg), 1),
                                "shown": getattr(r, "label", r.pucker),

@@ -197,8 +197,8 @@ scans, held dihedrals; the multi-secant update is off there anyway) keep
 torsions (``benchmarks/bench_scan_step.py --guesses lindh-primitive,lindh-primitive-soft``)
 gave the same profiles (< 0.0005 kcal/mol apart) with the soft guess, and 0.89-0.92x the
 gradient calls on four torsions but 1.40x on biphenyl's stiffer conjugated one (402 -> 563;
-0.97x over all five; a second run, with gradient calls counted). Tried and dropped (8-10 starts, hydroxy-ester or all
-three): a curvature probe (one extra gradient 0.02-0.05 delocalized units along the coming
+0.97x over all five; a second run, with gradient calls counted). Tried and dropped (8-10
+starts, hydroxy-ester or all three): a curvature probe (one extra gradient 0.02-0.05 delocalized units along the coming
 Newton step or H's softest eigenvector once the gradient criteria are within 2-5x) cost more
 calls than it saved
 (median/mean 17.5-19/17.4-18.6 against 17.5/17.1); an extrapolation along the last
