@@ -14,6 +14,8 @@ import time
 
 import pytest
 
+from processes import session_processes
+
 from confpop.cli import main
 
 
@@ -192,18 +194,6 @@ if __name__ == "__main__":
 """
 
 
-def _session_processes(sid: int) -> list[int]:
-    found = []
-    for entry in os.listdir("/proc"):
-        if entry.isdigit():
-            try:
-                if os.getsid(int(entry)) == sid:
-                    found.append(int(entry))
-            except OSError:
-                pass
-    return found
-
-
 @pytest.mark.skipif(not sys.platform.startswith("linux"), reason="reads /proc")
 @pytest.mark.parametrize("signum", [signal.SIGTERM, signal.SIGHUP])
 @pytest.mark.slow
@@ -217,13 +207,13 @@ def test_a_terminated_run_leaves_no_process_behind(tmp_path, signum):
     while len(list(tmp_path.glob("started-*"))) < 2 and time.monotonic() < deadline:
         time.sleep(0.1)
     assert len(list(tmp_path.glob("started-*"))) == 2, "the workers did not start"
-    assert len(_session_processes(process.pid)) >= 4  # main, forkserver, tracker, 2 workers
+    assert len(session_processes(process.pid)) >= 4  # main, forkserver, tracker, 2 workers
     process.send_signal(signum)
     assert process.wait(timeout=30) == 128 + signum
     deadline = time.monotonic() + 10
-    while _session_processes(process.pid) and time.monotonic() < deadline:
+    while session_processes(process.pid) and time.monotonic() < deadline:
         time.sleep(0.1)
-    assert _session_processes(process.pid) == []
+    assert session_processes(process.pid) == []
 
 
 # -- runaway jobs and absurd values -----------------------------------------------------------

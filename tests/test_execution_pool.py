@@ -17,6 +17,8 @@ import time
 
 import pytest
 
+from processes import alive, session_processes
+
 from confpop.execution import WORKER_DIED, _active_pool, pool_scope, run_units
 
 
@@ -64,19 +66,11 @@ def openmp_after_a_gfn2_single_point(_):
     return [ctypes.CDLL(p).omp_get_max_threads() for p in gomp], threads
 
 
-def _alive(pid: int) -> bool:
-    try:
-        with open(f"/proc/{pid}/stat") as handle:
-            return handle.read().split(")")[-1].split()[0] != "Z"  # a zombie has ended
-    except OSError:
-        return False
-
-
 def _wait_gone(pids, seconds=15.0) -> list[int]:
     deadline = time.monotonic() + seconds
-    while any(_alive(p) for p in pids) and time.monotonic() < deadline:
+    while any(alive(p) for p in pids) and time.monotonic() < deadline:
         time.sleep(0.05)
-    return [p for p in pids if _alive(p)]
+    return [p for p in pids if alive(p)]
 
 
 # -- sharing --------------------------------------------------------------------------------
@@ -302,18 +296,6 @@ if __name__ == "__main__":
 """
 
 
-def _session_processes(sid: int) -> list[int]:
-    found = []
-    for entry in os.listdir("/proc"):
-        if entry.isdigit():
-            try:
-                if os.getsid(int(entry)) == sid and _alive(int(entry)):
-                    found.append(int(entry))
-            except OSError:
-                pass
-    return found
-
-
 @pytest.mark.skipif(not os.path.exists("/proc/self/stat"), reason="reads /proc")
 @pytest.mark.slow
 def test_sigterm_in_a_later_stage_of_a_scope_leaves_no_process_behind(tmp_path):
@@ -329,25 +311,13 @@ def test_sigterm_in_a_later_stage_of_a_scope_leaves_no_process_behind(tmp_path):
     while len(list(tmp_path.glob("started-*"))) < 2 and time.monotonic() < deadline:
         time.sleep(0.1)
     time.sleep(0.5)  # the 60 s units have started too
-    assert len(_session_processes(process.pid)) >= 4  # main, fork server, tracker, 2 workers
+    assert len(session_processes(process.pid)) >= 4  # main, fork server, tracker, 2 workers
     process.send_signal(signal.SIGTERM)
     assert process.wait(timeout=30) == 128 + signal.SIGTERM
     deadline = time.monotonic() + 10
-    while _session_processes(process.pid) and time.monotonic() < deadline:
+    while session_processes(process.pid) and time.monotonic() < deadline:
         time.sleep(0.1)
-    assert _session_processes(process.pid) == []
-
-
-def _session_processes(sid: int) -> list[int]:
-    found = []
-    for entry in os.listdir("/proc"):
-        if entry.isdigit():
-            try:
-                if os.getsid(int(entry)) == sid:
-                    found.append(int(entry))
-            except OSError:
-                pass
-    return found
+    assert session_processes(process.pid) == []
 
 
 @pytest.mark.slow
@@ -366,7 +336,7 @@ def test_ctrl_c_while_the_fork_server_loads_the_engines_prints_no_traceback(tmp_
                             stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
 
     def forkserver_up():
-        for pid in _session_processes(proc.pid):
+        for pid in session_processes(proc.pid):
             try:
                 with open(f"/proc/{pid}/cmdline", "rb") as handle:
                     if b"forkserver" in handle.read():
@@ -386,9 +356,9 @@ def test_ctrl_c_while_the_fork_server_loads_the_engines_prints_no_traceback(tmp_
     assert "Traceback" not in err and "Fatal Python error" not in err, err[-2000:]
     assert "interrupted" in err
     deadline = time.monotonic() + 15
-    while _session_processes(proc.pid) and time.monotonic() < deadline:
+    while session_processes(proc.pid) and time.monotonic() < deadline:
         time.sleep(0.1)
-    assert _session_processes(proc.pid) == []
+    assert session_processes(proc.pid) == []
 
 
 def test_pool_scope_caps_workers_silently_and_the_asking_call_warns_once():

@@ -99,6 +99,17 @@ def test_model_hessian_reaches_the_same_minimum(butane_mmff, guess):
     np.testing.assert_allclose(d(aligned), d(ref), atol=1e-3)
 
 
+def _geometric_molecule(mol):
+    """geomeTRIC's Molecule of an embedded RDKit molecule, and its coordinates in bohr."""
+    from geometric.molecule import Molecule
+
+    molecule = Molecule()
+    molecule.elem = [a.GetSymbol() for a in mol.GetAtoms()]
+    molecule.xyzs = [mol.GetConformer().GetPositions()]
+    molecule.build_topology()
+    return molecule, molecule.xyzs[0].ravel() * 1.8897261
+
+
 def test_model_hessian_with_a_driven_dihedral(butane_mmff):
     mol, start = butane_mmff
     res = optimize_positions(get_backend("mmff94", mol), start, convergence="normal",
@@ -112,15 +123,10 @@ def test_several_fragments_keep_geometric_guess():
     # TRIC's overall translations and rotations have no curvature in Lindh's model: for
     # several fragments the model classes must hand out geomeTRIC's own guess
     from geometric.internal import DelocalizedInternalCoordinates
-    from geometric.molecule import Molecule
 
     mol = Chem.AddHs(Chem.MolFromSmiles("C.N"))
     assert AllChem.EmbedMolecule(mol, randomSeed=3) == 0
-    molecule = Molecule()
-    molecule.elem = [a.GetSymbol() for a in mol.GetAtoms()]
-    molecule.xyzs = [mol.GetConformer().GetPositions()]
-    molecule.build_topology()
-    x = molecule.xyzs[0].ravel() * 1.8897261
+    molecule, x = _geometric_molecule(mol)
     own = DelocalizedInternalCoordinates(molecule, build=True, connect=False)
     model = fast.coordinate_classes("lindh")[0](molecule, build=True, connect=False)
     np.testing.assert_allclose(model.Vecs @ model.guess_hessian(x) @ model.Vecs.T,
@@ -175,15 +181,10 @@ def test_trust_radius_step_equals_geometric_own(low):
 
 def test_cholesky_g_inverse_equals_geometric_svd_inverse():
     from geometric.internal import DelocalizedInternalCoordinates
-    from geometric.molecule import Molecule
 
     mol = Chem.AddHs(Chem.MolFromSmiles("COCCN(C)C(=O)C"))  # invented ether-amide
     assert AllChem.EmbedMolecule(mol, randomSeed=5) == 0
-    molecule = Molecule()
-    molecule.elem = [a.GetSymbol() for a in mol.GetAtoms()]
-    molecule.xyzs = [mol.GetConformer().GetPositions()]
-    molecule.build_topology()
-    x = molecule.xyzs[0].ravel() * 1.8897261
+    molecule, x = _geometric_molecule(mol)
     ours = fast.coordinate_classes("geometric")[0](molecule, build=True, connect=True)
     own = DelocalizedInternalCoordinates(molecule, build=True, connect=True)
     g = ours.GMatrix(x)
@@ -404,15 +405,10 @@ def test_soft_guess_halves_only_the_dihedral_force_constants():
     # "lindh-primitive-soft" is Lindh's diagonal with the dihedral constants halved; every
     # other primitive keeps its value (the reference: the "lindh-primitive" guess)
     from geometric.internal import Dihedral
-    from geometric.molecule import Molecule
 
     mol = Chem.AddHs(Chem.MolFromSmiles("CCOC(=O)C"))
     assert AllChem.EmbedMolecule(mol, randomSeed=3) == 0
-    molecule = Molecule()
-    molecule.elem = [a.GetSymbol() for a in mol.GetAtoms()]
-    molecule.xyzs = [mol.GetConformer().GetPositions()]
-    molecule.build_topology()
-    x = molecule.xyzs[0].ravel() * 1.8897261
+    molecule, x = _geometric_molecule(mol)
     ic = fast.coordinate_classes("lindh-primitive")[0](molecule, build=True, connect=True)
     plain = np.diag(ic.Prims.lindh_diagonal(x))
     soft = np.diag(ic.Prims.lindh_diagonal(x, torsion_scale=fast._SOFT_TORSION_SCALE))
